@@ -1,0 +1,15 @@
+"""topo: density-based topology optimisation of metal brackets for laser powder-bed fusion.
+
+Results are concept designs, to be verified by qualified analysis and testing under
+the applicable codes and licensed engineering practice.
+
+>>> import topo
+>>> p = topo.load_problem  # load_problem(path, overrides) → Problem
+"""
+from .design import Result, analyze, check, optimize
+from .export import export
+from .problem import Problem, ProblemError, load_problem, problem_from_dict
+
+__all__ = ["Problem", "ProblemError", "Result", "analyze", "check", "export", "load_problem",
+           "optimize", "problem_from_dict"]
+__version__ = "0.1.0"

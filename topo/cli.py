@@ -1,0 +1,133 @@
+"""Command line: thin subcommands over the public API."""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from . import analyze, check, export, load_problem, optimize
+from .problem import ProblemError, parse_override
+from .report import CAUTION
+
+
+def _load(args):
+    overrides = dict(parse_override(s) for s in (args.set or []))
+    return load_problem(args.file, overrides)
+
+
+def _out_dir(args, problem) -> Path:
+    return Path(args.out) if args.out else Path("outputs") / problem.name
+
+
+def _progress(row: dict) -> None:
+    beta = f"  beta {row['beta']:5.1f}" if row["beta"] is not None else ""
+    print(f"iter {row['iteration']:4d}  compliance {row['objective']:.6e} N·mm  "
+          f"volume {row['volume_fraction']:.4f}  change {row['change']:.4f}{beta}  "
+          f"{row['seconds']:.2f} s", flush=True)
+
+
+def _print_cases(summary: dict) -> None:
+    for case in summary["load_cases"]:
+        vm = case["max_von_mises_MPa"]
+        print(f"  load case {case['name']}: compliance {case['compliance_Nmm']:.6g} N·mm, "
+              f"max displacement {case['max_displacement_mm']:.4g} mm"
+              + (f", max von Mises {vm:.4g} MPa" if vm is not None else ""))
+
+
+def cmd_run(args) -> int:
+    problem = _load(args)
+    g = problem.domain.shape
+    print(f"{problem.name}: {problem.dim}D, {'×'.join(map(str, g))} = {int(np.prod(g))} elements "
+          f"of {problem.domain.element_size} mm, {problem.material.name}", flush=True)
+    result = optimize(problem, callback=None if args.quiet else _progress)
+    out = _out_dir(args, problem)
+    export(result, out)
+    s = result.summary
+    print(f"{'converged' if s['converged'] else 'stopped'} after {s['iterations']} iterations "
+          f"in {s['runtime_s']:.1f} s (solver {s['solver']}): {s['stop_reason']}")
+    print(f"  compliance {s['compliance_Nmm']:.6g} N·mm, volume fraction {s['volume_fraction']:.4f}, "
+          f"mass {s['mass_kg']:.4g} kg")
+    _print_cases(s)
+    print(f"outputs in {out}/")
+    print(CAUTION)
+    return 0
+
+
+def cmd_check(args) -> int:
+    problem = _load(args)
+    rep = check(problem)
+    if args.json:
+        print(json.dumps(rep, indent=2))
+        return 0
+    print(f"{rep['name']} ({rep['source']}): {rep['dimension']}D")
+    print(f"  grid {'×'.join(map(str, rep['elements']))} = {rep['element_count']} elements of "
+          f"{rep['element_size_mm']} mm; {rep['nodes']} nodes; {rep['dofs']} dofs "
+          f"({rep['free_dofs']} free); {rep['design_elements']} design elements")
+    print(f"  material {rep['material']}; build direction {rep['build_direction'] or 'none'}")
+    for r in rep["regions"]:
+        what = f"{r['nodes']} nodes" if r["role"] in ("support", "force") else f"{r['elements']} elements"
+        print(f"  {r['key']:<24} {r['role']:<8} {r['name']:<24} {what}")
+    for c in rep["load_cases"]:
+        tot = ", ".join(f"{v:.6g}" for v in c["total_force_N"])
+        extra = (f"; {c['force_on_fixed_dofs_N']:.6g} N lands on fixed dofs"
+                 if c["force_on_fixed_dofs_N"] > 0 else "")
+        print(f"  load case {c['name']} (weight {c['weight']}): total force [{tot}] N{extra}")
+    print(f"  estimated memory {rep['memory_estimate_MB']} MB")
+    return 0
+
+
+def cmd_analyze(args) -> int:
+    problem = _load(args)
+    density = np.load(args.design) if args.design else None
+    result = analyze(problem, density)
+    out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-analysis"
+    export(result, out, only=["problem.json", "summary.json"])
+    s = result.summary
+    print(f"{problem.name}: analysis of {'the design ' + args.design if args.design else 'the full domain'}")
+    print(f"  compliance {s['compliance_Nmm']:.6g} N·mm, mass {s['mass_kg']:.4g} kg")
+    _print_cases(s)
+    print(f"summary in {out}/summary.json")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(prog="topo", description="Topology optimisation of metal "
+                                 "brackets for laser powder-bed fusion.", epilog=CAUTION)
+    sub = ap.add_subparsers(dest="command", required=True)
+
+    def common(p):
+        p.add_argument("file", help="problem file (TOML)")
+        p.add_argument("--set", action="append", metavar="KEY=VALUE",
+                       help="override a problem value, e.g. optimization.volume_fraction=0.25")
+
+    p = sub.add_parser("run", help="optimise a problem and write every output file")
+    common(p)
+    p.add_argument("--out", help="output folder (default outputs/NAME)")
+    p.add_argument("--quiet", action="store_true", help="no progress lines")
+    p.set_defaults(func=cmd_run)
+    p = sub.add_parser("check", help="build the model and print it, without solving")
+    common(p)
+    p.add_argument("--json", action="store_true", help="print the report as JSON")
+    p.set_defaults(func=cmd_check)
+    p = sub.add_parser("analyze", help="finite-element analysis of the full domain or a design")
+    common(p)
+    p.add_argument("--design", help="density.npy of a design (default: the full domain)")
+    p.add_argument("--out", help="output folder (default outputs/NAME-analysis)")
+    p.set_defaults(func=cmd_analyze)
+    return ap
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    try:
+        return args.func(args)
+    except ProblemError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,182 @@
+"""Finite-element model on the structured grid: assembly, supports, loads, solves.
+
+Assembly follows the fixed-pattern approach: the map from element stiffness entries
+to the entries of the reduced (free dofs), lower-triangular global matrix is built
+once as a sparse matrix A, so that each iteration's matrix values are one product
+``A @ E`` with the element moduli E. Modified SIMP (Sigmund 2007, Struct. Multidisc.
+Optim. 33:401) gives E(ρ) = E0·(e_min + ρ^p (1 − e_min)).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from .elements import centre_strain_displacement, element_stiffness, elasticity_matrix, von_mises
+from .grid import Grid
+from .problem import Problem, ProblemError
+from .regions import outside_domain, select_elements, select_nodes
+from .solvers import make_solver
+
+AXIS_INDEX = {"x": 0, "y": 1, "z": 2}
+
+
+@dataclass(frozen=True)
+class Selection:
+    """What one region of the problem selected, for reports."""
+    key: str  # key path in the problem file, e.g. support[0]
+    role: str  # support | force | solid | void
+    name: str
+    nodes: int
+    elements: int
+
+
+@dataclass
+class Analysis:
+    """Displacements and derived quantities of one design, every load case."""
+    displacements: np.ndarray  # (n_dofs, n_cases) mm
+    compliances: np.ndarray  # (n_cases,) N·mm, fᵀu
+    energies: np.ndarray  # (n_elements, n_cases) u_eᵀ k0 u_e with the solid modulus
+    max_displacement: np.ndarray  # (n_cases,) mm, largest nodal displacement magnitude
+    von_mises: np.ndarray  # (n_elements, n_cases) MPa, solid-material stress at centres
+
+
+class Model:
+    """Grid, element matrix, supports, loads and passive sets of a problem."""
+
+    def __init__(self, problem: Problem):
+        self.problem = problem
+        dom, mat = problem.domain, problem.material
+        self.grid = grid = Grid(dom.shape, dom.element_size)
+        self.dim = dim = grid.dim
+        thickness = dom.thickness if dim == 2 else 1.0
+        self.ke = element_stiffness(dim, dom.element_size, mat.poissons_ratio,
+                                    mat.youngs_modulus, thickness)
+        self.selections: list[Selection] = []
+        self._fixed = self._supports()
+        self.loads = self._loads()
+        self.solid, self.void = self._passives()
+        self.free = np.flatnonzero(~self._fixed)
+        self._build_pattern()
+        self.solver = make_solver(problem.optimization.solver)
+
+    # ------------------------------------------------------------------ problem → sets
+    def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
+        src = self.problem.source
+        if outside_domain(region, self.grid):
+            raise ProblemError(src, f"{key}.region", f"the region lies outside the domain "
+                               f"(0..{list(self.grid.size)} mm)")
+        nodes = select_nodes(region, self.grid)
+        if len(nodes) == 0:
+            raise ProblemError(src, f"{key}.region", "the region selects no nodes; "
+                               f"nodes lie every {self.grid.h} mm")
+        self.selections.append(Selection(key, role, name, len(nodes), 0))
+        return nodes
+
+    def _supports(self) -> np.ndarray:
+        fixed = np.zeros(self.grid.n_dofs, dtype=bool)
+        for i, s in enumerate(self.problem.supports):
+            nodes = self._nodes(s.region, f"support[{i}]", "support", s.name)
+            for axis in s.fix:
+                fixed[self.dim * nodes + AXIS_INDEX[axis]] = True
+        return fixed
+
+    def _loads(self) -> np.ndarray:
+        f = np.zeros((self.grid.n_dofs, len(self.problem.load_cases)))
+        for c, case in enumerate(self.problem.load_cases):
+            for j, force in enumerate(case.forces):
+                key = f"load_case[{c}].force[{j}]"
+                nodes = self._nodes(force.region, key, "force", case.name)
+                for axis, total in enumerate(force.total):
+                    np.add.at(f[:, c], self.dim * nodes + axis, total / len(nodes))
+        return f
+
+    def _passives(self) -> tuple[np.ndarray, np.ndarray]:
+        n = self.grid.n_elements
+        masks = {"solid": np.zeros(n, dtype=bool), "void": np.zeros(n, dtype=bool)}
+        src = self.problem.source
+        for i, p in enumerate(self.problem.passives):
+            key = f"passive[{i}]"
+            if outside_domain(p.region, self.grid):
+                raise ProblemError(src, f"{key}.region", "the region lies outside the domain")
+            elems = select_elements(p.region, self.grid)
+            if len(elems) == 0:
+                raise ProblemError(src, f"{key}.region", "the region selects no elements "
+                                   "(elements are selected by their centre)")
+            masks[p.kind][elems] = True
+            self.selections.append(Selection(key, p.kind, p.name, 0, len(elems)))
+        both = masks["solid"] & masks["void"]
+        if both.any():
+            raise ProblemError(src, "passive", f"solid and void regions overlap in {both.sum()} elements")
+        return masks["solid"], masks["void"]
+
+    @property
+    def fixed_dofs(self) -> np.ndarray:
+        return np.flatnonzero(self._fixed)
+
+    @property
+    def active(self) -> np.ndarray:
+        """Elements the optimiser may change (not in a passive region)."""
+        return ~(self.solid | self.void)
+
+    # ------------------------------------------------------------------- assembly
+    def _build_pattern(self) -> None:
+        """Map element entries (lower local triangle) to reduced lower CSC entries."""
+        n_free = len(self.free)
+        index = np.full(self.grid.n_dofs, -1, dtype=np.int64)
+        index[self.free] = np.arange(n_free)
+        edofs = index[self.grid.element_dofs]  # (ne, nde), -1 where fixed
+        a, b = np.tril_indices(self.ke.shape[0])
+        r, c = edofs[:, a], edofs[:, b]  # (ne, n_pairs)
+        keep = (r >= 0) & (c >= 0)
+        elem = np.broadcast_to(np.arange(len(edofs))[:, None], r.shape)[keep]
+        vals = np.broadcast_to(self.ke[a, b], r.shape)[keep]
+        r, c = r[keep], c[keep]
+        row, col = np.maximum(r, c), np.minimum(r, c)  # lower triangle; k0 is symmetric
+        key = col * n_free + row  # column-major order = CSC order
+        unique, entry = np.unique(key, return_inverse=True)
+        self._indices = (unique % n_free).astype(np.int32)
+        self._indptr = np.searchsorted(unique // n_free, np.arange(n_free + 1)).astype(np.int32)
+        self._scatter = sp.csr_matrix((vals, (entry, elem)), shape=(len(unique), len(edofs)))
+        self._n_free = n_free
+
+    def stiffness(self, moduli: np.ndarray) -> sp.csc_matrix:
+        """Lower triangle of the reduced stiffness for element modulus factors E/E0."""
+        data = self._scatter @ moduli
+        return sp.csc_matrix((data, self._indices, self._indptr), shape=(self._n_free,) * 2)
+
+    def moduli(self, density: np.ndarray) -> np.ndarray:
+        opt = self.problem.optimization
+        e_min = opt.min_stiffness
+        return e_min + density**opt.penalty * (1.0 - e_min)
+
+    def moduli_derivative(self, density: np.ndarray) -> np.ndarray:
+        opt = self.problem.optimization
+        p = opt.penalty
+        return p * density ** (p - 1) * (1.0 - opt.min_stiffness)
+
+    # ---------------------------------------------------------------------- solve
+    def analyze(self, density: np.ndarray) -> Analysis:
+        """Solve every load case for the element densities (flat, C order)."""
+        k = self.stiffness(self.moduli(density))
+        u = np.zeros_like(self.loads)
+        u[self.free] = self.solver.solve(k, self.loads[self.free]).reshape(len(self.free), -1)
+        if not np.all(np.isfinite(u)):
+            raise FloatingPointError("the linear solve returned non-finite displacements")
+        compliances = np.einsum("dc,dc->c", self.loads, u)
+        ue = u[self.grid.element_dofs]  # (ne, nde, nc)
+        energies = np.einsum("enc,nm,emc->ec", ue, self.ke, ue, optimize=True)
+        mag = np.linalg.norm(u.reshape(self.grid.n_nodes, self.dim, -1), axis=1)
+        return Analysis(u, compliances, energies, mag.max(axis=0), self._von_mises(ue))
+
+    def _von_mises(self, ue: np.ndarray) -> np.ndarray:
+        mat = self.problem.material
+        b = centre_strain_displacement(self.dim, self.grid.h)
+        d = elasticity_matrix(self.dim, mat.youngs_modulus, mat.poissons_ratio)
+        stress = np.einsum("sn,enc->ecs", d @ b, ue, optimize=True)
+        return von_mises(stress)
+
+    def assembly_bytes(self) -> int:
+        s = self._scatter
+        return s.data.nbytes + s.indices.nbytes + s.indptr.nbytes + 2 * len(self._indices) * 12

@@ -1,0 +1,73 @@
+"""Regions of a problem → node sets (supports, loads) or element sets (passive).
+
+Nodes are selected by position with a tolerance of half an element, so a face or a
+box edge placed on grid lines picks the nodes on it; elements are selected by their
+centre, without tolerance. A point selects the nearest node (or the element that
+contains it).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from .grid import Grid
+from .problem import Box, Cylinder, Face, Point, Region, Sphere
+
+AXIS_INDEX = {"x": 0, "y": 1, "z": 2}
+
+
+def _inside(region: Region, pts: np.ndarray, tol: float, grid: Grid) -> np.ndarray:
+    dim = grid.dim
+    if isinstance(region, Box):
+        lo, hi = np.array(region.min), np.array(region.max)
+        return np.all((pts >= lo - tol) & (pts <= hi + tol), axis=1)
+    if isinstance(region, Sphere):
+        return np.linalg.norm(pts - np.array(region.center), axis=1) <= region.radius + tol
+    if isinstance(region, Cylinder):
+        rel = pts - np.array(region.center)
+        if dim == 2:  # a disc through the thickness
+            return np.linalg.norm(rel, axis=1) <= region.radius + tol
+        a = AXIS_INDEX[region.axis]
+        radial = np.linalg.norm(np.delete(rel, a, axis=1), axis=1)
+        return (radial <= region.radius + tol) & (np.abs(rel[:, a]) <= region.length / 2 + tol)
+    if isinstance(region, Face):
+        a = AXIS_INDEX[region.face[0]]
+        end = 0.0 if region.face.endswith("min") else grid.size[a]
+        return np.abs(pts[:, a] - end) <= tol
+    raise TypeError(f"not a region: {region!r}")
+
+
+def select_nodes(region: Region, grid: Grid) -> np.ndarray:
+    """Sorted node numbers selected by `region`."""
+    pts = grid.node_coords
+    if isinstance(region, Point):
+        d = np.linalg.norm(pts - np.array(region.point), axis=1)
+        return np.array([int(np.argmin(d))])
+    return np.flatnonzero(_inside(region, pts, 0.5 * grid.h * (1 + 1e-9), grid))
+
+
+def select_elements(region: Region, grid: Grid) -> np.ndarray:
+    """Sorted element numbers whose centre lies in `region` (faces: the boundary layer)."""
+    pts = grid.element_centers
+    if isinstance(region, Point):
+        d = np.linalg.norm(pts - np.array(region.point), axis=1)
+        return np.array([int(np.argmin(d))])
+    # A face selects the layer of elements touching it: centres lie h/2 inside.
+    tol = 0.5 * grid.h * (1 + 1e-9) if isinstance(region, Face) else 1e-9 * grid.h
+    return np.flatnonzero(_inside(region, pts, tol, grid))
+
+
+def outside_domain(region: Region, grid: Grid) -> bool:
+    """True when the region lies wholly outside the domain box."""
+    size = np.array(grid.size)
+    tol = 0.5 * grid.h
+    if isinstance(region, Box):
+        return bool(np.any(np.array(region.max) < -tol) or np.any(np.array(region.min) > size + tol))
+    if isinstance(region, Point):
+        p = np.array(region.point)
+        return bool(np.any(p < -tol) or np.any(p > size + tol))
+    if isinstance(region, (Sphere, Cylinder)):
+        c = np.array(region.center)
+        reach = region.radius + (0 if isinstance(region, Sphere) or grid.dim == 2
+                                 else max(region.radius, region.length / 2))
+        return bool(np.any(c + reach < -tol) or np.any(c - reach > size + tol))
+    return False

@@ -1,0 +1,108 @@
+"""Summary figures of a Result: mass, compliance, stress and printability."""
+from __future__ import annotations
+
+import numpy as np
+
+SOLID = 0.5  # ρ at or above which an element counts as printed material
+
+CAUTION = ("Concept design only. Verify by qualified analysis and physical testing "
+           "under the applicable codes and licensed engineering practice before use.")
+STRESS_NOTE = ("von Mises stress of the solid material at element centres, elements with "
+               "density >= 0.5; peaks at point loads and supports depend on the mesh.")
+
+
+def summarize(result, analysis_only: bool = False) -> dict:
+    problem, model, a = result.problem, result.model, result.analysis
+    rho = result.density.ravel()
+    dom, mat = problem.domain, problem.material
+    active = model.active
+    solid = rho >= SOLID
+    weights = np.array([c.weight for c in problem.load_cases])
+    vm = np.where(solid[:, None], a.von_mises, 0.0)
+    cases = []
+    for i, case in enumerate(problem.load_cases):
+        cases.append({
+            "name": case.name,
+            "weight": case.weight,
+            "compliance_Nmm": float(a.compliances[i]),
+            "max_displacement_mm": float(a.max_displacement[i]),
+            "max_von_mises_MPa": float(vm[:, i].max()) if solid.any() else None,
+        })
+    peak = max((c["max_von_mises_MPa"] or 0.0) for c in cases) if solid.any() else None
+    volume_mm3 = dom.element_volume * float(rho.sum())
+    summary = {
+        "name": problem.name,
+        "description": problem.description,
+        "dimension": problem.dim,
+        "elements": list(dom.shape),
+        "element_count": int(rho.size),
+        "element_size_mm": dom.element_size,
+        "thickness_mm": dom.thickness,
+        "material": {"name": mat.name, "youngs_modulus_MPa": mat.youngs_modulus,
+                     "poissons_ratio": mat.poissons_ratio, "density_kg_m3": mat.density,
+                     "yield_strength_MPa": mat.yield_strength},
+        "volume_fraction": float(rho[active].mean()) if active.any() else None,
+        "volume_fraction_target": None if analysis_only else problem.optimization.volume_fraction,
+        "domain_solid_fraction": float(solid.mean()),
+        "volume_mm3": volume_mm3,
+        "mass_kg": volume_mm3 * 1e-9 * mat.density,
+        "solid_mass_kg": dom.element_volume * float(solid.sum()) * 1e-9 * mat.density,
+        "compliance_Nmm": float(weights @ a.compliances),
+        "load_cases": cases,
+        "max_von_mises_MPa": peak,
+        "stress_note": STRESS_NOTE,
+        "iterations": len(result.history),
+        "converged": bool(result.converged),
+        "stop_reason": result.stop_reason,
+        "runtime_s": round(result.runtime_s, 3),
+        "solver": model.solver.name,
+        "build_direction": problem.build.direction if problem.build else None,
+        "unsupported_fraction": None,
+        "caution": CAUTION,
+    }
+    return summary
+
+
+def factor_bytes_estimate(n_dofs: int, dim: int) -> int:
+    """Rough memory of a sparse Cholesky factor with nested-dissection ordering.
+
+    Fitted to CHOLMOD factors of this project's grids (see DEVELOPERS.md): nnz(L)
+    grows like n log n in 2D and n^(4/3) in 3D; 12 bytes per entry (value + index).
+    """
+    if dim == 2:
+        nnz = 1.9 * n_dofs * np.log2(max(n_dofs, 2))
+    else:
+        nnz = 4.0 * n_dofs ** (4.0 / 3.0)
+    return int(12 * nnz)
+
+
+def model_report(model) -> dict:
+    """What the model holds before any solve: for `topo check`."""
+    problem, grid = model.problem, model.grid
+    loads = model.loads
+    cases = []
+    for i, case in enumerate(problem.load_cases):
+        applied = loads.reshape(grid.n_nodes, grid.dim, -1)[:, :, i].sum(axis=0)
+        on_fixed = loads[model.fixed_dofs, i]
+        cases.append({"name": case.name, "weight": case.weight,
+                      "total_force_N": [float(v) for v in applied],
+                      "force_on_fixed_dofs_N": float(np.abs(on_fixed).sum())})
+    assembly = model.assembly_bytes()
+    factor = factor_bytes_estimate(len(model.free), grid.dim)
+    return {
+        "name": problem.name,
+        "source": problem.source,
+        "dimension": grid.dim,
+        "elements": list(grid.shape),
+        "element_count": grid.n_elements,
+        "element_size_mm": grid.h,
+        "nodes": grid.n_nodes,
+        "dofs": grid.n_dofs,
+        "free_dofs": int(len(model.free)),
+        "design_elements": int(model.active.sum()),
+        "regions": [s.__dict__ for s in model.selections],
+        "load_cases": cases,
+        "material": problem.material.name,
+        "build_direction": problem.build.direction if problem.build else None,
+        "memory_estimate_MB": round((assembly + factor) / 2**20, 1),
+    }
