@@ -70,9 +70,9 @@ def factor_bytes_estimate(n_dofs: int, dim: int) -> int:
     grows like n log n in 2D and n^(4/3) in 3D; 12 bytes per entry (value + index).
     """
     if dim == 2:
-        nnz = 1.9 * n_dofs * np.log2(max(n_dofs, 2))
+        nnz = 6.0 * n_dofs * np.log2(max(n_dofs, 2))
     else:
-        nnz = 4.0 * n_dofs ** (4.0 / 3.0)
+        nnz = 18.0 * n_dofs ** (4.0 / 3.0)
     return int(12 * nnz)
 
 

@@ -1,0 +1,90 @@
+"""The command line end to end on a small problem: files written, exit codes."""
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from topo.cli import main
+
+SMALL = """
+name = "tiny-bracket"
+[domain]
+size = [24.0, 12.0]
+element_size = 1.0
+thickness = 3.0
+[material]
+preset = "316L"
+[optimization]
+volume_fraction = 0.4
+max_iterations = 30
+beta_interval = 5
+[[support]]
+region = { face = "x-min" }
+[[load_case]]
+name = "down"
+  [[load_case.force]]
+  region = { point = [24.0, 6.0] }
+  total = [0.0, -100.0]
+[[load_case]]
+name = "pull"
+  [[load_case.force]]
+  region = { point = [24.0, 6.0] }
+  total = [50.0, 0.0]
+[[passive]]
+kind = "void"
+region = { box = { min = [8.0, 4.0], max = [12.0, 8.0] } }
+"""
+
+SUMMARY_KEYS = {"name", "dimension", "elements", "element_size_mm", "volume_fraction", "mass_kg",
+                "compliance_Nmm", "load_cases", "iterations", "converged", "runtime_s",
+                "build_direction", "unsupported_fraction", "max_von_mises_MPa"}
+
+
+@pytest.fixture
+def small(tmp_path):
+    f = tmp_path / "tiny.toml"
+    f.write_text(SMALL)
+    return f
+
+
+def test_run_writes_every_output(small, tmp_path, capsys):
+    out = tmp_path / "run"
+    assert main(["run", str(small), "--out", str(out), "--set", "optimization.volume_fraction=0.35"]) == 0
+    for name in ["summary.json", "density.npy", "history.csv", "history.png", "design.png"]:
+        assert (out / name).stat().st_size > 0
+    s = json.loads((out / "summary.json").read_text())
+    assert SUMMARY_KEYS <= set(s)
+    assert abs(s["volume_fraction"] - 0.35) < 1e-3
+    assert [c["name"] for c in s["load_cases"]] == ["down", "pull"]
+    assert np.load(out / "density.npy").shape == (24, 12)
+    lines = (out / "history.csv").read_text().splitlines()
+    assert lines[0] == "iteration,objective,volume_fraction,change,beta,seconds"
+    assert len(lines) == s["iterations"] + 1
+    printed = capsys.readouterr().out
+    assert "iter    1" in printed and "Concept design only" in printed
+    assert not list(out.glob(".*.tmp"))
+
+
+def test_check_and_analyze(small, tmp_path, capsys):
+    assert main(["check", str(small)]) == 0
+    text = capsys.readouterr().out
+    assert "24×12 = 288 elements" in text and "total force [0, -100] N" in text
+    out = tmp_path / "an"
+    assert main(["analyze", str(small), "--out", str(out)]) == 0
+    s = json.loads((out / "summary.json").read_text())
+    assert s["load_cases"][0]["compliance_Nmm"] > 0
+    # a given design: the empty design with one solid row is far more compliant
+    design = np.full((24, 12), 1e-3)
+    design[:, 5:7] = 1.0
+    np.save(tmp_path / "d.npy", design)
+    assert main(["analyze", str(small), "--design", str(tmp_path / "d.npy"), "--out", str(out)]) == 0
+    s2 = json.loads((out / "summary.json").read_text())
+    assert s2["load_cases"][0]["compliance_Nmm"] > s["load_cases"][0]["compliance_Nmm"]
+
+
+def test_input_error_exits_2_with_one_clean_line(small, capsys):
+    assert main(["run", str(small), "--set", "optimization.volume_fraction=1.4"]) == 2
+    err = capsys.readouterr().err
+    assert "optimization.volume_fraction" in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1

@@ -1,0 +1,101 @@
+"""The design loop: compliance sensitivities and the published MBB benchmark."""
+import numpy as np
+import pytest
+
+from topo.design import build_chain, compliance_gradient, optimize
+from topo.fem import Model
+from topo.problem import problem_from_dict
+from conftest import beam_problem
+
+
+def mbb(**opt):
+    # Half MBB beam: symmetry (x fixed) on the left edge, roller (y fixed) at the
+    # lower right corner, unit load down at the upper left corner; unit data.
+    return {"name": "mbb", "domain": {"size": [60.0, 20.0], "element_size": 1.0, "thickness": 1.0},
+            "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
+            "optimization": {"volume_fraction": 0.5, "penalty": 3.0, "filter_radius": 2.4,
+                             "projection": False, "max_iterations": 500, "tolerance": 0.01, **opt},
+            "support": [{"region": {"face": "x-min"}, "fix": ["x"]},
+                        {"region": {"point": [60.0, 0.0]}, "fix": ["y"]}],
+            "load_case": [{"force": [{"region": {"point": [0.0, 20.0]}, "total": [0.0, -1.0]}]}]}
+
+
+@pytest.mark.parametrize("dim", [2, 3])
+def test_compliance_sensitivity_matches_finite_differences(dim, rng):
+    d = beam_problem(dim, [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0], 1.0)
+    d["load_case"].append({"name": "side", "weight": 0.7, "force": [
+        {"region": {"point": [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0]},
+         "total": [1.0, 0.5] + ([0.2] if dim == 3 else [])}]})
+    problem = problem_from_dict(d)
+    model = Model(problem)
+    chain, projection = build_chain(problem, model)
+    projection.beta = 3.0
+    weights = np.array([1.0, 0.7])
+    x = rng.uniform(0.2, 0.9, model.grid.n_elements)
+
+    def objective(xx):
+        rho = chain.forward(xx)
+        return compliance_gradient(model, rho, model.analyze(rho), weights)
+
+    c, dc_drho = objective(x)
+    grad = chain.backward(x, dc_drho)
+    eps = 1e-6
+    for _ in range(3):
+        v = rng.normal(size=x.size)
+        fd = (objective(x + eps * v)[0] - objective(x - eps * v)[0]) / (2 * eps)
+        assert np.isclose(grad @ v, fd, rtol=1e-5)
+
+
+def test_mbb_half_beam_matches_published_compliance():
+    # Andreassen, Clausen, Schevenels, Lazarov & Sigmund 2011, "Efficient topology
+    # optimization in MATLAB using 88 lines of code", Struct. Multidisc. Optim.
+    # 43:1-16: top88(60, 20, 0.5, 3, 2.4, 2) (density filter) ends at c = 233.71
+    # (recalled from memory). Our OC adapts its move limits, so the path differs
+    # slightly; the issue asks for 5 %.
+    r = optimize(problem_from_dict(mbb()))
+    assert r.converged
+    assert abs(r.summary["compliance_Nmm"] / 233.71 - 1) < 0.05
+    assert abs(r.summary["volume_fraction"] - 0.5) < 1e-3
+
+
+def test_mbb_classical_fixed_move_oc_reproduces_88_line_result():
+    # The same example with the classical fixed move limit: the update is then the
+    # one of the 88-line paper step for step (recalled from memory: c = 233.71).
+    from topo import design
+    from topo.optimizers import OptimalityCriteria
+
+    class Fixed(OptimalityCriteria):
+        def __init__(self, active, move=0.2):
+            super().__init__(active, move, adaptive=False)
+
+    original = design.OptimalityCriteria
+    design.OptimalityCriteria = Fixed
+    try:
+        r = optimize(problem_from_dict(mbb()))
+    finally:
+        design.OptimalityCriteria = original
+    assert abs(r.summary["compliance_Nmm"] / 233.71 - 1) < 0.005
+
+
+def test_projection_run_meets_volume_and_is_nearly_black_and_white():
+    d = mbb(projection=True, beta_interval=20, max_iterations=300)
+    r = optimize(problem_from_dict(d))
+    rho = r.density
+    assert abs(rho.mean() - 0.5) < 1e-3
+    grey = np.mean((rho > 0.05) & (rho < 0.95))
+    assert grey < 0.05
+    assert r.history[-1]["beta"] == 32.0
+
+
+def test_passive_regions_are_held_and_outside_the_budget():
+    d = mbb()
+    d["passive"] = [{"kind": "solid", "region": {"box": {"min": [50, 0], "max": [60, 20]}}},
+                    {"kind": "void", "region": {"box": {"min": [20, 8], "max": [30, 14]}}}]
+    d["optimization"]["max_iterations"] = 40
+    r = optimize(problem_from_dict(d))
+    rho = r.density.ravel()
+    model = r.model
+    assert np.all(rho[model.solid] == 1.0) and np.all(rho[model.void] == 0.0)
+    assert abs(rho[model.active].mean() - 0.5) < 1e-3
+    mass = rho.sum() * 1.0 * 1e-9 * 1.0
+    assert np.isclose(r.summary["mass_kg"], mass)
