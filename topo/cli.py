@@ -51,6 +51,16 @@ def cmd_run(args) -> int:
     print(f"  compliance {s['compliance_Nmm']:.6g} N·mm, volume fraction {s['volume_fraction']:.4f}, "
           f"mass {s['mass_kg']:.4g} kg")
     _print_cases(s)
+    if s["build_direction"]:
+        print(f"  unsupported fraction {s['unsupported_fraction']:.4f} building {s['build_direction']}"
+              f" (overhang filter {'on' if s['overhang_filter'] else 'off'})")
+    for r in s["passive_regions"]:
+        if r["kind"] == "solid" and r["solid_share"] < 0.999:
+            print(f"  note: only {100 * r['solid_share']:.1f} % of solid region {r['name']} is printed "
+                  "solid (the rest is not self-supporting)")
+    best = min(s["unsupported_by_direction"], key=s["unsupported_by_direction"].get)
+    print(f"  best build direction for this design: {best} "
+          f"(unsupported fraction {s['unsupported_by_direction'][best]:.4f})")
     print(f"outputs in {out}/")
     print(CAUTION)
     return 0
@@ -75,6 +85,10 @@ def cmd_check(args) -> int:
         extra = (f"; {c['force_on_fixed_dofs_N']:.6g} N lands on fixed dofs"
                  if c["force_on_fixed_dofs_N"] > 0 else "")
         print(f"  load case {c['name']} (weight {c['weight']}): total force [{tot}] N{extra}")
+    for r in rep["unsupportable_solid_regions"]:
+        print(f"  warning: {r['key']} ({r['name']}): {r['unsupportable_elements']} of {r['elements']} "
+              f"elements cannot be supported from the build plate ({rep['build_direction']}); "
+              "void regions block every 45° path")
     print(f"  estimated memory {rep['memory_estimate_MB']} MB")
     return 0
 

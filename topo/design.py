@@ -18,7 +18,7 @@ import numpy as np
 from .fem import Analysis, Model
 from .optimizers import OptimalityCriteria
 from .problem import Problem
-from .transforms import Chain, DensityFilter, HeavisideProjection, PassiveOverride
+from .transforms import Chain, DensityFilter, HeavisideProjection, OverhangFilter, PassiveOverride
 
 
 @dataclass
@@ -58,6 +58,9 @@ def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProject
         projection = HeavisideProjection(1.0, opt.projection_threshold)
         steps.append(projection)
     steps.append(PassiveOverride(model.solid, model.void))
+    # Last, so that passive solids must be supported like any other element.
+    if problem.build is not None and problem.build.overhang_filter:
+        steps.append(OverhangFilter(model.grid.shape, problem.build.direction))
     return Chain(steps), projection
 
 
@@ -86,8 +89,9 @@ def optimize(problem: Problem, callback: Callable[[dict], None] | None = None) -
     dv_drho = active / n_active
 
     update = OptimalityCriteria(active, opt.move_limit)
-    # A projection makes the volume nonlinear in x: meet it exactly at every step.
-    exact_volume = (lambda xc: float(dv_drho @ chain.forward(xc))) if projection else None
+    # A projection or an overhang layer makes the volume nonlinear in x: meet it
+    # exactly at every step.
+    exact_volume = None if chain.linear else (lambda xc: float(dv_drho @ chain.forward(xc)))
     x = np.where(model.solid, 1.0, 0.0)
     x[active] = opt.volume_fraction
     history: list[dict] = []

@@ -113,6 +113,7 @@ class Optimization:
 class Build:
     direction: str
     overhang_angle: float = 45.0
+    overhang_filter: bool = True  # false: report printability, do not enforce it
 
 
 @dataclass(frozen=True)
@@ -243,7 +244,7 @@ TOP_KEYS = ("name", "description", "domain", "material", "optimization", "build"
 DOMAIN_KEYS = ("size", "element_size", "thickness")
 MATERIAL_KEYS = ("preset", "name", "youngs_modulus", "poissons_ratio", "density", "yield_strength")
 OPT_KEYS = tuple(Optimization.__dataclass_fields__)
-BUILD_KEYS = ("direction", "overhang_angle")
+BUILD_KEYS = ("direction", "overhang_angle", "overhang_filter")
 SUPPORT_KEYS = ("name", "region", "fix")
 LOAD_KEYS = ("name", "weight", "force")
 FORCE_KEYS = ("region", "total")
@@ -449,7 +450,10 @@ class _Parser:
         if angle != 45.0:
             self.fail("build.overhang_angle", f"only 45 degrees is supported (the self-supporting limit "
                       f"on a square/cubic grid), got {angle}")
-        return Build(direction, angle)
+        enforce = d.get("overhang_filter", True)
+        if not isinstance(enforce, bool):
+            self.fail("build.overhang_filter", f"expected true or false, got {enforce!r}")
+        return Build(direction, angle, enforce)
 
     def region(self, value, key: str, dim: int) -> Region:
         if not isinstance(value, dict) or len(value) != 1:

@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from .printability import printable_envelope, unsupported_by_direction
+
 SOLID = 0.5  # ρ at or above which an element counts as printed material
 
 CAUTION = ("Concept design only. Verify by qualified analysis and physical testing "
@@ -30,6 +32,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         })
     peak = max((c["max_von_mises_MPa"] or 0.0) for c in cases) if solid.any() else None
     volume_mm3 = dom.element_volume * float(rho.sum())
+    by_direction = unsupported_by_direction(result.density)
     summary = {
         "name": problem.name,
         "description": problem.description,
@@ -57,10 +60,26 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "runtime_s": round(result.runtime_s, 3),
         "solver": model.solver.name,
         "build_direction": problem.build.direction if problem.build else None,
-        "unsupported_fraction": None,
+        "passive_regions": _passive_report(result, solid),
+        "overhang_filter": bool(problem.build and problem.build.overhang_filter),
+        "unsupported_fraction": by_direction[problem.build.direction] if problem.build else None,
+        "unsupported_by_direction": by_direction,
         "caution": CAUTION,
     }
     return summary
+
+
+def _passive_report(result, solid: np.ndarray) -> list[dict]:
+    """How much of each passive region the final design keeps solid. The overhang
+    layer acts on passive solids too, so an unsupported part of one is not printed."""
+    from .regions import select_elements
+
+    out = []
+    for i, p in enumerate(result.problem.passives):
+        elems = select_elements(p.region, result.model.grid)
+        out.append({"key": f"passive[{i}]", "name": p.name, "kind": p.kind, "elements": int(len(elems)),
+                    "solid_share": float(solid[elems].mean())})
+    return out
 
 
 def factor_bytes_estimate(n_dofs: int, dim: int) -> int:
@@ -74,6 +93,27 @@ def factor_bytes_estimate(n_dofs: int, dim: int) -> int:
     else:
         nnz = 18.0 * n_dofs ** (4.0 / 3.0)
     return int(12 * nnz)
+
+
+def _unsupportable(model) -> list[dict]:
+    """Passive solid regions some of whose elements no self-supporting design can
+    reach from the build plate (void regions in the way)."""
+    problem = model.problem
+    if problem.build is None:
+        return []
+    from .regions import select_elements
+
+    ok = printable_envelope(model.void.reshape(model.grid.shape), problem.build.direction).ravel()
+    out = []
+    for i, p in enumerate(problem.passives):
+        if p.kind != "solid":
+            continue
+        elems = select_elements(p.region, model.grid)
+        bad = int((~ok[elems]).sum())
+        if bad:
+            out.append({"key": f"passive[{i}]", "name": p.name, "unsupportable_elements": bad,
+                        "elements": int(len(elems))})
+    return out
 
 
 def model_report(model) -> dict:
@@ -104,5 +144,6 @@ def model_report(model) -> dict:
         "load_cases": cases,
         "material": problem.material.name,
         "build_direction": problem.build.direction if problem.build else None,
+        "unsupportable_solid_regions": _unsupportable(model),
         "memory_estimate_MB": round((assembly + factor) / 2**20, 1),
     }

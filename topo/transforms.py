@@ -12,6 +12,9 @@ from scipy import ndimage
 
 
 class Transform:
+    # True when forward is affine in x: a volume constraint through it stays linear.
+    linear = False
+
     def forward(self, x: np.ndarray) -> np.ndarray:
         raise NotImplementedError
 
@@ -27,6 +30,8 @@ class DensityFilter(Transform):
     the cost O(n · kernel). The kernel is symmetric, so the transpose needed by
     `backward` is the same correlation.
     """
+
+    linear = True
 
     def __init__(self, shape: tuple[int, ...], radius: float):
         """`radius` in element widths (radius in mm / element size)."""
@@ -74,6 +79,8 @@ class HeavisideProjection(Transform):
 class PassiveOverride(Transform):
     """Holds passive solid regions at 1 and void regions at 0 in the physical field."""
 
+    linear = True
+
     def __init__(self, solid: np.ndarray, void: np.ndarray):
         self.solid, self.void = solid, void
 
@@ -94,6 +101,7 @@ class Chain(Transform):
 
     def __init__(self, transforms: list[Transform]):
         self.transforms = list(transforms)
+        self.linear = all(t.linear for t in self.transforms)
 
     def forward(self, x):
         for t in self.transforms:
@@ -121,3 +129,92 @@ class Chain(Transform):
                 g = t.backward(xin, g)
             out.append(g)
         return out
+
+
+class OverhangFilter(Transform):
+    """Layer-by-layer additive-manufacturing filter (Langelaar, Additive
+    Manufacturing 12 (2016) 60-70 for 3D; Struct. Multidisc. Optim. 55 (2017)
+    871-883 for 2D).
+
+    In the build frame (layer 0 on the plate, see printability.py) the printed
+    density of layer i is
+        ξ_i = k · smin(x_i, smax(ξ_{i-1} over each support region)),
+    with ξ_0 = x_0, where
+        smax(ξ_1..ξ_N) = (Σ ξ_j^P)^(1/Q),  Q = P + ln N / ln ξ0   (exact when all ξ_j = ξ0)
+        smin(a, b)     = ½ (a + b − √((a − b)² + ε) + √ε).
+    P = 40, ε = 1e-4, ξ0 = 0.5 are the values of the papers (as recalled).
+
+    Effect of the smoothing: smax exceeds the true maximum for inputs above ξ0 (by
+    N^(1/Q) − 1 ≈ 2.9 % in 2D, 4.3 % in 3D when all are 1) and falls below it under
+    ξ0; smin exceeds the true minimum by at most √ε/2 = 0.005. The factor
+    k = 1/(1 + √ε) (our addition) removes that excess at the solid threshold 0.5,
+    so that an element at ρ ≥ 0.5 always has a support element at ρ ≥ 0.5: a
+    thresholded output always passes the printability check. A fully solid,
+    self-supporting field comes out at about 0.994 (2D) instead of 1.
+
+    Sensitivities run the layer recursion backwards (adjoint), linear in the
+    number of elements.
+    """
+
+    def __init__(self, shape: tuple[int, ...], direction: str, p: float = 40.0,
+                 eps: float = 1e-4, xi0: float = 0.5):
+        from .printability import support_offsets
+
+        self.shape, self.direction = tuple(shape), direction
+        self.p, self.eps = p, eps
+        self.offsets = support_offsets(len(shape) - 1)
+        n = len(self.offsets)
+        self.q = p + np.log(n) / np.log(xi0)
+        self.k = 1.0 / (1.0 + np.sqrt(eps))
+
+    def _smin(self, a, b):
+        d = a - b
+        root = np.sqrt(d * d + self.eps)
+        value = 0.5 * (a + b - root + np.sqrt(self.eps))
+        return value, 0.5 * (1 - d / root), 0.5 * (1 + d / root)
+
+    def _layers(self, x):
+        """Forward pass in the build frame, keeping what backward needs."""
+        from .printability import to_build_frame, window_sum
+
+        blue = to_build_frame(x.reshape(self.shape), self.direction)
+        printed = np.empty_like(blue)
+        printed[0] = blue[0]
+        sums, supports = [None], [None]
+        for i in range(1, len(blue)):
+            total = window_sum(printed[i - 1] ** self.p)
+            support = total ** (1.0 / self.q)
+            printed[i] = self.k * self._smin(blue[i], support)[0]
+            sums.append(total)
+            supports.append(support)
+        return blue, printed, sums, supports
+
+    def forward(self, x):
+        from .printability import from_build_frame
+
+        printed = self._layers(x)[1]
+        return np.ascontiguousarray(from_build_frame(printed, self.direction)).ravel()
+
+    def backward(self, x, dfdy):
+        from .printability import from_build_frame, shift, to_build_frame
+
+        blue, printed, sums, supports = self._layers(x)
+        g = to_build_frame(dfdy.reshape(self.shape), self.direction).copy()
+        dx = np.empty_like(blue)
+        a = (self.p - 1) / self.p
+        b = 1 / self.q - 1 / self.p  # > 0 because Q < P
+        for i in range(len(blue) - 1, 0, -1):
+            _, d_blue, d_support = self._smin(blue[i], supports[i])
+            gi = self.k * g[i]
+            dx[i] = gi * d_blue
+            # d smax_m / d ξ_j = (P/Q) · (ξ_j^P / Σ_m)^((P−1)/P) · Σ_m^(1/Q − 1/P):
+            # written so that no factor overflows when the window sum Σ_m underflows.
+            total = sums[i]
+            safe = np.where(total > 0, total, 1.0)
+            weight = np.where(total > 0, gi * d_support * (self.p / self.q) * safe**b, 0.0)
+            powered = printed[i - 1] ** self.p
+            for o in self.offsets:
+                ratio = np.minimum(shift(powered, o, +1) / safe, 1.0)  # ξ_{m+o}^P / Σ_m
+                g[i - 1] += shift(weight * ratio**a, o, -1)  # onto element j = m + o
+        dx[0] = g[0]
+        return np.ascontiguousarray(from_build_frame(dx, self.direction)).ravel()
