@@ -8,8 +8,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import analyze, check, export, load_problem, optimize
+from . import analyze, check, export, load_problem, load_run, optimize
 from .problem import ProblemError, parse_override
+from .export import MESH_FORMATS
 from .report import CAUTION
 
 
@@ -44,7 +45,7 @@ def cmd_run(args) -> int:
           f"of {problem.domain.element_size} mm, {problem.material.name}", flush=True)
     result = optimize(problem, callback=None if args.quiet else _progress)
     out = _out_dir(args, problem)
-    export(result, out)
+    export(result, out, iso=args.iso, smooth=args.smooth, mesh_format=args.mesh_format)
     s = result.summary
     print(f"{'converged' if s['converged'] else 'stopped'} after {s['iterations']} iterations "
           f"in {s['runtime_s']:.1f} s (solver {s['solver']}): {s['stop_reason']}")
@@ -61,8 +62,26 @@ def cmd_run(args) -> int:
     best = min(s["unsupported_by_direction"], key=s["unsupported_by_direction"].get)
     print(f"  best build direction for this design: {best} "
           f"(unsupported fraction {s['unsupported_by_direction'][best]:.4f})")
+    _print_mesh(s["mesh"], args.mesh_format)
     print(f"outputs in {out}/")
     print(CAUTION)
+    return 0
+
+
+def _print_mesh(m: dict, fmt: str) -> None:
+    down = m["downfacing_overhang_fraction"]
+    print(f"  mesh design.{fmt}: {m['volume_mm3']:.6g} mm³, {m['area_mm2']:.6g} mm², "
+          f"{'watertight' if m['watertight'] else 'NOT watertight'}, {m['pieces']} piece(s), "
+          f"{m['debris_pieces_removed']} debris piece(s) removed"
+          + (f", down-facing overhang {100 * down:.2f} % of the area" if down is not None else ""))
+
+
+def cmd_export(args) -> int:
+    result = load_run(args.run_dir)
+    export(result, args.run_dir, only=["fields.vtu", "summary.json"], iso=args.iso,
+           smooth=args.smooth, mesh_format=args.mesh_format)
+    _print_mesh(result.summary["mesh"], args.mesh_format)
+    print(f"re-exported design.{args.mesh_format}, fields.vtu and summary.json in {args.run_dir}/")
     return 0
 
 
@@ -98,7 +117,7 @@ def cmd_analyze(args) -> int:
     density = np.load(args.design) if args.design else None
     result = analyze(problem, density)
     out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-analysis"
-    export(result, out, only=["problem.json", "summary.json"])
+    export(result, out, only=["problem.json", "summary.json"], mesh=False)
     s = result.summary
     print(f"{problem.name}: analysis of {'the design ' + args.design if args.design else 'the full domain'}")
     print(f"  compliance {s['compliance_Nmm']:.6g} N·mm, mass {s['mass_kg']:.4g} kg")
@@ -121,6 +140,7 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("--out", help="output folder (default outputs/NAME)")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
+    mesh_options(p)
     p.set_defaults(func=cmd_run)
     p = sub.add_parser("check", help="build the model and print it, without solving")
     common(p)
@@ -131,7 +151,19 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--design", help="density.npy of a design (default: the full domain)")
     p.add_argument("--out", help="output folder (default outputs/NAME-analysis)")
     p.set_defaults(func=cmd_analyze)
+    p = sub.add_parser("export", help="re-export the mesh and fields of a finished run")
+    p.add_argument("run_dir", help="a run folder written by `topo run`")
+    mesh_options(p, "--format")
+    p.set_defaults(func=cmd_export)
     return ap
+
+
+def mesh_options(p, format_flag: str = "--mesh-format") -> None:
+    p.add_argument("--iso", type=float, default=0.5, help="density of the surface (default 0.5)")
+    p.add_argument("--smooth", type=int, default=0, metavar="N",
+                   help="Taubin smoothing passes on the mesh (default 0)")
+    p.add_argument(format_flag, dest="mesh_format", choices=MESH_FORMATS, default="stl",
+                   help="mesh file format (default stl)")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -139,6 +171,9 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return args.func(args)
     except ProblemError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except FileNotFoundError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
 

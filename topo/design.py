@@ -162,3 +162,23 @@ def check(problem: Problem) -> dict:
     from .report import model_report
 
     return model_report(Model(problem))
+
+
+def load_run(run_dir) -> Result:
+    """A finished run folder (problem.json, density.npy, summary.json) as a Result,
+    with a fresh analysis of its density, for re-export without re-optimising."""
+    import json
+    from pathlib import Path
+
+    from .problem import problem_from_dict
+
+    run = Path(run_dir)
+    for name in ("problem.json", "density.npy"):
+        if not (run / name).exists():
+            raise FileNotFoundError(f"{run}: no {name}; is this a topo run folder?")
+    raw = json.loads((run / "problem.json").read_text())
+    problem = problem_from_dict(raw, source=str(run / "problem.json"))
+    result = analyze(problem, np.load(run / "density.npy"))
+    if (run / "summary.json").exists():
+        result.summary = json.loads((run / "summary.json").read_text())
+    return result

@@ -20,7 +20,12 @@ import matplotlib
 matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
+from . import mesh as meshing  # noqa: E402
 from .regions import select_nodes  # noqa: E402
+
+MESH_FORMATS = ("stl", "obj", "ply")
+_UMASK = os.umask(0)
+os.umask(_UMASK)
 
 
 def atomic_write(path: Path, data: bytes) -> None:
@@ -31,6 +36,7 @@ def atomic_write(path: Path, data: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; give the usual mode
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -135,6 +141,84 @@ def write_summary(result, path: Path) -> None:
     atomic_write(path, (json.dumps(result.summary, indent=2) + "\n").encode())
 
 
+def design_mesh(result, iso: float = 0.5, smooth: int = 0,
+                min_piece_fraction: float = 0.01) -> tuple[meshing.TriMesh, dict]:
+    """The printable surface of a Result and its figures for summary.json."""
+    problem, model = result.problem, result.model
+    rho = np.maximum(result.density, model.solid.reshape(result.density.shape))  # passive solids in
+    raw = meshing.isosurface(rho, problem.domain.element_size, iso, problem.domain.thickness)
+    mesh, dropped = meshing.remove_debris(raw, min_piece_fraction)
+    size = tuple(problem.domain.size) + ((problem.domain.thickness,) if problem.dim == 2 else ())
+    if smooth > 0:
+        mesh = meshing.taubin_smooth(mesh, smooth, pinned=meshing.boundary_pins(mesh, size))
+    area = mesh.area
+    info = {"iso": iso, "smoothing_passes": smooth, "volume_mm3": mesh.volume, "area_mm2": area,
+            "watertight": mesh.watertight, "pieces": int(len(np.unique(mesh.pieces()))) if len(mesh.faces) else 0,
+            "debris_pieces_removed": dropped, "vertices": int(len(mesh.vertices)),
+            "faces": int(len(mesh.faces)), "downfacing_overhang_area_mm2": None,
+            "downfacing_overhang_fraction": None}
+    if problem.build is not None:
+        d = problem.build.direction
+        axis = "xyz".index(d[1])
+        plate = 0.0 if d[0] == "+" else size[axis]
+        down = meshing.downfacing_area(mesh, d, plate, problem.build.overhang_angle)
+        info["downfacing_overhang_area_mm2"] = down
+        info["downfacing_overhang_fraction"] = down / area if area > 0 else None
+    return mesh, info
+
+
+def write_mesh(mesh: meshing.TriMesh, path: Path, fmt: str = "stl") -> None:
+    import meshio
+
+    if fmt not in MESH_FORMATS:
+        raise ValueError(f"unknown mesh format {fmt!r}; choose one of {', '.join(MESH_FORMATS)}")
+    m = meshio.Mesh(mesh.vertices, [("triangle", mesh.faces.astype(np.int32))])
+    tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
+    try:
+        if fmt == "stl":
+            meshio.write(tmp, m, file_format="stl", binary=True)
+        elif fmt == "ply":
+            meshio.write(tmp, m, file_format="ply", binary=True)
+        else:
+            meshio.write(tmp, m, file_format="obj")
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
+def _safe(name: str) -> str:
+    return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
+
+
+def write_fields(result, path: Path) -> None:
+    """Density, displacement per load case and von Mises stress on the grid (VTU)."""
+    import meshio
+
+    model, a = result.model, result.analysis
+    grid = model.grid
+    pts = grid.node_coords
+    if grid.dim == 2:
+        pts = np.column_stack([pts, np.zeros(len(pts))])
+    cell_type = "quad" if grid.dim == 2 else "hexahedron"  # our corner order is VTK's
+    point_data, cell_data = {}, {"density": [result.density.ravel()]}
+    for i, case in enumerate(result.problem.load_cases):
+        u = a.displacements[:, i].reshape(grid.n_nodes, grid.dim)
+        if grid.dim == 2:
+            u = np.column_stack([u, np.zeros(len(u))])
+        point_data[f"displacement_{_safe(case.name)}"] = u
+        cell_data[f"von_mises_{_safe(case.name)}"] = [a.von_mises[:, i]]
+    cell_data["von_mises_max"] = [a.von_mises.max(axis=1)]
+    m = meshio.Mesh(pts, [(cell_type, grid.element_nodes)], point_data=point_data, cell_data=cell_data)
+    tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
+    try:
+        meshio.write(tmp, m, file_format="vtu")
+        os.replace(tmp, path)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
+
+
 # Order matters: summary.json last marks a complete folder.
 EXPORTERS: dict[str, Callable] = {
     "problem.json": write_problem,
@@ -142,16 +226,25 @@ EXPORTERS: dict[str, Callable] = {
     "history.csv": write_history_csv,
     "history.png": write_history_png,
     "design.png": write_design_png,
+    "fields.vtu": write_fields,
     "summary.json": write_summary,
 }
 
 
-def export(result, out_dir: str | Path, only: list[str] | None = None) -> list[Path]:
-    """Write every output file (or those named in `only`) into `out_dir`."""
+def export(result, out_dir: str | Path, only: list[str] | None = None, iso: float = 0.5,
+           smooth: int = 0, mesh_format: str = "stl", mesh: bool = True) -> list[Path]:
+    """Write every output file (or those named in `only`) into `out_dir`, and the
+    design mesh (design.stl, .obj or .ply) unless `mesh` is false."""
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     names = [n for n in EXPORTERS if only is None or n in only]
     written = []
+    if mesh:
+        surface, info = design_mesh(result, iso, smooth)
+        result.summary["mesh"] = info
+        target = out / f"design.{mesh_format}"
+        write_mesh(surface, target, mesh_format)
+        written.append(target)
     for name in names:
         if name in ("history.csv", "history.png") and not result.history:
             continue
