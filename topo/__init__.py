@@ -6,10 +6,11 @@ the applicable codes and licensed engineering practice.
 >>> import topo
 >>> p = topo.load_problem  # load_problem(path, overrides) → Problem
 """
+from .bench import run_benchmarks
 from .design import Result, analyze, check, load_run, optimize
 from .export import export
 from .problem import Problem, ProblemError, load_problem, problem_from_dict
 
 __all__ = ["Problem", "ProblemError", "Result", "analyze", "check", "export", "load_problem", "load_run",
-           "optimize", "problem_from_dict"]
+           "optimize", "problem_from_dict", "run_benchmarks"]
 __version__ = "0.1.0"

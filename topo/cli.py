@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import analyze, check, export, load_problem, load_run, optimize
+from . import analyze, check, export, load_problem, load_run, optimize, run_benchmarks
 from .problem import ProblemError, parse_override
 from .export import MESH_FORMATS
 from .report import CAUTION
@@ -126,6 +126,15 @@ def cmd_analyze(args) -> int:
     return 0
 
 
+def cmd_bench(args) -> int:
+    report = run_benchmarks(quick=args.quick, only=args.case)
+    if args.out:
+        Path(args.out).parent.mkdir(parents=True, exist_ok=True)
+        Path(args.out).write_text(json.dumps(report, indent=2) + "\n")
+        print(f"results in {args.out}")
+    return 0 if all("error" not in c for c in report["cases"].values()) else 1
+
+
 def build_parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(prog="topo", description="Topology optimisation of metal "
                                  "brackets for laser powder-bed fusion.", epilog=CAUTION)
@@ -151,6 +160,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--design", help="density.npy of a design (default: the full domain)")
     p.add_argument("--out", help="output folder (default outputs/NAME-analysis)")
     p.set_defaults(func=cmd_analyze)
+    p = sub.add_parser("bench", help="benchmark the standard cases (per-phase times, ratios)")
+    p.add_argument("--quick", action="store_true", help="small cases only, for small machines")
+    p.add_argument("--case", action="append", help="run only this case (repeatable)")
+    p.add_argument("--out", default="outputs/bench.json", help="JSON results (default outputs/bench.json)")
+    p.set_defaults(func=cmd_bench)
     p = sub.add_parser("export", help="re-export the mesh and fields of a finished run")
     p.add_argument("run_dir", help="a run folder written by `topo run`")
     mesh_options(p, "--format")

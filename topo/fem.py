@@ -8,6 +8,7 @@ Optim. 33:401) gives E(ρ) = E0·(e_min + ρ^p (1 − e_min)).
 """
 from __future__ import annotations
 
+import time
 from dataclasses import dataclass
 
 import numpy as np
@@ -20,6 +21,13 @@ from .regions import outside_domain, select_elements, select_nodes
 from .solvers import make_solver
 
 AXIS_INDEX = {"x": 0, "y": 1, "z": 2}
+
+
+def _tick(timer: dict | None, phase: str, since: float) -> float:
+    now = time.perf_counter()
+    if timer is not None:
+        timer[phase] = timer.get(phase, 0.0) + now - since
+    return now
 
 
 @dataclass(frozen=True)
@@ -58,8 +66,8 @@ class Model:
         self.loads = self._loads()
         self.solid, self.void = self._passives()
         self.free = np.flatnonzero(~self._fixed)
-        self._build_pattern()
-        self.solver = make_solver(problem.optimization.solver)
+        self.solver = make_solver(problem.optimization.solver, grid.shape, self.free)
+        self._build_pattern(full=self.solver.full_matrix)
 
     # ------------------------------------------------------------------ problem → sets
     def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
@@ -121,30 +129,41 @@ class Model:
         return ~(self.solid | self.void)
 
     # ------------------------------------------------------------------- assembly
-    def _build_pattern(self) -> None:
-        """Map element entries (lower local triangle) to reduced lower CSC entries."""
+    def _build_pattern(self, full: bool = False) -> None:
+        """Map element matrix entries to the entries of the reduced matrix: its lower
+        triangle in CSC order (for CHOLMOD) or, with `full`, all of it in CSR order.
+        Entries that are zero in k0 (no coupling in any element) are left out."""
         n_free = len(self.free)
         index = np.full(self.grid.n_dofs, -1, dtype=np.int64)
         index[self.free] = np.arange(n_free)
         edofs = index[self.grid.element_dofs]  # (ne, nde), -1 where fixed
-        a, b = np.tril_indices(self.ke.shape[0])
+        nde = self.ke.shape[0]
+        a, b = np.indices((nde, nde)).reshape(2, -1) if full else np.tril_indices(nde)
+        nonzero = np.abs(self.ke[a, b]) > 1e-12 * np.abs(self.ke).max()
+        a, b = a[nonzero], b[nonzero]
         r, c = edofs[:, a], edofs[:, b]  # (ne, n_pairs)
         keep = (r >= 0) & (c >= 0)
-        elem = np.broadcast_to(np.arange(len(edofs))[:, None], r.shape)[keep]
+        elem = np.broadcast_to(np.arange(len(edofs), dtype=np.int32)[:, None], r.shape)[keep]
         vals = np.broadcast_to(self.ke[a, b], r.shape)[keep]
         r, c = r[keep], c[keep]
-        row, col = np.maximum(r, c), np.minimum(r, c)  # lower triangle; k0 is symmetric
-        key = col * n_free + row  # column-major order = CSC order
-        unique, entry = np.unique(key, return_inverse=True)
+        if full:
+            major, minor = r, c  # CSR: row-major
+        else:
+            major, minor = np.minimum(r, c), np.maximum(r, c)  # lower triangle, CSC: column-major
+        del r, c
+        unique, entry = np.unique(major * n_free + minor, return_inverse=True)
         self._indices = (unique % n_free).astype(np.int32)
         self._indptr = np.searchsorted(unique // n_free, np.arange(n_free + 1)).astype(np.int32)
-        self._scatter = sp.csr_matrix((vals, (entry, elem)), shape=(len(unique), len(edofs)))
+        self._scatter = sp.csr_matrix((vals, (entry.astype(np.int64), elem)),
+                                      shape=(len(unique), len(edofs)))
         self._n_free = n_free
+        self._format = sp.csr_matrix if full else sp.csc_matrix
 
-    def stiffness(self, moduli: np.ndarray) -> sp.csc_matrix:
-        """Lower triangle of the reduced stiffness for element modulus factors E/E0."""
+    def stiffness(self, moduli: np.ndarray) -> sp.spmatrix:
+        """Reduced stiffness for element modulus factors E/E0: the lower triangle
+        (CSC) for the direct solver, the full matrix (CSR) for the iterative one."""
         data = self._scatter @ moduli
-        return sp.csc_matrix((data, self._indices, self._indptr), shape=(self._n_free,) * 2)
+        return self._format((data, self._indices, self._indptr), shape=(self._n_free,) * 2)
 
     def moduli(self, density: np.ndarray) -> np.ndarray:
         opt = self.problem.optimization
@@ -157,18 +176,28 @@ class Model:
         return p * density ** (p - 1) * (1.0 - opt.min_stiffness)
 
     # ---------------------------------------------------------------------- solve
-    def analyze(self, density: np.ndarray) -> Analysis:
-        """Solve every load case for the element densities (flat, C order)."""
+    def analyze(self, density: np.ndarray, stresses: bool = True,
+                timer: dict | None = None) -> Analysis:
+        """Solve every load case for the element densities (flat, C order).
+        `stresses=False` skips the von Mises field (not needed inside the loop);
+        `timer` accumulates seconds under 'assembly', 'solve' and 'sensitivities'."""
+        clock = time.perf_counter()
         k = self.stiffness(self.moduli(density))
+        clock = _tick(timer, "assembly", clock)
         u = np.zeros_like(self.loads)
         u[self.free] = self.solver.solve(k, self.loads[self.free]).reshape(len(self.free), -1)
         if not np.all(np.isfinite(u)):
             raise FloatingPointError("the linear solve returned non-finite displacements")
+        clock = _tick(timer, "solve", clock)
         compliances = np.einsum("dc,dc->c", self.loads, u)
         ue = u[self.grid.element_dofs]  # (ne, nde, nc)
-        energies = np.einsum("enc,nm,emc->ec", ue, self.ke, ue, optimize=True)
+        # u_eᵀ k0 u_e for every element and case: one matrix product over all elements
+        flat = ue.transpose(0, 2, 1).reshape(-1, ue.shape[1])
+        energies = np.einsum("ij,ij->i", flat @ self.ke, flat).reshape(len(ue), -1)
         mag = np.linalg.norm(u.reshape(self.grid.n_nodes, self.dim, -1), axis=1)
-        return Analysis(u, compliances, energies, mag.max(axis=0), self._von_mises(ue))
+        vm = self._von_mises(ue) if stresses else np.zeros_like(energies)
+        _tick(timer, "sensitivities", clock)
+        return Analysis(u, compliances, energies, mag.max(axis=0), vm)
 
     def _von_mises(self, ue: np.ndarray) -> np.ndarray:
         mat = self.problem.material

@@ -435,7 +435,7 @@ class _Parser:
         if "min_stiffness" in d:
             kw["min_stiffness"] = num("min_stiffness", lo=1e-12, hi=0.1)
         if "solver" in d:
-            kw["solver"] = self.string(d["solver"], "optimization.solver", ("auto", "direct"))
+            kw["solver"] = self.string(d["solver"], "optimization.solver", ("auto", "direct", "iterative"))
         return Optimization(**kw)
 
     def build(self, value, dim: int) -> Build | None:

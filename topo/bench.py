@@ -1,0 +1,184 @@
+"""Benchmarks: standard cases timed per phase, with ratios against reference runs
+made in the same process. Benchmarks are never timed tests.
+
+Each case runs in a forked child process so that its peak memory (ru_maxrss) is
+its own.
+"""
+from __future__ import annotations
+
+import json
+import multiprocessing as mp
+import platform
+import resource
+import time
+
+import numpy as np
+
+from .design import optimize
+from .problem import problem_from_dict
+from .solvers import DirectSolver
+
+PHASES = ("assembly", "solve", "sensitivities", "transforms", "update")
+
+
+def mbb_2d(nx: int = 300, ny: int = 100) -> dict:
+    """Half MBB beam, unit data (as in the 88-line paper), density filter only."""
+    return {"name": f"mbb-{nx}x{ny}",
+            "domain": {"size": [float(nx), float(ny)], "element_size": 1.0, "thickness": 1.0},
+            "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
+            "optimization": {"volume_fraction": 0.5, "filter_radius": 3.0, "projection": False,
+                             "solver": "direct", "tolerance": 1e-9},
+            "support": [{"region": {"face": "x-min"}, "fix": ["x"]},
+                        {"region": {"point": [float(nx), 0.0]}, "fix": ["y"]}],
+            "load_case": [{"force": [{"region": {"point": [0.0, float(ny)]}, "total": [0.0, -1.0]}]}]}
+
+
+def cantilever_3d(nx: int, ny: int, nz: int, solver: str = "auto") -> dict:
+    """Cantilever clamped at x = 0, line load down along the lower edge at x = L."""
+    L, W, H = float(nx), float(ny), float(nz)
+    return {"name": f"cantilever-{nx}x{ny}x{nz}-{solver}",
+            "domain": {"size": [L, W, H], "element_size": 1.0},
+            "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
+            "optimization": {"volume_fraction": 0.12, "filter_radius": 1.5, "projection": False,
+                             "solver": solver, "tolerance": 1e-9},
+            "support": [{"region": {"face": "x-min"}}],
+            "load_case": [{"force": [{"region": {"box": {"min": [L, 0.0, 0.0], "max": [L, W, 0.0]}},
+                                      "total": [0.0, 0.0, -1.0]}]}]}
+
+
+def _run(problem_dict: dict, iterations: int) -> dict:
+    d = json.loads(json.dumps(problem_dict))
+    d["optimization"]["max_iterations"] = iterations
+    timer: dict = {}
+
+    def snapshot(row: dict) -> None:
+        if row["iteration"] == 1:
+            timer["first_iteration"] = dict(timer)
+
+    start = time.perf_counter()
+    result = optimize(problem_from_dict(d), callback=snapshot, timer=timer)
+    wall = time.perf_counter() - start
+    n = len(result.history)
+    loop = sum(h["seconds"] for h in result.history)
+    # Steady state: the first iteration also does one-off work (CHOLMOD's symbolic
+    # analysis, a cold CG start), so the phase split is over iterations 2..n.
+    first = timer.pop("first_iteration")
+    steady = {p: timer.get(p, 0.0) - first.get(p, 0.0) for p in PHASES}
+    m = max(n - 1, 1)
+    per = {p: steady[p] / m for p in PHASES}
+    per_iteration = (loop - result.history[0]["seconds"]) / m
+    per["other"] = max(per_iteration - sum(per.values()), 0.0)
+    return {"result": result, "iterations": n, "per_iteration_s": per_iteration, "phases_s": per,
+            "first_iteration_s": result.history[0]["seconds"],
+            "setup_s": wall - loop, "solver": result.model.solver.name,
+            "solver_iterations": float(np.mean([h["solver_iterations"] for h in result.history])),
+            "compliance": [h["objective"] for h in result.history]}
+
+
+def _factor_reference(result, repeats: int = 3) -> float:
+    """Seconds of one CHOLMOD numerical factorisation plus solve of the final matrix,
+    the symbolic analysis done beforehand as the design loop does."""
+    model = result.model
+    k = model.stiffness(model.moduli(result.density.ravel()))
+    solver = DirectSolver()
+    solver.solve(k, model.loads[model.free])  # symbolic analysis, warm-up
+    best = np.inf
+    for _ in range(repeats):
+        t = time.perf_counter()
+        solver.solve(k, model.loads[model.free])
+        best = min(best, time.perf_counter() - t)
+    return best
+
+
+def case_mbb(quick: bool) -> dict:
+    out = _run(mbb_2d(), 10 if quick else 30)
+    ref = _factor_reference(out.pop("result"))
+    out["reference"] = {"cholmod_factor_and_solve_s": ref}
+    out["ratio_iteration_to_factor_solve"] = out["per_iteration_s"] / ref
+    out.pop("compliance")
+    return out
+
+
+def case_cantilever(shape: tuple[int, int, int], quick: bool) -> dict:
+    out = _run(cantilever_3d(*shape), 5 if quick else 20)
+    out.pop("result")
+    out.pop("compliance")
+    return out
+
+
+def case_compare(shape: tuple[int, int, int], iterations: int) -> dict:
+    """The same 3D problem with the direct and the multigrid-CG solver, the same
+    number of iterations: time per iteration and the compliance reached."""
+    iterative = _run(cantilever_3d(*shape, "iterative"), iterations)
+    direct = _run(cantilever_3d(*shape, "direct"), iterations)
+    ci, cd = iterative["compliance"][-1], direct["compliance"][-1]
+    for r in (iterative, direct):
+        r.pop("result")
+        r.pop("compliance")
+    return {"iterative": iterative, "direct": direct,
+            "ratio_direct_to_iterative": direct["per_iteration_s"] / iterative["per_iteration_s"],
+            "compliance_relative_difference": abs(ci - cd) / cd, "iterations": iterations}
+
+
+def _child(fn, args, queue) -> None:
+    try:
+        out = fn(*args)
+        out["peak_memory_MB"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+        queue.put(out)
+    except BaseException as exc:  # report, do not hang the parent
+        queue.put({"error": repr(exc)})
+
+
+def cases(quick: bool) -> dict:
+    plan = {"mbb-2d-300x100": (case_mbb, (quick,)),
+            "cantilever-3d-48x24x24": (case_cantilever, ((48, 24, 24), quick))}
+    if not quick:
+        plan["cantilever-3d-96x48x48"] = (case_cantilever, ((96, 48, 48), quick))
+        plan["compare-3d-60x30x30"] = (case_compare, ((60, 30, 30), 5))
+    return plan
+
+
+def run_benchmarks(quick: bool = False, only: list[str] | None = None, echo=print) -> dict:
+    """Run the standard cases (each in its own process) and return their figures."""
+    ctx = mp.get_context("fork")
+    report = {"machine": {"python": platform.python_version(), "cpus": mp.cpu_count(),
+                          "platform": platform.platform()}, "quick": quick, "cases": {}}
+    for name, (fn, args) in cases(quick).items():
+        if only and name not in only:
+            continue
+        echo(f"running {name} …")
+        queue = ctx.Queue()
+        proc = ctx.Process(target=_child, args=(fn, args, queue))
+        proc.start()
+        out = queue.get()
+        proc.join()
+        report["cases"][name] = out
+        echo(format_case(name, out))
+    return report
+
+
+def _phases(r: dict) -> str:
+    ph = r["phases_s"]
+    return ", ".join(f"{p} {ph[p]:.3f}" for p in PHASES + ("other",))
+
+
+def format_case(name: str, r: dict) -> str:
+    if "error" in r:
+        return f"{name}: FAILED {r['error']}"
+    if "direct" in r:
+        lines = [f"{name}: {r['iterations']} iterations each"]
+        for kind in ("iterative", "direct"):
+            s = r[kind]
+            lines.append(f"  {kind:9s} {s['solver']}: {s['per_iteration_s']:.2f} s/iteration "
+                         f"({_phases(s)}); solver iterations {s['solver_iterations']:.1f}")
+        lines.append(f"  direct / iterative time per iteration: {r['ratio_direct_to_iterative']:.1f}×; "
+                     f"compliance differs by {100 * r['compliance_relative_difference']:.3f} %; "
+                     f"peak memory {r['peak_memory_MB']:.0f} MB")
+        return "\n".join(lines)
+    line = (f"{name}: {r['solver']}, {r['iterations']} iterations, {r['per_iteration_s']:.3f} s/iteration "
+            f"({_phases(r)}); solver iterations {r['solver_iterations']:.1f}; "
+            f"first iteration {r['first_iteration_s']:.2f} s; setup {r['setup_s']:.1f} s; peak memory {r['peak_memory_MB']:.0f} MB")
+    if "reference" in r:
+        line += (f"\n  one CHOLMOD factorisation + solve {r['reference']['cholmod_factor_and_solve_s']:.3f} s; "
+                 f"iteration / (factorisation + solve) = {r['ratio_iteration_to_factor_solve']:.2f}")
+    return line
