@@ -24,7 +24,11 @@ def _out_dir(args, problem) -> Path:
 
 
 def _progress(row: dict) -> None:
+    if row["iteration"] == 1:
+        print(f"solver: {row['solver']}", flush=True)
     beta = f"  beta {row['beta']:5.1f}" if row["beta"] is not None else ""
+    if row["solver_iterations"]:
+        beta += f"  cg {row['solver_iterations']:3d}"
     print(f"iter {row['iteration']:4d}  compliance {row['objective']:.6e} N·mm  "
           f"volume {row['volume_fraction']:.4f}  change {row['change']:.4f}{beta}  "
           f"{row['seconds']:.2f} s", flush=True)
@@ -95,7 +99,8 @@ def cmd_check(args) -> int:
     print(f"  grid {'×'.join(map(str, rep['elements']))} = {rep['element_count']} elements of "
           f"{rep['element_size_mm']} mm; {rep['nodes']} nodes; {rep['dofs']} dofs "
           f"({rep['free_dofs']} free); {rep['design_elements']} design elements")
-    print(f"  material {rep['material']}; build direction {rep['build_direction'] or 'none'}")
+    print(f"  material {rep['material']}; build direction {rep['build_direction'] or 'none'}; "
+          f"solver {rep['solver']}")
     for r in rep["regions"]:
         what = f"{r['nodes']} nodes" if r["role"] in ("support", "force") else f"{r['elements']} elements"
         print(f"  {r['key']:<24} {r['role']:<8} {r['name']:<24} {what}")

@@ -124,7 +124,7 @@ def _optimize(problem: Problem, callback, timer) -> Result:
         beta = projection.beta if projection else None
         row = {"iteration": it, "objective": c, "volume_fraction": volume, "change": change,
                "beta": beta, "seconds": time.perf_counter() - t0,
-               "solver_iterations": model.solver.iterations}
+               "solver_iterations": model.solver.iterations, "solver": model.solver.name}
         history.append(row)
         if callback:
             callback(row)

@@ -53,7 +53,9 @@ class Analysis:
 class Model:
     """Grid, element matrix, supports, loads and passive sets of a problem."""
 
-    def __init__(self, problem: Problem):
+    def __init__(self, problem: Problem, solver_factory=None):
+        """`solver_factory(shape, free)` replaces the solver `optimization.solver`
+        names (tests and benchmarks use it to set solver options)."""
         self.problem = problem
         dom, mat = problem.domain, problem.material
         self.grid = grid = Grid(dom.shape, dom.element_size)
@@ -66,7 +68,8 @@ class Model:
         self.loads = self._loads()
         self.solid, self.void = self._passives()
         self.free = np.flatnonzero(~self._fixed)
-        self.solver = make_solver(problem.optimization.solver, grid.shape, self.free)
+        self.solver = (solver_factory or (lambda shape, free: make_solver(
+            problem.optimization.solver, shape, free)))(grid.shape, self.free)
         self._build_pattern(full=self.solver.full_matrix)
 
     # ------------------------------------------------------------------ problem → sets

@@ -151,8 +151,9 @@ class MultigridCG:
 
     full_matrix = True
 
-    def __init__(self, shape: tuple[int, ...], free: np.ndarray, rtol: float = 1e-6):
-        self.hierarchy = Hierarchy(shape, free)
+    def __init__(self, shape: tuple[int, ...], free: np.ndarray, rtol: float = 1e-6,
+                 coarse_dofs: int = 15000):
+        self.hierarchy = Hierarchy(shape, free, coarse_dofs)
         self.rtol = rtol
         self.last: np.ndarray | None = None
         self.iterations = 0

@@ -143,6 +143,7 @@ def model_report(model) -> dict:
         "regions": [s.__dict__ for s in model.selections],
         "load_cases": cases,
         "material": problem.material.name,
+        "solver": model.solver.name,
         "build_direction": problem.build.direction if problem.build else None,
         "unsupportable_solid_regions": _unsupportable(model),
         "memory_estimate_MB": round((assembly + factor) / 2**20, 1),
