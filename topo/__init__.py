@@ -7,10 +7,12 @@ the applicable codes and licensed engineering practice.
 >>> p = topo.load_problem  # load_problem(path, overrides) → Problem
 """
 from .bench import run_benchmarks
-from .design import Result, analyze, check, load_run, optimize
+from .design import (Result, analyze, check, estimate_resources, load_run, load_run_problem,
+                     optimize)
 from .export import export
 from .problem import Problem, ProblemError, load_problem, problem_from_dict
+from .sweep import sweep
 
-__all__ = ["Problem", "ProblemError", "Result", "analyze", "check", "export", "load_problem", "load_run",
-           "optimize", "problem_from_dict", "run_benchmarks"]
+__all__ = ["Problem", "ProblemError", "Result", "analyze", "check", "estimate_resources", "export", "load_problem", "load_run", "load_run_problem",
+           "optimize", "problem_from_dict", "run_benchmarks", "sweep"]
 __version__ = "0.1.0"

@@ -8,7 +8,8 @@ from pathlib import Path
 
 import numpy as np
 
-from . import analyze, check, export, load_problem, load_run, optimize, run_benchmarks
+from . import (analyze, check, estimate_resources, export, load_problem, load_run, load_run_problem,
+               optimize, run_benchmarks, sweep)
 from .problem import ProblemError, parse_override
 from .export import MESH_FORMATS
 from .report import CAUTION
@@ -43,13 +44,39 @@ def _print_cases(summary: dict) -> None:
 
 
 def cmd_run(args) -> int:
-    problem = _load(args)
+    if args.resume:
+        problem = load_run_problem(args.resume, [parse_override(x) for x in (args.set or [])])
+        out = Path(args.resume)
+    else:
+        if not args.file:
+            raise ProblemError("topo run", "FILE", "give a problem file, or --resume RUN_DIR")
+        problem = _load(args)
+        out = _out_dir(args, problem)
+    for w in problem.warnings:
+        print(f"warning: {w}", file=sys.stderr)
     g = problem.domain.shape
+    est = estimate_resources(problem)
     print(f"{problem.name}: {problem.dim}D, {'×'.join(map(str, g))} = {int(np.prod(g))} elements "
-          f"of {problem.domain.element_size} mm, {problem.material.name}", flush=True)
-    result = optimize(problem, callback=None if args.quiet else _progress)
-    out = _out_dir(args, problem)
+          f"of {problem.domain.element_size} mm, {problem.material.name}; estimated "
+          f"{est['memory_bytes'] / 2**30:.2f} GiB, {est['seconds_per_iteration']:.2g} s per iteration",
+          flush=True)
+    if est["available_bytes"] and est["memory_bytes"] > est["available_bytes"] and not args.force:
+        hint = (f"; domain.element_size = {est['fitting_element_size']} mm would fit"
+                if est["fitting_element_size"] else "")
+        raise ProblemError(problem.source, "domain.element_size",
+                           f"the run needs about {est['memory_bytes'] / 2**30:.1f} GiB but "
+                           f"{est['available_bytes'] / 2**30:.1f} GiB are free{hint} "
+                           "(--force runs anyway)")
+    out.mkdir(parents=True, exist_ok=True)
+    _CURRENT_OUT[0] = out
+    checkpoint = out / "checkpoint.npz"
+    if args.resume:
+        print(f"resuming from {checkpoint}", flush=True)
+    result = optimize(problem, callback=None if args.quiet else _progress, checkpoint=checkpoint,
+                      resume=bool(args.resume))
     export(result, out, iso=args.iso, smooth=args.smooth, mesh_format=args.mesh_format)
+    if checkpoint.exists():
+        checkpoint.unlink()  # the run is complete; summary.json marks it
     s = result.summary
     print(f"{'converged' if s['converged'] else 'stopped'} after {s['iterations']} iterations "
           f"in {s['runtime_s']:.1f} s (solver {s['solver']}): {s['stop_reason']}")
@@ -69,6 +96,9 @@ def cmd_run(args) -> int:
     _print_mesh(s["mesh"], args.mesh_format)
     print(f"outputs in {out}/")
     print(CAUTION)
+    if s["stop_reason"].startswith("numerical fault"):
+        print(f"error: {s['stop_reason']}", file=sys.stderr)
+        return 1
     return 0
 
 
@@ -91,6 +121,8 @@ def cmd_export(args) -> int:
 
 def cmd_check(args) -> int:
     problem = _load(args)
+    for w in problem.warnings:
+        print(f"warning: {w}", file=sys.stderr)
     rep = check(problem)
     if args.json:
         print(json.dumps(rep, indent=2))
@@ -113,7 +145,8 @@ def cmd_check(args) -> int:
         print(f"  warning: {r['key']} ({r['name']}): {r['unsupportable_elements']} of {r['elements']} "
               f"elements cannot be supported from the build plate ({rep['build_direction']}); "
               "void regions block every 45° path")
-    print(f"  estimated memory {rep['memory_estimate_MB']} MB")
+    print(f"  estimated memory {rep['memory_estimate_MB']} MB, "
+          f"{rep['seconds_per_iteration_estimate']:.2g} s per iteration")
     return 0
 
 
@@ -128,6 +161,34 @@ def cmd_analyze(args) -> int:
     print(f"  compliance {s['compliance_Nmm']:.6g} N·mm, mass {s['mass_kg']:.4g} kg")
     _print_cases(s)
     print(f"summary in {out}/summary.json")
+    return 0
+
+
+def _parse_vary(text: str) -> tuple[str, list]:
+    """'KEY=V1,V2,...' → (KEY, [V1, V2, ...]), each value read as TOML."""
+    if "=" not in text:
+        raise ProblemError("--vary", text, "expected KEY=V1,V2,...")
+    key, values = text.split("=", 1)
+    items = [parse_override(f"v={v.strip()}")[1] for v in values.split(",") if v.strip()]
+    if not items:
+        raise ProblemError("--vary", key, "expected KEY=V1,V2,...")
+    return key.strip(), items
+
+
+def cmd_sweep(args) -> int:
+    problem = _load(args)
+    vary = dict(_parse_vary(v) for v in args.vary)
+    out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-sweep"
+    _CURRENT_OUT[0] = out
+    n = int(np.prod([len(v) for v in vary.values()]))
+    where = f"on {args.scheduler}" if args.scheduler else f"with {args.jobs} local job(s)"
+    print(f"{problem.name}: sweeping {', '.join(vary)} ({n} runs) {where}", flush=True)
+    rows = sweep(problem, vary, jobs=args.jobs, out=out, scheduler=args.scheduler,
+                 progress=lambda text: print(text, flush=True))
+    ran = sum(r["ran"] for r in rows)
+    print(f"{ran} run(s) made, {len(rows) - ran} already finished; table in {out}/sweep.csv, "
+          f"trade-off in {out}/sweep.png")
+    print(CAUTION)
     return 0
 
 
@@ -151,7 +212,11 @@ def build_parser() -> argparse.ArgumentParser:
                        help="override a problem value, e.g. optimization.volume_fraction=0.25")
 
     p = sub.add_parser("run", help="optimise a problem and write every output file")
-    common(p)
+    p.add_argument("file", nargs="?", help="problem file (TOML)")
+    p.add_argument("--set", action="append", metavar="KEY=VALUE",
+                   help="override a problem value, e.g. optimization.volume_fraction=0.25")
+    p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted run from its checkpoint")
+    p.add_argument("--force", action="store_true", help="run even when the memory estimate exceeds free memory")
     p.add_argument("--out", help="output folder (default outputs/NAME)")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     mesh_options(p)
@@ -165,6 +230,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--design", help="density.npy of a design (default: the full domain)")
     p.add_argument("--out", help="output folder (default outputs/NAME-analysis)")
     p.set_defaults(func=cmd_analyze)
+    p = sub.add_parser("sweep", help="run the cartesian product of values of one or more keys")
+    common(p)
+    p.add_argument("--vary", action="append", required=True, metavar="KEY=V1,V2,...",
+                   help="a dotted key and its values, e.g. optimization.volume_fraction=0.2,0.3")
+    p.add_argument("--jobs", type=int, default=1, help="local worker processes (default 1)")
+    p.add_argument("--scheduler", help="address of a running Dask scheduler (needs dask.distributed)")
+    p.add_argument("--out", help="sweep folder (default outputs/NAME-sweep)")
+    p.set_defaults(func=cmd_sweep)
     p = sub.add_parser("bench", help="benchmark the standard cases (per-phase times, ratios)")
     p.add_argument("--quick", action="store_true", help="small cases only, for small machines")
     p.add_argument("--case", action="append", help="run only this case (repeatable)")
@@ -185,16 +258,32 @@ def mesh_options(p, format_flag: str = "--mesh-format") -> None:
                    help="mesh file format (default stl)")
 
 
+_CURRENT_OUT: list = [None]  # the output folder of a run in progress, for error.log
+
+
 def main(argv: list[str] | None = None) -> int:
+    """Exit codes: 0 success, 2 input error (one message, no traceback), 1 internal
+    error (the traceback goes to error.log in the output folder)."""
     args = build_parser().parse_args(argv)
+    _CURRENT_OUT[0] = None
     try:
         return args.func(args)
-    except ProblemError as exc:
+    except (ProblemError, FileNotFoundError) as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
-    except FileNotFoundError as exc:
-        print(f"error: {exc}", file=sys.stderr)
-        return 2
+    except KeyboardInterrupt:
+        out = _CURRENT_OUT[0]
+        print("interrupted" + (f"; continue with: topo run --resume {out}" if out else ""), file=sys.stderr)
+        return 130
+    except Exception as exc:  # noqa: BLE001 - the one place that turns crashes into exit 1
+        import traceback
+
+        out = Path(_CURRENT_OUT[0] or "outputs")
+        out.mkdir(parents=True, exist_ok=True)
+        log = out / "error.log"
+        log.write_text(traceback.format_exc())
+        print(f"internal error: {type(exc).__name__}: {exc} (traceback in {log})", file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":

@@ -65,8 +65,9 @@ class Model:
                                     mat.youngs_modulus, thickness)
         self.selections: list[Selection] = []
         self._fixed = self._supports()
-        self.loads = self._loads()
         self.solid, self.void = self._passives()
+        self.loads = self._loads()
+        self._check_restraint()
         self.free = np.flatnonzero(~self._fixed)
         self.solver = (solver_factory or (lambda shape, free: make_solver(
             problem.optimization.solver, shape, free)))(grid.shape, self.free)
@@ -93,12 +94,27 @@ class Model:
                 fixed[self.dim * nodes + AXIS_INDEX[axis]] = True
         return fixed
 
+    def _check_restraint(self) -> None:
+        from .rigid import free_motions
+
+        free = free_motions(self.grid.node_coords, np.flatnonzero(self._fixed))
+        if free:
+            raise ProblemError(self.problem.source, "support", "the supports leave the part free to "
+                               f"move: {'; '.join(free)}. Fix more directions or add a support")
+
     def _loads(self) -> np.ndarray:
         f = np.zeros((self.grid.n_dofs, len(self.problem.load_cases)))
+        # nodes every one of whose elements is in a void region carry no material
+        void_nodes = np.ones(self.grid.n_nodes, dtype=bool)
+        np.logical_and.at(void_nodes, self.grid.element_nodes.ravel(),
+                          np.repeat(self.void, self.grid.element_nodes.shape[1]))
         for c, case in enumerate(self.problem.load_cases):
             for j, force in enumerate(case.forces):
                 key = f"load_case[{c}].force[{j}]"
                 nodes = self._nodes(force.region, key, "force", case.name)
+                if void_nodes[nodes].all():
+                    raise ProblemError(self.problem.source, f"{key}.region",
+                                       "the load lies inside a void (keep-out) region: no material carries it")
                 for axis, total in enumerate(force.total):
                     np.add.at(f[:, c], self.dim * nodes + axis, total / len(nodes))
         return f
@@ -208,7 +224,3 @@ class Model:
         d = elasticity_matrix(self.dim, mat.youngs_modulus, mat.poissons_ratio)
         stress = np.einsum("sn,enc->ecs", d @ b, ue, optimize=True)
         return von_mises(stress)
-
-    def assembly_bytes(self) -> int:
-        s = self._scatter
-        return s.data.nbytes + s.indices.nbytes + s.indptr.nbytes + 2 * len(self._indices) * 12

@@ -107,6 +107,7 @@ class Optimization:
     tolerance: float = 0.01
     min_stiffness: float = 1e-9  # E_min / E0 of modified SIMP
     solver: str = "auto"
+    checkpoint_interval: int = 10  # iterations between checkpoint.npz saves
 
 
 @dataclass(frozen=True)
@@ -156,6 +157,7 @@ class Problem:
     passives: tuple[Passive, ...]
     source: str = "<dict>"
     raw: dict = field(default_factory=dict, compare=False, repr=False)
+    warnings: tuple[str, ...] = ()
 
     @property
     def dim(self) -> int:
@@ -255,6 +257,7 @@ REGION_FORMS = ("box", "cylinder", "sphere", "face", "point")
 class _Parser:
     def __init__(self, source: str):
         self.source = source
+        self.warnings: list[str] = []
 
     def fail(self, key: str, message: str):
         raise ProblemError(self.source, key, message)
@@ -339,7 +342,7 @@ class _Parser:
         passives = tuple(self.passive(p, f"passive[{i}]", domain.dim)
                          for i, p in enumerate(self.array_of_tables(d.get("passive"), "passive")))
         return Problem(name, description, domain, material, opt, build, supports, loads,
-                       passives, self.source, d)
+                       passives, self.source, d, tuple(self.warnings))
 
     def unique(self, names: list[str], key: str) -> None:
         seen = set()
@@ -414,6 +417,10 @@ class _Parser:
         if "penalty" in d:
             kw["penalty"] = num("penalty", lo=1.0, hi=10.0)
         kw["filter_radius"] = num("filter_radius", positive=True) if "filter_radius" in d else 2.5 * h
+        if kw["filter_radius"] < h:
+            self.warnings.append(f"{self.source}: optimization.filter_radius: {kw['filter_radius']} mm is "
+                                 f"below one element ({h} mm): the filter does nothing and the design "
+                                 "may show checkerboards; use at least 1.5 elements")
         if "projection" in d:
             if not isinstance(d["projection"], bool):
                 self.fail("optimization.projection", f"expected true or false, got {d['projection']!r}")
@@ -434,6 +441,8 @@ class _Parser:
             kw["tolerance"] = num("tolerance", positive=True)
         if "min_stiffness" in d:
             kw["min_stiffness"] = num("min_stiffness", lo=1e-12, hi=0.1)
+        if "checkpoint_interval" in d:
+            kw["checkpoint_interval"] = self.integer(d["checkpoint_interval"], "optimization.checkpoint_interval")
         if "solver" in d:
             kw["solver"] = self.string(d["solver"], "optimization.solver", ("auto", "direct", "iterative"))
         return Optimization(**kw)

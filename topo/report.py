@@ -82,19 +82,6 @@ def _passive_report(result, solid: np.ndarray) -> list[dict]:
     return out
 
 
-def factor_bytes_estimate(n_dofs: int, dim: int) -> int:
-    """Rough memory of a sparse Cholesky factor with nested-dissection ordering.
-
-    Fitted to CHOLMOD factors of this project's grids (see DEVELOPERS.md): nnz(L)
-    grows like n log n in 2D and n^(4/3) in 3D; 12 bytes per entry (value + index).
-    """
-    if dim == 2:
-        nnz = 6.0 * n_dofs * np.log2(max(n_dofs, 2))
-    else:
-        nnz = 18.0 * n_dofs ** (4.0 / 3.0)
-    return int(12 * nnz)
-
-
 def _unsupportable(model) -> list[dict]:
     """Passive solid regions some of whose elements no self-supporting design can
     reach from the build plate (void regions in the way)."""
@@ -127,8 +114,9 @@ def model_report(model) -> dict:
         cases.append({"name": case.name, "weight": case.weight,
                       "total_force_N": [float(v) for v in applied],
                       "force_on_fixed_dofs_N": float(np.abs(on_fixed).sum())})
-    assembly = model.assembly_bytes()
-    factor = factor_bytes_estimate(len(model.free), grid.dim)
+    from .resources import estimate
+
+    est = estimate(problem)
     return {
         "name": problem.name,
         "source": problem.source,
@@ -146,5 +134,6 @@ def model_report(model) -> dict:
         "solver": model.solver.name,
         "build_direction": problem.build.direction if problem.build else None,
         "unsupportable_solid_regions": _unsupportable(model),
-        "memory_estimate_MB": round((assembly + factor) / 2**20, 1),
+        "memory_estimate_MB": round(est["memory_bytes"] / 2**20, 1),
+        "seconds_per_iteration_estimate": round(est["seconds_per_iteration"], 3),
     }

@@ -1,0 +1,193 @@
+"""Parameter sweeps: the cartesian product of values of any dotted keys, each run in
+a folder named after its parameters, on local worker processes or a Dask cluster.
+
+Calls only the public API. A run whose folder already holds a finished summary.json
+made from the same resolved problem is read back, not run again, so an interrupted
+sweep completes only what is missing.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import itertools
+import json
+import os
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+
+def combinations(vary: dict[str, list]) -> list[dict[str, Any]]:
+    keys = list(vary)
+    return [dict(zip(keys, values)) for values in itertools.product(*(vary[k] for k in keys))]
+
+
+def folder_name(params: dict[str, Any]) -> str:
+    """'optimization.volume_fraction=0.3' → 'volume_fraction-0.3', parts joined by '_'."""
+    parts = []
+    for key, value in params.items():
+        text = json.dumps(value) if not isinstance(value, str) else value
+        safe = "".join(c if c.isalnum() or c in ".+-" else "-" for c in text)
+        parts.append(f"{key.split('.')[-1]}-{safe}")
+    return "_".join(parts) or "base"
+
+
+def _limit_blas(threads: int) -> None:
+    try:
+        from threadpoolctl import threadpool_limits
+
+        threadpool_limits(threads)
+    except ImportError:  # pragma: no cover
+        pass
+
+
+def run_one(raw: dict, source: str, params: dict[str, Any], out_dir: str,
+            blas_threads: int | None = None) -> dict:
+    """Optimise one combination and write its folder; returns its sweep row."""
+    from . import export, optimize, problem_from_dict
+
+    if blas_threads:
+        _limit_blas(blas_threads)
+    problem = problem_from_dict(raw, params, source=source)
+    result = optimize(problem)
+    export(result, out_dir)
+    return row_of(params, result.summary, out_dir, ran=True)
+
+
+def row_of(params: dict, summary: dict, out_dir: str, ran: bool) -> dict:
+    row = dict(params)
+    row.update({"mass_kg": summary["mass_kg"], "volume_fraction": summary["volume_fraction"],
+                "compliance_Nmm": summary["compliance_Nmm"]})
+    for case in summary["load_cases"]:
+        row[f"compliance_{case['name']}_Nmm"] = case["compliance_Nmm"]
+    row["max_displacement_mm"] = max(c["max_displacement_mm"] for c in summary["load_cases"])
+    row.update({"unsupported_fraction": summary["unsupported_fraction"],
+                "iterations": summary["iterations"], "converged": summary["converged"],
+                "runtime_s": summary["runtime_s"], "folder": str(out_dir), "ran": ran})
+    return row
+
+
+def _finished(raw: dict, params: dict, out_dir: Path) -> dict | None:
+    """The summary of a finished run of exactly this problem, if there is one."""
+    from . import problem_from_dict
+
+    summary, resolved = out_dir / "summary.json", out_dir / "problem.json"
+    if not (summary.exists() and resolved.exists()):
+        return None
+    expected = problem_from_dict(raw, params).raw
+    if json.loads(resolved.read_text()) != json.loads(json.dumps(expected)):
+        return None
+    return json.loads(summary.read_text())
+
+
+def pareto(rows: list[dict]) -> list[bool]:
+    """True for each run that no other run beats on both mass and compliance."""
+    out = []
+    for r in rows:
+        dominated = any(o is not r and o["mass_kg"] <= r["mass_kg"] and o["compliance_Nmm"] <= r["compliance_Nmm"]
+                        and (o["mass_kg"] < r["mass_kg"] or o["compliance_Nmm"] < r["compliance_Nmm"])
+                        for o in rows)
+        out.append(not dominated)
+    return out
+
+
+def sweep(problem, vary: dict[str, list], jobs: int = 1, out: str | Path | None = None,
+          scheduler: str | None = None, progress: Callable[[str], None] | None = None) -> list[dict]:
+    """Run every combination of `vary` (dotted key → values) of `problem` (a Problem
+    or a problem file). Writes one folder per run, sweep.csv and sweep.png under
+    `out` (default outputs/NAME-sweep) and returns the rows in combination order."""
+    from . import load_problem
+
+    if isinstance(problem, (str, Path)):
+        problem = load_problem(problem)
+    raw, source = problem.raw, problem.source
+    combos = combinations(vary)
+    from . import problem_from_dict
+
+    for params in combos:  # validate every combination before running any
+        problem_from_dict(raw, params, source=source)
+    root = Path(out) if out else Path("outputs") / f"{problem.name}-sweep"
+    root.mkdir(parents=True, exist_ok=True)
+    say = progress or (lambda text: None)
+    rows: list[dict | None] = [None] * len(combos)
+    todo = []
+    for i, params in enumerate(combos):
+        folder = root / folder_name(params)
+        done = _finished(raw, params, folder)
+        if done is not None:
+            rows[i] = row_of(params, done, str(folder), ran=False)
+            say(f"[{i + 1}/{len(combos)}] {folder.name}: already finished")
+        else:
+            todo.append((i, params, str(folder)))
+    finished = len(combos) - len(todo)
+
+    def record(i: int, row: dict) -> None:
+        nonlocal finished
+        rows[i] = row
+        finished += 1
+        say(f"[{finished}/{len(combos)}] {Path(row['folder']).name}: compliance {row['compliance_Nmm']:.5g} N·mm, "
+            f"mass {row['mass_kg']:.4g} kg, {row['iterations']} iterations, {row['runtime_s']:.1f} s")
+
+    if todo and scheduler:
+        from dask.distributed import Client, as_completed
+
+        with Client(scheduler) as client:
+            futures = {client.submit(run_one, raw, source, params, folder, 1, pure=False): i
+                       for i, params, folder in todo}
+            for fut in as_completed(futures):
+                record(futures[fut], fut.result())
+    elif todo and jobs > 1:
+        import multiprocessing as mp
+        from concurrent.futures import ProcessPoolExecutor, as_completed as done_first
+
+        threads = max(1, (os.cpu_count() or 1) // jobs)  # jobs × threads ≤ cores
+        with ProcessPoolExecutor(jobs, mp_context=mp.get_context("spawn")) as pool:
+            futures = {pool.submit(run_one, raw, source, params, folder, threads): i
+                       for i, params, folder in todo}
+            for fut in done_first(futures):
+                record(futures[fut], fut.result())
+    else:
+        for i, params, folder in todo:
+            record(i, run_one(raw, source, params, folder))
+    write_table(rows, root / "sweep.csv")
+    write_plot(rows, list(vary), root / "sweep.png")
+    return rows
+
+
+def write_table(rows: list[dict], path: Path) -> None:
+    from .export import atomic_write
+
+    columns = list(dict.fromkeys(k for r in rows for k in r if k != "ran")) + ["pareto"]
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, columns, extrasaction="ignore", lineterminator="\n")
+    w.writeheader()
+    for r, best in zip(rows, pareto(rows)):
+        w.writerow({**r, "pareto": best})
+    atomic_write(path, buf.getvalue().encode())
+
+
+def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from .export import _figure_bytes, atomic_write
+
+    best = pareto(rows)
+    fig, ax = plt.subplots(figsize=(6.4, 4.4))
+    mass = np.array([r["mass_kg"] for r in rows])
+    comp = np.array([r["compliance_Nmm"] for r in rows])
+    ax.scatter(mass[~np.array(best)], comp[~np.array(best)], color="tab:gray", label="dominated")
+    ax.scatter(mass[best], comp[best], color="tab:red", label="not dominated")
+    order = np.argsort(mass[best])
+    ax.plot(mass[best][order], comp[best][order], color="tab:red", lw=1)
+    for r, m, c in zip(rows, mass, comp):
+        ax.annotate(", ".join(f"{k.split('.')[-1]}={r[k]}" for k in keys), (m, c), fontsize=7,
+                    textcoords="offset points", xytext=(4, 4))
+    ax.set_xlabel("mass (kg)")
+    ax.set_ylabel("weighted compliance (N·mm)")
+    ax.set_title("trade-off: stiffness against mass")
+    ax.legend(fontsize=8)
+    atomic_write(path, _figure_bytes(fig))
