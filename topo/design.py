@@ -17,7 +17,7 @@ from typing import Callable
 import numpy as np
 
 from .fem import Analysis, Model, _tick
-from .optimizers import OptimalityCriteria
+from .optimizers import MMA, OptimalityCriteria
 from .problem import Problem, ProblemError
 from .solvers import blas_for_solver
 from .transforms import Chain, DensityFilter, HeavisideProjection, OverhangFilter, PassiveOverride
@@ -50,6 +50,83 @@ def _objective_settled(history: list[dict], since_beta: int) -> bool:
         return False
     recent = [h["objective"] for h in history[-SETTLED_WINDOW:]]
     return (max(recent) - min(recent)) <= SETTLED_RTOL * abs(recent[-1])
+
+
+def _material_budget(problem: Problem, model: Model) -> tuple[np.ndarray, float, float]:
+    """The material constraint w·ρ ≤ target and the starting density of the design
+    elements. volume_fraction: w averages ρ over the design elements. mass_limit: w
+    is each element's mass at full density, over all elements, so passive solids
+    count (and so does any part of them the overhang layer removes)."""
+    opt, active = problem.optimization, model.active
+    n_active = int(active.sum())
+    if opt.mass_limit is None:
+        return active / n_active, opt.volume_fraction, opt.volume_fraction
+    element_mass = problem.domain.element_volume * 1e-9 * problem.material.density  # kg
+    passive = element_mass * int(model.solid.sum())
+    if passive >= opt.mass_limit:
+        raise ProblemError(problem.source, "optimization.mass_limit",
+                           f"{opt.mass_limit} kg is not more than the passive solid regions "
+                           f"alone ({passive:.4g} kg)")
+    start = (opt.mass_limit - passive) / (element_mass * n_active)
+    return np.full(model.grid.n_elements, element_mass), opt.mass_limit, float(np.clip(start, 0.01, 1.0))
+
+
+class _MMADesign:
+    """MMA on the design elements. Weighted objective: min c/c₁ s.t. w·ρ/target ≤ 1.
+    Worst case (bound formulation): min t over (x, t) s.t. c_l/c₁ ≤ t for every load
+    case and the material constraint; c₁ is the first iteration's value."""
+
+    def __init__(self, active: np.ndarray, n_cases: int, worst: bool, move: float):
+        n = int(active.sum()) + (1 if worst else 0)
+        m = 1 + (n_cases if worst else 0)
+        lo, hi = np.zeros(n), np.ones(n)
+        if worst:
+            hi[-1] = 100.0  # t, in units of the first iteration's largest compliance
+        self.mma = MMA(n, m, lo, hi, move=move)
+        self.active, self.worst = active, worst
+        self.scale = None
+        self.t = None
+
+    def state(self) -> dict:
+        out = {f"mma_{k}": v for k, v in self.mma.state().items()}
+        out["scale"] = np.array(self.scale if self.scale is not None else np.nan)
+        out["t"] = np.array(self.t if self.t is not None else np.nan)
+        return out
+
+    def restore(self, state: dict) -> None:
+        self.mma.restore({k[4:]: v for k, v in state.items() if k.startswith("mma_")})
+        self.scale = None if np.isnan(state["scale"]) else float(state["scale"])
+        self.t = None if np.isnan(state["t"]) else float(state["t"])
+
+    def update(self, x, dc, volume, dv, target, exact_volume=None):
+        if self.scale is None:
+            self.scale = float(abs(dc[self.active] @ x[self.active])) or 1.0
+        act = self.active
+        xa = self.mma.update(x[act], dc[act] / self.scale, np.array([volume / target - 1.0]),
+                             (dv[act] / target)[None, :])
+        out = x.copy()
+        out[act] = xa
+        return out
+
+    def update_worst(self, x, compliances, dcs, volume, dv, target):
+        act = self.active
+        if self.scale is None:
+            self.scale = float(compliances.max())
+            self.t = 1.0
+        n = int(act.sum())
+        z = np.append(x[act], self.t)
+        df0 = np.zeros(n + 1)
+        df0[-1] = 1.0
+        f = np.append(compliances / self.scale - self.t, volume / target - 1.0)
+        df = np.zeros((len(f), n + 1))
+        for i, g in enumerate(dcs):
+            df[i, :n], df[i, -1] = g[act] / self.scale, -1.0
+        df[-1, :n] = dv[act] / target
+        z = self.mma.update(z, df0, f, df)
+        self.t = float(z[-1])
+        out = x.copy()
+        out[act] = z[:n]
+        return out
 
 
 def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProjection | None]:
@@ -103,7 +180,7 @@ class _LoopState:
     history: list = field(default_factory=list)
 
 
-def _save_checkpoint(path: Path, state: _LoopState, update: OptimalityCriteria, model: Model,
+def _save_checkpoint(path: Path, state: _LoopState, update, model: Model,
                      problem: Problem) -> None:
     import io
     import json
@@ -112,14 +189,14 @@ def _save_checkpoint(path: Path, state: _LoopState, update: OptimalityCriteria, 
 
     warm = getattr(model.solver, "last", None)
     buf = io.BytesIO()
-    np.savez(buf, x=state.x, limits=update.limits, last_step=update.last_step,
-             warm=np.zeros(0) if warm is None else warm,
+    extra = {f"opt_{k}": np.asarray(v) for k, v in update.state().items()}
+    np.savez(buf, x=state.x, **extra, warm=np.zeros(0) if warm is None else warm,
              scalars=np.array([state.iteration, state.beta, state.since_beta], dtype=float),
              history=np.array(json.dumps(state.history)), problem=np.array(json.dumps(problem.raw)))
     atomic_write(path, buf.getvalue())
 
 
-def _load_checkpoint(path: Path, state: _LoopState, update: OptimalityCriteria, model: Model,
+def _load_checkpoint(path: Path, state: _LoopState, update, model: Model,
                      problem: Problem) -> None:
     import json
 
@@ -131,7 +208,7 @@ def _load_checkpoint(path: Path, state: _LoopState, update: OptimalityCriteria, 
     it, beta, since = data["scalars"]
     state.iteration, state.beta, state.since_beta = int(it), float(beta), int(since)
     state.history = json.loads(str(data["history"]))
-    update.limits, update.last_step = data["limits"].copy(), data["last_step"].copy()
+    update.restore({k[4:]: data[k] for k in data.files if k.startswith("opt_")})
     if data["warm"].size and hasattr(model.solver, "last"):
         model.solver.last = data["warm"].copy()
 
@@ -149,14 +226,17 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
         raise ProblemError(problem.source, "passive", "no design elements: passive regions "
                            "cover the whole domain")
     weights = np.array([c.weight for c in problem.load_cases])
-    dv_drho = active / n_active
+    dv_drho, target, start_fraction = _material_budget(problem, model)
 
-    update = OptimalityCriteria(active, opt.move_limit)
+    if opt.optimizer == "mma":
+        update = _MMADesign(active, len(weights), opt.objective == "worst_case", opt.move_limit)
+    else:
+        update = OptimalityCriteria(active, opt.move_limit)
     # A projection or an overhang layer makes the volume nonlinear in x: meet it
     # exactly at every step.
     exact_volume = None if chain.linear else (lambda xc: float(dv_drho @ chain.forward(xc)))
     x0 = np.where(model.solid, 1.0, 0.0)
-    x0[active] = opt.volume_fraction
+    x0[active] = start_fraction
     state = _LoopState(x0)
     checkpoint = Path(checkpoint) if checkpoint else None
     if resume:
@@ -174,19 +254,28 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
             clock = _tick(timer, "transforms", t0)
             analysis = model.analyze(rho, stresses=False, timer=timer)
             clock = time.perf_counter()
-            c, dc_drho = compliance_gradient(model, rho, analysis, weights)
             volume = float(dv_drho @ rho)
-            clock = _tick(timer, "sensitivities", clock)
-            dc, dv = chain.backward_many(x, [dc_drho, dv_drho])
-            clock = _tick(timer, "transforms", clock)
-            x_new = update.update(x, dc, volume, dv, opt.volume_fraction, exact_volume)
+            if opt.objective == "worst_case":
+                c = float(analysis.compliances.max())
+                per_case = -model.moduli_derivative(rho)[:, None] * analysis.energies
+                clock = _tick(timer, "sensitivities", clock)
+                *dcs, dv = chain.backward_many(x, list(per_case.T) + [dv_drho])
+                clock = _tick(timer, "transforms", clock)
+                x_new = update.update_worst(x, analysis.compliances, dcs, volume, dv, target)
+            else:
+                c, dc_drho = compliance_gradient(model, rho, analysis, weights)
+                clock = _tick(timer, "sensitivities", clock)
+                dc, dv = chain.backward_many(x, [dc_drho, dv_drho])
+                clock = _tick(timer, "transforms", clock)
+                x_new = update.update(x, dc, volume, dv, target, exact_volume)
             _tick(timer, "update", clock)  # includes the exact-volume chain evaluations
             if not (np.isfinite(c) and np.all(np.isfinite(x_new))):
                 raise FloatingPointError(f"non-finite objective or design at iteration {it}")
             change = float(np.max(np.abs(x_new - x)[active]))
             x = x_new
             beta = projection.beta if projection else None
-            row = {"iteration": it, "objective": c, "volume_fraction": volume, "change": change,
+            row = {"iteration": it, "objective": c, "volume_fraction": float(rho[active].mean()),
+                   "constraint": volume / target - 1.0, "change": change,
                    "beta": beta, "seconds": time.perf_counter() - t0,
                    "solver_iterations": model.solver.iterations, "solver": model.solver.name}
             state.history.append(row)

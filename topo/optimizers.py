@@ -36,6 +36,12 @@ class OptimalityCriteria:
         self.limits = np.full(n, move)
         self.last_step = np.zeros(n)
 
+    def state(self) -> dict:
+        return {"limits": self.limits, "last_step": self.last_step}
+
+    def restore(self, state: dict) -> None:
+        self.limits, self.last_step = state["limits"].copy(), state["last_step"].copy()
+
     def update(self, x: np.ndarray, dc: np.ndarray, volume: float, dv: np.ndarray,
                target: float, exact_volume: Callable[[np.ndarray], float] | None = None
                ) -> np.ndarray:
@@ -120,3 +126,96 @@ def _bracketed_root(f: Callable[[float], float], guess: float, atol: float = 1e-
                 fa /= 2
             side = -1
     return float(np.exp(0.5 * (la + lb)))
+
+
+class MMA:
+    """Method of Moving Asymptotes (Svanberg 1987, Int. J. Numer. Meth. Eng.
+    24:359-373), for min f0(x) s.t. f_i(x) ≤ 0, i = 1..m, xmin ≤ x ≤ xmax.
+
+    Each step builds the convex separable approximation with asymptotes l < x < u,
+    adapted from the last two iterates (factors 0.7 / 1.2, Svanberg's usual
+    choice), and solves its dual — a concave maximisation over λ ≥ 0 in m
+    variables with x(λ) in closed form — by L-BFGS-B. Infeasible subproblems are
+    made solvable with the elastic variables y_i (cost c_i y_i + ½ y_i², c = 1000)
+    of the 1987 paper's extended form; with a_i = 0 the z variable drops out.
+    """
+
+    def __init__(self, n: int, m: int, xmin: np.ndarray, xmax: np.ndarray, move: float = 0.2,
+                 asy_init: float = 0.5, asy_incr: float = 1.2, asy_decr: float = 0.7):
+        self.n, self.m = n, m
+        self.xmin, self.xmax = np.asarray(xmin, float), np.asarray(xmax, float)
+        self.move, self.asy_init, self.asy_incr, self.asy_decr = move, asy_init, asy_incr, asy_decr
+        self.xold1 = self.xold2 = None
+        self.low = self.upp = None
+        self.iteration = 0
+        self.c = np.full(m, 1000.0)
+        self.d = np.ones(m)
+        self.lam = np.zeros(m)
+
+    _STATE = ("xold1", "xold2", "low", "upp", "lam")
+
+    def state(self) -> dict:
+        out = {k: getattr(self, k) for k in self._STATE if getattr(self, k) is not None}
+        out["iteration"] = np.array(self.iteration)
+        return out
+
+    def restore(self, state: dict) -> None:
+        for k in self._STATE:
+            setattr(self, k, state[k].copy() if k in state else None)
+        self.iteration = int(state["iteration"])
+
+    def update(self, x: np.ndarray, df0: np.ndarray, f: np.ndarray, df: np.ndarray) -> np.ndarray:
+        """x (n,), df0 (n,), constraint values f (m,), gradients df (m, n) → new x."""
+        self.iteration += 1
+        span = self.xmax - self.xmin
+        if self.iteration <= 2:
+            self.low = x - self.asy_init * span
+            self.upp = x + self.asy_init * span
+        else:
+            sign = (x - self.xold1) * (self.xold1 - self.xold2)
+            factor = np.where(sign > 0, self.asy_incr, np.where(sign < 0, self.asy_decr, 1.0))
+            self.low = x - factor * (self.xold1 - self.low)
+            self.upp = x + factor * (self.upp - self.xold1)
+            self.low = np.clip(self.low, x - 10 * span, x - 0.01 * span)
+            self.upp = np.clip(self.upp, x + 0.01 * span, x + 10 * span)
+        alpha = np.maximum.reduce([self.low + 0.1 * (x - self.low), x - self.move * span, self.xmin])
+        beta = np.minimum.reduce([self.upp - 0.1 * (self.upp - x), x + self.move * span, self.xmax])
+        ux, xl = self.upp - x, x - self.low
+        reg = 1e-5 / np.maximum(span, 1e-12)
+
+        def pq(g):
+            p = ux**2 * (np.maximum(g, 0) + 0.001 * np.abs(g) + reg)
+            q = xl**2 * (np.maximum(-g, 0) + 0.001 * np.abs(g) + reg)
+            return p, q
+
+        p0, q0 = pq(df0)
+        pq_i = [pq(g) for g in np.atleast_2d(df)]
+        P = np.array([p for p, _ in pq_i])  # (m, n)
+        Q = np.array([q for _, q in pq_i])
+        b = (P / ux).sum(axis=1) + (Q / xl).sum(axis=1) - np.asarray(f, float)
+
+        def primal(lam):
+            pl, ql = p0 + lam @ P, q0 + lam @ Q
+            sp_, sq = np.sqrt(pl), np.sqrt(ql)
+            xs = np.clip((sp_ * self.low + sq * self.upp) / (sp_ + sq), alpha, beta)
+            return xs, pl, ql
+
+        def neg_dual(lam):
+            xs, pl, ql = primal(lam)
+            y = np.maximum(0.0, (lam - self.c) / self.d)
+            w = (pl / (self.upp - xs)).sum() + (ql / (xs - self.low)).sum() \
+                + (self.c * y + 0.5 * self.d * y**2 - lam * y).sum() - lam @ b
+            g_i = (P / (self.upp - xs)).sum(axis=1) + (Q / (xs - self.low)).sum(axis=1)
+            grad = g_i - y - b
+            return -w, -grad
+
+        from scipy.optimize import minimize
+
+        res = minimize(neg_dual, self.lam, jac=True, method="L-BFGS-B",
+                       bounds=[(0.0, None)] * self.m, options={"maxiter": 500, "gtol": 1e-10})
+        self.lam = np.maximum(res.x, 0.0)
+        x_new = primal(self.lam)[0]
+        self.xold2, self.xold1 = self.xold1, x.copy()
+        if self.xold2 is None:
+            self.xold2 = x.copy()
+        return x_new

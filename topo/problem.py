@@ -94,7 +94,9 @@ class Domain:
 
 @dataclass(frozen=True)
 class Optimization:
-    volume_fraction: float
+    volume_fraction: float | None  # exactly one of volume_fraction and mass_limit
+    mass_limit: float | None = None  # kg, passive solids counted
+    objective: str = "weighted"  # "weighted" | "worst_case"
     penalty: float = 3.0
     filter_radius: float = 0.0  # mm; 0 in the file means the default 2.5·h
     projection: bool = True
@@ -406,13 +408,21 @@ class _Parser:
 
     def optimization(self, value, domain: Domain) -> Optimization:
         d = self.table(value, "optimization", OPT_KEYS)
-        if "volume_fraction" not in d:
-            self.fail("optimization.volume_fraction", "missing: the share of the design domain to fill, in (0, 1]")
-        vf = self.number(d["volume_fraction"], "optimization.volume_fraction")
-        if not 0.0 < vf <= 1.0:
-            self.fail("optimization.volume_fraction", f"must lie in (0, 1], got {vf}")
+        has_vf, has_mass = "volume_fraction" in d, "mass_limit" in d
+        if has_vf == has_mass:
+            self.fail("optimization.volume_fraction", "give exactly one of volume_fraction (the share of "
+                      "the design domain to fill, in (0, 1]) and mass_limit (kg)")
+        vf = mass = None
+        if has_vf:
+            vf = self.number(d["volume_fraction"], "optimization.volume_fraction")
+            if not 0.0 < vf <= 1.0:
+                self.fail("optimization.volume_fraction", f"must lie in (0, 1], got {vf}")
+        else:
+            mass = self.number(d["mass_limit"], "optimization.mass_limit", positive=True)
         h = domain.element_size
-        kw: dict[str, Any] = {"volume_fraction": vf}
+        kw: dict[str, Any] = {"volume_fraction": vf, "mass_limit": mass}
+        if "objective" in d:
+            kw["objective"] = self.string(d["objective"], "optimization.objective", ("weighted", "worst_case"))
         num = lambda k, **a: self.number(d[k], f"optimization.{k}", **a)  # noqa: E731
         if "penalty" in d:
             kw["penalty"] = num("penalty", lo=1.0, hi=10.0)
@@ -432,7 +442,10 @@ class _Parser:
         if "beta_interval" in d:
             kw["beta_interval"] = self.integer(d["beta_interval"], "optimization.beta_interval")
         if "optimizer" in d:
-            kw["optimizer"] = self.string(d["optimizer"], "optimization.optimizer", ("oc",))
+            kw["optimizer"] = self.string(d["optimizer"], "optimization.optimizer", ("oc", "mma"))
+        if kw.get("objective") == "worst_case" and kw.get("optimizer", "oc") != "mma":
+            self.fail("optimization.objective", "worst_case needs optimizer = \"mma\" (the bound "
+                      "formulation has one constraint per load case)")
         if "move_limit" in d:
             kw["move_limit"] = num("move_limit", lo=0.001, hi=1.0)
         if "max_iterations" in d:
