@@ -76,9 +76,11 @@ class _MMADesign:
     Worst case (bound formulation): min t over (x, t) s.t. c_l/c₁ ≤ t for every load
     case and the material constraint; c₁ is the first iteration's value."""
 
-    def __init__(self, active: np.ndarray, n_cases: int, worst: bool, move: float):
+    def __init__(self, active: np.ndarray, n_cases: int, worst: bool, move: float,
+                 extra_constraints: int = 0):
         n = int(active.sum()) + (1 if worst else 0)
-        m = 1 + (n_cases if worst else 0)
+        m = 1 + (n_cases if worst else 0) + extra_constraints
+        self.stress_correction = None
         lo, hi = np.zeros(n), np.ones(n)
         if worst:
             hi[-1] = 100.0  # t, in units of the first iteration's largest compliance
@@ -91,24 +93,35 @@ class _MMADesign:
         out = {f"mma_{k}": v for k, v in self.mma.state().items()}
         out["scale"] = np.array(self.scale if self.scale is not None else np.nan)
         out["t"] = np.array(self.t if self.t is not None else np.nan)
+        out["stress_correction"] = np.array(np.nan if self.stress_correction is None else self.stress_correction)
         return out
+
+    def correct_stress(self, ratio: float, alpha: float = 0.5) -> None:
+        """Adaptive p-norm correction of Le et al. (2010): blend the latest ratio of
+        the true peak to the aggregate with the previous correction."""
+        prev = self.stress_correction
+        self.stress_correction = ratio if prev is None else alpha * ratio + (1 - alpha) * prev
 
     def restore(self, state: dict) -> None:
         self.mma.restore({k[4:]: v for k, v in state.items() if k.startswith("mma_")})
         self.scale = None if np.isnan(state["scale"]) else float(state["scale"])
         self.t = None if np.isnan(state["t"]) else float(state["t"])
+        sc = state.get("stress_correction")
+        self.stress_correction = None if sc is None or np.isnan(sc) else float(sc)
 
-    def update(self, x, dc, volume, dv, target, exact_volume=None):
+    def update(self, x, dc, volume, dv, target, exact_volume=None, extra=(), extra_grads=()):
+        """extra: further constraint values g ≤ 0 with their gradients (full vectors)."""
         if self.scale is None:
             self.scale = float(abs(dc[self.active] @ x[self.active])) or 1.0
         act = self.active
-        xa = self.mma.update(x[act], dc[act] / self.scale, np.array([volume / target - 1.0]),
-                             (dv[act] / target)[None, :])
+        f = np.array([volume / target - 1.0] + list(extra))
+        df = np.array([dv[act] / target] + [g[act] for g in extra_grads])
+        xa = self.mma.update(x[act], dc[act] / self.scale, f, df)
         out = x.copy()
         out[act] = xa
         return out
 
-    def update_worst(self, x, compliances, dcs, volume, dv, target):
+    def update_worst(self, x, compliances, dcs, volume, dv, target, extra=(), extra_grads=()):
         act = self.active
         if self.scale is None:
             self.scale = float(compliances.max())
@@ -117,11 +130,13 @@ class _MMADesign:
         z = np.append(x[act], self.t)
         df0 = np.zeros(n + 1)
         df0[-1] = 1.0
-        f = np.append(compliances / self.scale - self.t, volume / target - 1.0)
+        f = np.concatenate([compliances / self.scale - self.t, [volume / target - 1.0], list(extra)])
         df = np.zeros((len(f), n + 1))
         for i, g in enumerate(dcs):
             df[i, :n], df[i, -1] = g[act] / self.scale, -1.0
-        df[-1, :n] = dv[act] / target
+        df[len(dcs), :n] = dv[act] / target
+        for i, g in enumerate(extra_grads):
+            df[len(dcs) + 1 + i, :n] = g[act]
         z = self.mma.update(z, df0, f, df)
         self.t = float(z[-1])
         out = x.copy()
@@ -228,8 +243,14 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
     weights = np.array([c.weight for c in problem.load_cases])
     dv_drho, target, start_fraction = _material_budget(problem, model)
 
+    stress = None
+    if opt.stress_limit is not None:
+        from .stress import StressMeasure
+
+        stress = StressMeasure(model)
     if opt.optimizer == "mma":
-        update = _MMADesign(active, len(weights), opt.objective == "worst_case", opt.move_limit)
+        update = _MMADesign(active, len(weights), opt.objective == "worst_case", opt.move_limit,
+                            extra_constraints=1 if stress else 0)
     else:
         update = OptimalityCriteria(active, opt.move_limit)
     # A projection or an overhang layer makes the volume nonlinear in x: meet it
@@ -255,19 +276,33 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
             analysis = model.analyze(rho, stresses=False, timer=timer)
             clock = time.perf_counter()
             volume = float(dv_drho @ rho)
+            extra, extra_grads = [], []
+            if stress is not None:
+                # constraint c_k·σ_PN / σ_limit − 1 ≤ 0 with the adaptive correction c_k
+                pn, dpn = stress.aggregate(rho, analysis)
+                peak = float(stress.relaxed(rho, analysis).max())
+                update.correct_stress(peak / pn if pn > 0 else 1.0)
+                extra.append(update.stress_correction * pn / opt.stress_limit - 1.0)
+                extra_grads.append(update.stress_correction * dpn / opt.stress_limit)
             if opt.objective == "worst_case":
                 c = float(analysis.compliances.max())
                 per_case = -model.moduli_derivative(rho)[:, None] * analysis.energies
                 clock = _tick(timer, "sensitivities", clock)
-                *dcs, dv = chain.backward_many(x, list(per_case.T) + [dv_drho])
+                grads = chain.backward_many(x, list(per_case.T) + [dv_drho] + extra_grads)
+                n_cases = per_case.shape[1]
+                dcs, dv, extra_grads = grads[:n_cases], grads[n_cases], grads[n_cases + 1:]
                 clock = _tick(timer, "transforms", clock)
-                x_new = update.update_worst(x, analysis.compliances, dcs, volume, dv, target)
+                x_new = update.update_worst(x, analysis.compliances, dcs, volume, dv, target,
+                                            extra, extra_grads)
             else:
                 c, dc_drho = compliance_gradient(model, rho, analysis, weights)
                 clock = _tick(timer, "sensitivities", clock)
-                dc, dv = chain.backward_many(x, [dc_drho, dv_drho])
+                dc, dv, *extra_grads = chain.backward_many(x, [dc_drho, dv_drho] + extra_grads)
                 clock = _tick(timer, "transforms", clock)
-                x_new = update.update(x, dc, volume, dv, target, exact_volume)
+                if extra:
+                    x_new = update.update(x, dc, volume, dv, target, exact_volume, extra, extra_grads)
+                else:
+                    x_new = update.update(x, dc, volume, dv, target, exact_volume)
             _tick(timer, "update", clock)  # includes the exact-volume chain evaluations
             if not (np.isfinite(c) and np.all(np.isfinite(x_new))):
                 raise FloatingPointError(f"non-finite objective or design at iteration {it}")

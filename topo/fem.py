@@ -218,6 +218,13 @@ class Model:
         _tick(timer, "sensitivities", clock)
         return Analysis(u, compliances, energies, mag.max(axis=0), vm)
 
+    def resolve(self, rhs: np.ndarray) -> np.ndarray:
+        """K⁻¹ rhs with the matrix of the last analysis (adjoint solves); full-size
+        vectors, zero on the fixed dofs."""
+        out = np.zeros_like(rhs)
+        out[self.free] = self.solver.resolve(rhs[self.free]).reshape(len(self.free), -1)
+        return out
+
     def _von_mises(self, ue: np.ndarray) -> np.ndarray:
         mat = self.problem.material
         b = centre_strain_displacement(self.dim, self.grid.h)

@@ -167,4 +167,11 @@ class MultigridCG:
         if self.iterations >= 500:
             raise FloatingPointError("multigrid-CG did not converge in 500 iterations")
         self.last = x
+        self._k = k
+        return x
+
+    def resolve(self, rhs: np.ndarray) -> np.ndarray:
+        """Solve with the matrix and hierarchy of the last `solve` (adjoint loads)."""
+        rhs = np.asarray(rhs, dtype=float).reshape(self._k.shape[0], -1)
+        x, _ = pcg(self._k, rhs, self.hierarchy.vcycle, None, self.rtol)
         return x

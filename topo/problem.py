@@ -110,6 +110,7 @@ class Optimization:
     min_stiffness: float = 1e-9  # E_min / E0 of modified SIMP
     solver: str = "auto"
     checkpoint_interval: int = 10  # iterations between checkpoint.npz saves
+    stress_limit: float | None = None  # MPa, on the corrected p-norm of the relaxed stress
 
 
 @dataclass(frozen=True)
@@ -454,6 +455,10 @@ class _Parser:
             kw["tolerance"] = num("tolerance", positive=True)
         if "min_stiffness" in d:
             kw["min_stiffness"] = num("min_stiffness", lo=1e-12, hi=0.1)
+        if "stress_limit" in d:
+            kw["stress_limit"] = num("stress_limit", positive=True)
+            if kw.get("optimizer", "oc") != "mma":
+                self.fail("optimization.stress_limit", "a stress constraint needs optimizer = \"mma\"")
         if "checkpoint_interval" in d:
             kw["checkpoint_interval"] = self.integer(d["checkpoint_interval"], "optimization.checkpoint_interval")
         if "solver" in d:

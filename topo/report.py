@@ -9,8 +9,11 @@ SOLID = 0.5  # ρ at or above which an element counts as printed material
 
 CAUTION = ("Concept design only. Verify by qualified analysis and physical testing "
            "under the applicable codes and licensed engineering practice before use.")
-STRESS_NOTE = ("von Mises stress of the solid material at element centres, elements with "
-               "density >= 0.5; peaks at point loads and supports depend on the mesh.")
+STRESS_NOTE = ("max_von_mises_MPa: von Mises stress of the solid material at element centres, "
+               "elements with density >= 0.5; peak_relaxed_stress_MPa: the largest density^0.5 "
+               "times that stress over all elements (what a stress_limit constrains); safety "
+               "factors are yield strength over max_von_mises_MPa. Peaks at point loads, supports "
+               "and re-entrant corners depend on the mesh.")
 
 
 def summarize(result, analysis_only: bool = False) -> dict:
@@ -21,14 +24,19 @@ def summarize(result, analysis_only: bool = False) -> dict:
     solid = rho >= SOLID
     weights = np.array([c.weight for c in problem.load_cases])
     vm = np.where(solid[:, None], a.von_mises, 0.0)
+    relaxed = rho[:, None] ** 0.5 * a.von_mises  # the qp-relaxed measure of stress.py
+    yield_strength = mat.yield_strength
     cases = []
     for i, case in enumerate(problem.load_cases):
+        peak_i = float(vm[:, i].max()) if solid.any() else None
         cases.append({
             "name": case.name,
             "weight": case.weight,
             "compliance_Nmm": float(a.compliances[i]),
             "max_displacement_mm": float(a.max_displacement[i]),
-            "max_von_mises_MPa": float(vm[:, i].max()) if solid.any() else None,
+            "max_von_mises_MPa": peak_i,
+            "peak_relaxed_stress_MPa": float(relaxed[:, i].max()),
+            "safety_factor": (yield_strength / peak_i) if yield_strength and peak_i else None,
         })
     peak = max((c["max_von_mises_MPa"] or 0.0) for c in cases) if solid.any() else None
     volume_mm3 = dom.element_volume * float(rho.sum())
@@ -53,6 +61,9 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "compliance_Nmm": float(weights @ a.compliances),
         "load_cases": cases,
         "max_von_mises_MPa": peak,
+        "safety_factor": (yield_strength / peak) if yield_strength and peak else None,
+        "stress_limit_MPa": problem.optimization.stress_limit,
+        "peak_relaxed_stress_MPa": float(relaxed.max()),
         "stress_note": STRESS_NOTE,
         "iterations": len(result.history),
         "converged": bool(result.converged),
