@@ -62,11 +62,12 @@ def test_restriction_is_the_transpose_and_the_vcycle_is_symmetric():
     d = beam_problem(3, [16.0, 8.0, 8.0], 1.0, solver="iterative")
     m = Model(problem_from_dict(d))
     rho = np.random.default_rng(1).uniform(1e-3, 1.0, m.grid.n_elements)
-    h = Hierarchy(m.grid.shape, m.free, coarse_dofs=200)
+    n = m.grid.n_dofs  # the iterative solver works on the full dof space
+    h = Hierarchy(m.grid.shape, np.arange(n), coarse_dofs=200)
     assert h.levels >= 3
     h.update(m.stiffness(m.moduli(rho)))
     rng = np.random.default_rng(2)
-    a, b = rng.normal(size=(len(m.free), 1)), rng.normal(size=(len(m.free), 1))
+    a, b = rng.normal(size=(n, 1)), rng.normal(size=(n, 1))
     # ⟨M a, b⟩ = ⟨a, M b⟩: needed for CG; holds when restriction is Pᵀ and the
     # smoothing before and after the coarse correction mirror each other.
     assert np.isclose((h.vcycle(a).T @ b).item(), (a.T @ h.vcycle(b)).item(), rtol=1e-9)
@@ -110,3 +111,21 @@ def test_pcg_warm_start_needs_fewer_iterations():
     cold = m.solver.iterations
     m.analyze(rho * 1.01)
     assert m.solver.iterations < cold
+
+
+@pytest.mark.parametrize("dim", [2, 3])
+def test_stencil_assembly_equals_the_sparse_pattern_assembly(dim):
+    # two independent assemblies of the same matrix: the fixed-pattern one used by
+    # the direct solver (free dofs, lower triangle) and the node-stencil one of the
+    # iterative solver (full space, supports as identity rows)
+    from topo.stencil import StencilAssembly
+
+    d = beam_problem(dim, [5.0, 3.0] if dim == 2 else [4.0, 3.0, 2.0], 1.0)
+    m = Model(problem_from_dict(d, {"optimization.solver": "direct"}))
+    e = m.moduli(np.random.default_rng(0).uniform(0.1, 1, m.grid.n_elements))
+    full = StencilAssembly(m.grid, m.ke, m._fixed).matrix(e).toarray()
+    lower = m.stiffness(e).toarray()
+    assert np.allclose(full[np.ix_(m.free, m.free)], lower + np.tril(lower, -1).T, atol=1e-12)
+    fixed = m.fixed_dofs
+    assert np.array_equal(full[fixed][:, fixed], np.eye(len(fixed)))
+    assert not full[fixed][:, m.free].any() and not full[m.free][:, fixed].any()

@@ -129,6 +129,21 @@ def _child(fn, args, queue) -> None:
         queue.put({"error": repr(exc)})
 
 
+def case_scale(shape: tuple[int, int, int], iterations: int) -> dict:
+    """The 3D scale target: a full run of `iterations` design iterations, wall time
+    from problem to result, setup included."""
+    start = time.perf_counter()
+    out = _run(cantilever_3d(*shape), iterations)
+    out["wall_s"] = time.perf_counter() - start
+    out.pop("result")
+    out.pop("compliance")
+    return out
+
+
+# Run only when named with --case: it takes about half an hour on two cores.
+ON_REQUEST = {"scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100))}
+
+
 def cases(quick: bool) -> dict:
     plan = {"mbb-2d-300x100": (case_mbb, (quick,)),
             "cantilever-3d-48x24x24": (case_cantilever, ((48, 24, 24), quick))}
@@ -143,7 +158,9 @@ def run_benchmarks(quick: bool = False, only: list[str] | None = None, echo=prin
     ctx = mp.get_context("fork")
     report = {"machine": {"python": platform.python_version(), "cpus": mp.cpu_count(),
                           "platform": platform.platform()}, "quick": quick, "cases": {}}
-    for name, (fn, args) in cases(quick).items():
+    plan = cases(quick)
+    plan.update({k: v for k, v in ON_REQUEST.items() if only and k in only})
+    for name, (fn, args) in plan.items():
         if only and name not in only:
             continue
         echo(f"running {name} …")
@@ -175,7 +192,8 @@ def format_case(name: str, r: dict) -> str:
                      f"compliance differs by {100 * r['compliance_relative_difference']:.3f} %; "
                      f"peak memory {r['peak_memory_MB']:.0f} MB")
         return "\n".join(lines)
-    line = (f"{name}: {r['solver']}, {r['iterations']} iterations, {r['per_iteration_s']:.3f} s/iteration "
+    line = (f"{name}: {r['solver']}, {r['iterations']} iterations"
+            + (f" in {r['wall_s']:.0f} s wall" if "wall_s" in r else "") + f", {r['per_iteration_s']:.3f} s/iteration "
             f"({_phases(r)}); solver iterations {r['solver_iterations']:.1f}; "
             f"first iteration {r['first_iteration_s']:.2f} s; setup {r['setup_s']:.1f} s; peak memory {r['peak_memory_MB']:.0f} MB")
     if "reference" in r:

@@ -71,7 +71,15 @@ class Model:
         self.free = np.flatnonzero(~self._fixed)
         self.solver = (solver_factory or (lambda shape, free: make_solver(
             problem.optimization.solver, shape, free)))(grid.shape, self.free)
-        self._build_pattern(full=self.solver.full_matrix)
+        # The iterative solver works on the full dof space with node-stencil
+        # assembly; the direct one on the free dofs with a fixed sparse pattern.
+        self.full_space = getattr(self.solver, "full_space", False)
+        if self.full_space:
+            from .stencil import StencilAssembly
+
+            self._stencil = StencilAssembly(grid, self.ke, self._fixed)
+        else:
+            self._build_pattern(full=self.solver.full_matrix)
 
     # ------------------------------------------------------------------ problem → sets
     def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
@@ -181,6 +189,8 @@ class Model:
     def stiffness(self, moduli: np.ndarray) -> sp.spmatrix:
         """Reduced stiffness for element modulus factors E/E0: the lower triangle
         (CSC) for the direct solver, the full matrix (CSR) for the iterative one."""
+        if self.full_space:
+            return self._stencil.matrix(moduli)
         data = self._scatter @ moduli
         return self._format((data, self._indices, self._indptr), shape=(self._n_free,) * 2)
 
@@ -204,7 +214,13 @@ class Model:
         k = self.stiffness(self.moduli(density))
         clock = _tick(timer, "assembly", clock)
         u = np.zeros_like(self.loads)
-        u[self.free] = self.solver.solve(k, self.loads[self.free]).reshape(len(self.free), -1)
+        if self.full_space:
+            f = self.loads.copy()
+            f[self._fixed] = 0.0  # a load on a fixed dof goes to the support
+            u[:] = self.solver.solve(k, f).reshape(u.shape)
+            u[self._fixed] = 0.0
+        else:
+            u[self.free] = self.solver.solve(k, self.loads[self.free]).reshape(len(self.free), -1)
         if not np.all(np.isfinite(u)):
             raise FloatingPointError("the linear solve returned non-finite displacements")
         clock = _tick(timer, "solve", clock)
@@ -222,6 +238,12 @@ class Model:
         """K⁻¹ rhs with the matrix of the last analysis (adjoint solves); full-size
         vectors, zero on the fixed dofs."""
         out = np.zeros_like(rhs)
+        if self.full_space:
+            r = rhs.copy()
+            r[self._fixed] = 0.0
+            out[:] = self.solver.resolve(r).reshape(out.shape)
+            out[self._fixed] = 0.0
+            return out
         out[self.free] = self.solver.resolve(rhs[self.free]).reshape(len(self.free), -1)
         return out
 

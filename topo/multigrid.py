@@ -147,13 +147,16 @@ def pcg(a: sp.csr_matrix, b: np.ndarray, precondition, x0: np.ndarray | None = N
 
 class MultigridCG:
     """CG preconditioned by one multigrid V-cycle, warm-started from the last solve.
-    Takes the full symmetric matrix (CSR) of the free dofs."""
+    Works on the full dof space (supports imposed as identity rows, see
+    stencil.py), so every level is a whole structured grid."""
 
     full_matrix = True
+    full_space = True
 
-    def __init__(self, shape: tuple[int, ...], free: np.ndarray, rtol: float = 1e-6,
+    def __init__(self, shape: tuple[int, ...], free: np.ndarray | None = None, rtol: float = 1e-6,
                  coarse_dofs: int = 15000):
-        self.hierarchy = Hierarchy(shape, free, coarse_dofs)
+        n_dofs = len(shape) * int(np.prod([n + 1 for n in shape]))
+        self.hierarchy = Hierarchy(shape, np.arange(n_dofs), coarse_dofs)
         self.rtol = rtol
         self.last: np.ndarray | None = None
         self.iterations = 0
