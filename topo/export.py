@@ -173,14 +173,17 @@ def write_mesh(mesh: meshing.TriMesh, path: Path, fmt: str = "stl") -> None:
     if fmt not in MESH_FORMATS:
         raise ValueError(f"unknown mesh format {fmt!r}; choose one of {', '.join(MESH_FORMATS)}")
     m = meshio.Mesh(mesh.vertices, [("triangle", mesh.faces.astype(np.int32))])
+    _meshio_write(m, path, fmt, **({} if fmt == "obj" else {"binary": True}))
+
+
+def _meshio_write(m, path: Path, fmt: str, **options) -> None:
+    """meshio.write through a temporary name in the same folder, then rename."""
+    import meshio
+
     tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
     try:
-        if fmt == "stl":
-            meshio.write(tmp, m, file_format="stl", binary=True)
-        elif fmt == "ply":
-            meshio.write(tmp, m, file_format="ply", binary=True)
-        else:
-            meshio.write(tmp, m, file_format="obj")
+        meshio.write(tmp, m, file_format=fmt, **options)
+        os.chmod(tmp, 0o666 & ~_UMASK)
         os.replace(tmp, path)
     finally:
         if tmp.exists():
@@ -210,13 +213,7 @@ def write_fields(result, path: Path) -> None:
         cell_data[f"von_mises_{_safe(case.name)}"] = [a.von_mises[:, i]]
     cell_data["von_mises_max"] = [a.von_mises.max(axis=1)]
     m = meshio.Mesh(pts, [(cell_type, grid.element_nodes)], point_data=point_data, cell_data=cell_data)
-    tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
-    try:
-        meshio.write(tmp, m, file_format="vtu")
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    _meshio_write(m, path, "vtu")
 
 
 # Order matters: summary.json last marks a complete folder.
