@@ -77,14 +77,14 @@ class _MMADesign:
     case and the material constraint; c₁ is the first iteration's value."""
 
     def __init__(self, active: np.ndarray, n_cases: int, worst: bool, move: float,
-                 extra_constraints: int = 0):
+                 extra_constraints: int = 0, globally_convergent: bool = False):
         n = int(active.sum()) + (1 if worst else 0)
         m = 1 + (n_cases if worst else 0) + extra_constraints
         self.stress_correction = None
         lo, hi = np.zeros(n), np.ones(n)
         if worst:
             hi[-1] = 100.0  # t, in units of the first iteration's largest compliance
-        self.mma = MMA(n, m, lo, hi, move=move)
+        self.mma = MMA(n, m, lo, hi, move=move, globally_convergent=globally_convergent)
         self.active, self.worst = active, worst
         self.scale = None
         self.t = None
@@ -109,14 +109,23 @@ class _MMADesign:
         sc = state.get("stress_correction")
         self.stress_correction = None if sc is None or np.isnan(sc) else float(sc)
 
-    def update(self, x, dc, volume, dv, target, exact_volume=None, extra=(), extra_grads=()):
-        """extra: further constraint values g ≤ 0 with their gradients (full vectors)."""
+    def update(self, x, dc, volume, dv, target, exact_volume=None, extra=(), extra_grads=(),
+               objective: float = 0.0, evaluate=None):
+        """extra: further constraint values g ≤ 0 with their gradients (full vectors);
+        objective and evaluate(x_full) → (objective, material, extra) for GCMMA."""
         if self.scale is None:
             self.scale = float(abs(dc[self.active] @ x[self.active])) or 1.0
         act = self.active
         f = np.array([volume / target - 1.0] + list(extra))
         df = np.array([dv[act] / target] + [g[act] for g in extra_grads])
-        xa = self.mma.update(x[act], dc[act] / self.scale, f, df)
+        scaled = None
+        if evaluate is not None:
+            def scaled(xa_candidate):
+                full = x.copy()
+                full[act] = xa_candidate
+                c, material, values = evaluate(full)
+                return c / self.scale, np.array([material / target - 1.0] + list(values))
+        xa = self.mma.update(x[act], dc[act] / self.scale, f, df, objective / self.scale, scaled)
         out = x.copy()
         out[act] = xa
         return out
@@ -248,11 +257,24 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
         from .stress import StressMeasure
 
         stress = StressMeasure(model)
-    if opt.optimizer == "mma":
+    if opt.optimizer in ("mma", "gcmma"):
         update = _MMADesign(active, len(weights), opt.objective == "worst_case", opt.move_limit,
-                            extra_constraints=1 if stress else 0)
+                            extra_constraints=1 if stress else 0,
+                            globally_convergent=opt.optimizer == "gcmma")
     else:
         update = OptimalityCriteria(active, opt.move_limit)
+
+    def evaluate(xc: np.ndarray) -> tuple[float, float, list]:
+        """Objective, material use and extra constraints of a candidate design (the
+        inner iterations of GCMMA); the stress correction stays as it is."""
+        r = chain.forward(xc)
+        a = model.analyze(r, stresses=False)
+        values = []
+        if stress is not None:
+            values.append(update.stress_correction * stress.aggregate(r, a, gradient=False)[0]
+                          / opt.stress_limit - 1.0)
+        return float(weights @ a.compliances), float(dv_drho @ r), values
+
     # A projection or an overhang layer makes the volume nonlinear in x: meet it
     # exactly at every step.
     exact_volume = None if chain.linear else (lambda xc: float(dv_drho @ chain.forward(xc)))
@@ -299,7 +321,12 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
                 clock = _tick(timer, "sensitivities", clock)
                 dc, dv, *extra_grads = chain.backward_many(x, [dc_drho, dv_drho] + extra_grads)
                 clock = _tick(timer, "transforms", clock)
-                if extra:
+                if opt.optimizer == "gcmma":
+                    # the inner iterations solve at candidate designs; the next
+                    # iteration refactorises (or warm-starts CG) at the accepted one
+                    x_new = update.update(x, dc, volume, dv, target, None, extra, extra_grads,
+                                          objective=c, evaluate=evaluate)
+                elif extra:
                     x_new = update.update(x, dc, volume, dv, target, exact_volume, extra, extra_grads)
                 else:
                     x_new = update.update(x, dc, volume, dv, target, exact_volume)

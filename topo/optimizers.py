@@ -138,19 +138,28 @@ class MMA:
     variables with x(λ) in closed form — by L-BFGS-B. Infeasible subproblems are
     made solvable with the elastic variables y_i (cost c_i y_i + ½ y_i², c = 1000)
     of the 1987 paper's extended form; with a_i = 0 the z variable drops out.
+
+    With `globally_convergent` the step is GCMMA (Svanberg 2002, SIAM J. Optim.
+    12:555-573): the approximations carry a convexity term ρ_i/(xmax − xmin) each,
+    and inner iterations re-solve with larger ρ_i until every approximation is
+    conservative (f̃_i(x̂) ≥ f_i(x̂)) at the candidate, which needs one more
+    evaluation of the functions per inner iteration (`evaluate`).
     """
 
     def __init__(self, n: int, m: int, xmin: np.ndarray, xmax: np.ndarray, move: float = 0.2,
-                 asy_init: float = 0.5, asy_incr: float = 1.2, asy_decr: float = 0.7):
+                 asy_init: float = 0.5, asy_incr: float = 1.2, asy_decr: float = 0.7,
+                 globally_convergent: bool = False, max_inner: int = 15):
         self.n, self.m = n, m
         self.xmin, self.xmax = np.asarray(xmin, float), np.asarray(xmax, float)
         self.move, self.asy_init, self.asy_incr, self.asy_decr = move, asy_init, asy_incr, asy_decr
+        self.globally_convergent, self.max_inner = globally_convergent, max_inner
         self.xold1 = self.xold2 = None
         self.low = self.upp = None
         self.iteration = 0
         self.c = np.full(m, 1000.0)
         self.d = np.ones(m)
         self.lam = np.zeros(m)
+        self.inner_iterations = 0
 
     _STATE = ("xold1", "xold2", "low", "upp", "lam")
 
@@ -164,9 +173,7 @@ class MMA:
             setattr(self, k, state[k].copy() if k in state else None)
         self.iteration = int(state["iteration"])
 
-    def update(self, x: np.ndarray, df0: np.ndarray, f: np.ndarray, df: np.ndarray) -> np.ndarray:
-        """x (n,), df0 (n,), constraint values f (m,), gradients df (m, n) → new x."""
-        self.iteration += 1
+    def _asymptotes(self, x: np.ndarray) -> None:
         span = self.xmax - self.xmin
         if self.iteration <= 2:
             self.low = x - self.asy_init * span
@@ -178,21 +185,32 @@ class MMA:
             self.upp = x + factor * (self.upp - self.xold1)
             self.low = np.clip(self.low, x - 10 * span, x - 0.01 * span)
             self.upp = np.clip(self.upp, x + 0.01 * span, x + 10 * span)
+
+    def _approximation(self, x, g, rho):
+        """p, q of one function: MMA's form with the convexity term ρ/(xmax − xmin)."""
+        span = np.maximum(self.xmax - self.xmin, 1e-12)
+        ux, xl = self.upp - x, x - self.low
+        if self.globally_convergent:
+            p = ux**2 * (1.001 * np.maximum(g, 0) + 0.001 * np.maximum(-g, 0) + rho / span)
+            q = xl**2 * (0.001 * np.maximum(g, 0) + 1.001 * np.maximum(-g, 0) + rho / span)
+        else:
+            p = ux**2 * (np.maximum(g, 0) + 0.001 * np.abs(g) + rho / span)
+            q = xl**2 * (np.maximum(-g, 0) + 0.001 * np.abs(g) + rho / span)
+        return p, q
+
+    def _subproblem(self, x, df0, f0, f, df, rho):
+        """Solve the approximate subproblem; returns x̂ and the approximations' values
+        there (objective first)."""
+        span = self.xmax - self.xmin
         alpha = np.maximum.reduce([self.low + 0.1 * (x - self.low), x - self.move * span, self.xmin])
         beta = np.minimum.reduce([self.upp - 0.1 * (self.upp - x), x + self.move * span, self.xmax])
         ux, xl = self.upp - x, x - self.low
-        reg = 1e-5 / np.maximum(span, 1e-12)
-
-        def pq(g):
-            p = ux**2 * (np.maximum(g, 0) + 0.001 * np.abs(g) + reg)
-            q = xl**2 * (np.maximum(-g, 0) + 0.001 * np.abs(g) + reg)
-            return p, q
-
-        p0, q0 = pq(df0)
-        pq_i = [pq(g) for g in np.atleast_2d(df)]
+        p0, q0 = self._approximation(x, df0, rho[0])
+        pq_i = [self._approximation(x, g, r) for g, r in zip(np.atleast_2d(df), rho[1:])]
         P = np.array([p for p, _ in pq_i])  # (m, n)
         Q = np.array([q for _, q in pq_i])
         b = (P / ux).sum(axis=1) + (Q / xl).sum(axis=1) - np.asarray(f, float)
+        r0 = f0 - (p0 / ux).sum() - (q0 / xl).sum()
 
         def primal(lam):
             pl, ql = p0 + lam @ P, q0 + lam @ Q
@@ -214,7 +232,41 @@ class MMA:
         res = minimize(neg_dual, self.lam, jac=True, method="L-BFGS-B",
                        bounds=[(0.0, None)] * self.m, options={"maxiter": 500, "gtol": 1e-10})
         self.lam = np.maximum(res.x, 0.0)
-        x_new = primal(self.lam)[0]
+        xs = primal(self.lam)[0]
+        approx0 = (p0 / (self.upp - xs)).sum() + (q0 / (xs - self.low)).sum() + r0
+        approx = (P / (self.upp - xs)).sum(axis=1) + (Q / (xs - self.low)).sum(axis=1) - b
+        return xs, np.concatenate([[approx0], approx])
+
+    def update(self, x: np.ndarray, df0: np.ndarray, f: np.ndarray, df: np.ndarray,
+               f0: float = 0.0, evaluate=None) -> np.ndarray:
+        """x (n,), df0 (n,), constraint values f (m,), gradients df (m, n) → new x.
+        GCMMA also needs the objective value f0 and evaluate(x̂) → (f0, f)."""
+        self.iteration += 1
+        self._asymptotes(x)
+        span = self.xmax - self.xmin
+        if not self.globally_convergent:
+            rho = np.full(self.m + 1, 1e-5)
+            x_new = self._subproblem(x, df0, f0, f, df, rho)[0]
+        else:
+            if evaluate is None:
+                raise ValueError("GCMMA needs evaluate(x) for its inner iterations")
+            grads = np.vstack([df0, np.atleast_2d(df)])
+            # initial ρ_i = 0.1/n Σ_j |∂f_i/∂x_j| (xmax_j − xmin_j) (Svanberg 2002, §5)
+            rho = np.maximum(0.1 / self.n * (np.abs(grads) * span).sum(axis=1), 1e-6)
+            self.inner_iterations = 0
+            for inner in range(self.max_inner + 1):
+                x_new, approx = self._subproblem(x, df0, f0, f, df, rho)
+                true0, true = evaluate(x_new)
+                values = np.concatenate([[true0], np.asarray(true, float)])
+                slack = values - approx
+                if np.all(slack <= 1e-9 * np.maximum(1.0, np.abs(values))) or inner == self.max_inner:
+                    break
+                self.inner_iterations += 1
+                # d(x̂) = Σ (u − l)(x̂ − x)² / ((u − x̂)(x̂ − l)(xmax − xmin))
+                dist = ((self.upp - self.low) * (x_new - x) ** 2 /
+                        ((self.upp - x_new) * (x_new - self.low) * np.maximum(span, 1e-12))).sum()
+                grow = np.where(slack > 0, np.minimum(1.1 * (rho + slack / max(dist, 1e-12)), 10 * rho), rho)
+                rho = grow
         self.xold2, self.xold1 = self.xold1, x.copy()
         if self.xold2 is None:
             self.xold2 = x.copy()

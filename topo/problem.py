@@ -443,7 +443,7 @@ class _Parser:
         if "beta_interval" in d:
             kw["beta_interval"] = self.integer(d["beta_interval"], "optimization.beta_interval")
         if "optimizer" in d:
-            kw["optimizer"] = self.string(d["optimizer"], "optimization.optimizer", ("oc", "mma"))
+            kw["optimizer"] = self.string(d["optimizer"], "optimization.optimizer", ("oc", "mma", "gcmma"))
         if kw.get("objective") == "worst_case" and kw.get("optimizer", "oc") != "mma":
             self.fail("optimization.objective", "worst_case needs optimizer = \"mma\" (the bound "
                       "formulation has one constraint per load case)")
@@ -457,8 +457,9 @@ class _Parser:
             kw["min_stiffness"] = num("min_stiffness", lo=1e-12, hi=0.1)
         if "stress_limit" in d:
             kw["stress_limit"] = num("stress_limit", positive=True)
-            if kw.get("optimizer", "oc") != "mma":
-                self.fail("optimization.stress_limit", "a stress constraint needs optimizer = \"mma\"")
+            if kw.get("optimizer", "oc") == "oc":
+                self.fail("optimization.stress_limit", "a stress constraint needs optimizer = \"mma\" "
+                          "or \"gcmma\"")
         if "checkpoint_interval" in d:
             kw["checkpoint_interval"] = self.integer(d["checkpoint_interval"], "optimization.checkpoint_interval")
         if "solver" in d:
