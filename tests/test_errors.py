@@ -203,7 +203,7 @@ tables = st.dictionaries(st.sampled_from(["size", "element_size", "thickness", "
                          leaf, max_size=5)
 
 
-@settings(max_examples=200, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=200, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
 @given(st.dictionaries(st.sampled_from(["name", "domain", "material", "optimization", "build",
                                         "support", "load_case", "passive", "extra"]),
                        st.one_of(leaf, tables, st.lists(tables, max_size=2)), max_size=8))
@@ -211,6 +211,8 @@ def test_random_problem_dictionaries_load_or_raise_problem_error(data):
     try:
         p = problem_from_dict(data)
     except ProblemError:
+        return
+    if np.prod(p.domain.shape) > 20000:  # valid but too slow for a unit test
         return
     try:
         Model(p)

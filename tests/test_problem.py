@@ -74,7 +74,7 @@ leaf = st.one_of(st.none(), st.booleans(), st.integers(-5, 50), st.floats(-1e3, 
                  st.text(max_size=6), st.lists(st.floats(-10, 60), max_size=4))
 
 
-@settings(max_examples=150, deadline=None)
+@settings(max_examples=150, deadline=None, derandomize=True)
 @given(st.dictionaries(st.sampled_from(["domain.size", "domain.element_size", "domain.thickness",
                                         "material.preset", "material.youngs_modulus",
                                         "optimization.volume_fraction", "optimization.penalty",

@@ -149,7 +149,7 @@ def cases(quick: bool) -> dict:
             "cantilever-3d-48x24x24": (case_cantilever, ((48, 24, 24), quick))}
     if not quick:
         plan["cantilever-3d-96x48x48"] = (case_cantilever, ((96, 48, 48), quick))
-        plan["compare-3d-60x30x30"] = (case_compare, ((60, 30, 30), 5))
+        plan["compare-3d-60x30x30"] = (case_compare, ((60, 30, 30), 10))
     return plan
 
 

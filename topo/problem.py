@@ -26,6 +26,7 @@ from typing import Any
 from .materials import PRESETS, Material, find_preset
 
 AXES = ("x", "y", "z")
+MAX_ELEMENTS = 20_000_000  # far above what fits in memory on a workstation
 DIRECTIONS = ("+x", "-x", "+y", "-y", "+z", "-z")
 FACES = tuple(f"{a}-{s}" for a in AXES for s in ("min", "max"))
 
@@ -372,6 +373,10 @@ class _Parser:
                 self.fail(f"domain.size[{i}]", f"{s} mm is not a whole number of {h} mm elements "
                           f"({n:.3f}); use {max(1, round(n)) * h:g} mm or another element_size")
             shape.append(int(round(n)))
+        total = math.prod(shape)
+        if total > MAX_ELEMENTS:
+            self.fail("domain.element_size", f"{total:,} elements is more than topo handles "
+                      f"({MAX_ELEMENTS:,}); use a coarser element_size")
         thickness = None
         if len(size) == 2:
             if "thickness" not in d:
