@@ -1,8 +1,10 @@
 """Memory and time estimates of a problem before the model is built.
 
 The coefficients are fitted to runs on the 2-core development machine (see
-DEVELOPERS.md, "Benchmarks"); they are estimates to catch a problem that cannot
-fit, not promises.
+DEVELOPERS.md, "Benchmarks"; the iterative ones to a 100×50×50 run: 2.6 GB peak,
+about 0.55 s per CG iteration and 6.5 s of assembly and Galerkin products per
+design iteration); they are estimates to catch a problem that cannot fit, not
+promises.
 """
 from __future__ import annotations
 
@@ -13,8 +15,10 @@ from .problem import Problem
 from .solvers import choose
 
 FACTOR_FLOPS_PER_S = 7e9  # CHOLMOD supernodal on two cores with OpenBLAS
-CG_SECONDS_PER_ENTRY = 2.6e-8  # one multigrid-CG iteration per stored matrix entry
-CG_ITERATIONS = 15  # typical with warm starts
+CG_SECONDS_PER_ENTRY = 8.6e-9  # one multigrid-CG iteration per stored matrix entry
+CG_ITERATIONS = 20  # typical with warm starts once the design has formed
+REBUILD_SECONDS_PER_ENTRY = 1.0e-7  # stencil assembly and Galerkin products, per iteration
+ITERATIVE_BYTES_PER_NODE = 10_000  # stencil blocks, CSR copy, hierarchy, one load case
 
 
 def estimate(problem: Problem) -> dict:
@@ -32,17 +36,16 @@ def estimate(problem: Problem) -> dict:
         flops = nnz_l**2 / n_dofs
         seconds = flops / FACTOR_FLOPS_PER_S + 2e-8 * nnz_l
         solver_bytes = 12 * nnz_l * 1.3  # factor and workspace
+        # Building the assembly pattern holds about 60 bytes per element entry at its
+        # peak (keys, sort, inverse, the scatter matrix); element fields are small.
+        memory = max(60 * entries, 12 * entries + solver_bytes + 400 * n_el)
     else:
-        entries = n_el * pairs
-        nnz_k = 81 * n_dofs  # 27 neighbouring nodes × 3 components
-        seconds = CG_ITERATIONS * CG_SECONDS_PER_ENTRY * nnz_k
-        solver_bytes = 12 * nnz_k * 1.4 + 10 * 8 * n_dofs * len(problem.load_cases)
-    # Building the assembly pattern holds about 60 bytes per element entry at its
-    # peak (keys, sort, inverse, the scatter matrix); element fields are small.
-    setup_bytes = 60 * entries
-    steady = 12 * entries + solver_bytes + 400 * n_el
+        nnz_k = 9 * dim * n_dofs if dim == 2 else 27 * dim * n_dofs  # neighbouring nodes × components
+        seconds = (CG_ITERATIONS * CG_SECONDS_PER_ENTRY + REBUILD_SECONDS_PER_ENTRY) * nnz_k
+        # CG keeps about ten work vectors per load case on top of the per-node storage
+        memory = ITERATIVE_BYTES_PER_NODE * (n_dofs // dim) + 80 * n_dofs * len(problem.load_cases)
     return {"solver": kind, "elements": n_el, "dofs": n_dofs,
-            "memory_bytes": int(max(setup_bytes, steady)), "seconds_per_iteration": float(seconds)}
+            "memory_bytes": int(memory), "seconds_per_iteration": float(seconds)}
 
 
 def available_memory() -> int | None:
