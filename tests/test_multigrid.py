@@ -13,7 +13,7 @@ from conftest import beam_problem
 def small_coarse_grid(shape, free):
     """Multigrid-CG with a coarsest grid small enough for test-sized problems to
     get several levels (the default stops coarsening at 15,000 dofs)."""
-    return MultigridCG(shape, free, coarse_dofs=300)
+    return MultigridCG(shape, coarse_dofs=300)
 
 
 def dense_stiffness(shape, h, e=None, nu=0.3):
@@ -63,7 +63,7 @@ def test_restriction_is_the_transpose_and_the_vcycle_is_symmetric():
     m = Model(problem_from_dict(d))
     rho = np.random.default_rng(1).uniform(1e-3, 1.0, m.grid.n_elements)
     n = m.grid.n_dofs  # the iterative solver works on the full dof space
-    h = Hierarchy(m.grid.shape, np.arange(n), coarse_dofs=200)
+    h = Hierarchy(m.grid.shape, coarse_dofs=200)
     assert h.levels >= 3
     h.update(m.stiffness(m.moduli(rho)))
     rng = np.random.default_rng(2)

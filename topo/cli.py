@@ -20,6 +20,11 @@ def _load(args):
     return load_problem(args.file, overrides)
 
 
+def _warn(problem) -> None:
+    for w in problem.warnings:
+        print(f"warning: {w}", file=sys.stderr)
+
+
 def _out_dir(args, problem) -> Path:
     return Path(args.out) if args.out else Path("outputs") / problem.name
 
@@ -52,8 +57,7 @@ def cmd_run(args) -> int:
             raise ProblemError("topo run", "FILE", "give a problem file, or --resume RUN_DIR")
         problem = _load(args)
         out = _out_dir(args, problem)
-    for w in problem.warnings:
-        print(f"warning: {w}", file=sys.stderr)
+    _warn(problem)
     g = problem.domain.shape
     est = estimate_resources(problem)
     print(f"{problem.name}: {problem.dim}D, {'×'.join(map(str, g))} = {int(np.prod(g))} elements "
@@ -121,8 +125,7 @@ def cmd_export(args) -> int:
 
 def cmd_check(args) -> int:
     problem = _load(args)
-    for w in problem.warnings:
-        print(f"warning: {w}", file=sys.stderr)
+    _warn(problem)
     rep = check(problem)
     if args.json:
         print(json.dumps(rep, indent=2))

@@ -109,7 +109,7 @@ class _MMADesign:
         sc = state.get("stress_correction")
         self.stress_correction = None if sc is None or np.isnan(sc) else float(sc)
 
-    def update(self, x, dc, volume, dv, target, exact_volume=None, extra=(), extra_grads=(),
+    def update(self, x, dc, volume, dv, target, extra=(), extra_grads=(),
                objective: float = 0.0, evaluate=None):
         """extra: further constraint values g ≤ 0 with their gradients (full vectors);
         objective and evaluate(x_full) → (objective, material, extra) for GCMMA."""
@@ -301,8 +301,7 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
             extra, extra_grads = [], []
             if stress is not None:
                 # constraint c_k·σ_PN / σ_limit − 1 ≤ 0 with the adaptive correction c_k
-                pn, dpn = stress.aggregate(rho, analysis)
-                peak = float(stress.relaxed(rho, analysis).max())
+                pn, dpn, peak = stress.aggregate(rho, analysis)
                 update.correct_stress(peak / pn if pn > 0 else 1.0)
                 extra.append(update.stress_correction * pn / opt.stress_limit - 1.0)
                 extra_grads.append(update.stress_correction * dpn / opt.stress_limit)
@@ -321,15 +320,13 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
                 clock = _tick(timer, "sensitivities", clock)
                 dc, dv, *extra_grads = chain.backward_many(x, [dc_drho, dv_drho] + extra_grads)
                 clock = _tick(timer, "transforms", clock)
-                if opt.optimizer == "gcmma":
-                    # the inner iterations solve at candidate designs; the next
-                    # iteration refactorises (or warm-starts CG) at the accepted one
-                    x_new = update.update(x, dc, volume, dv, target, None, extra, extra_grads,
-                                          objective=c, evaluate=evaluate)
-                elif extra:
-                    x_new = update.update(x, dc, volume, dv, target, exact_volume, extra, extra_grads)
-                else:
+                if opt.optimizer == "oc":
                     x_new = update.update(x, dc, volume, dv, target, exact_volume)
+                else:
+                    # GCMMA's inner iterations solve at candidate designs; the next
+                    # iteration refactorises (or warm-starts CG) at the accepted one
+                    x_new = update.update(x, dc, volume, dv, target, extra, extra_grads, objective=c,
+                                          evaluate=evaluate if opt.optimizer == "gcmma" else None)
             _tick(timer, "update", clock)  # includes the exact-volume chain evaluations
             if not (np.isfinite(c) and np.all(np.isfinite(x_new))):
                 raise FloatingPointError(f"non-finite objective or design at iteration {it}")
@@ -409,7 +406,6 @@ def load_run(run_dir) -> Result:
     """A finished run folder (problem.json, density.npy, summary.json) as a Result,
     with a fresh analysis of its density, for re-export without re-optimising."""
     import json
-    from pathlib import Path
 
     from .problem import problem_from_dict
 

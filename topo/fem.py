@@ -79,7 +79,7 @@ class Model:
 
             self._stencil = StencilAssembly(grid, self.ke, self._fixed)
         else:
-            self._build_pattern(full=self.solver.full_matrix)
+            self._build_pattern()
 
     # ------------------------------------------------------------------ problem → sets
     def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
@@ -130,6 +130,7 @@ class Model:
     def _passives(self) -> tuple[np.ndarray, np.ndarray]:
         n = self.grid.n_elements
         masks = {"solid": np.zeros(n, dtype=bool), "void": np.zeros(n, dtype=bool)}
+        self.passive_elements: list[np.ndarray] = []  # per [[passive]], in file order
         src = self.problem.source
         for i, p in enumerate(self.problem.passives):
             key = f"passive[{i}]"
@@ -140,6 +141,7 @@ class Model:
                 raise ProblemError(src, f"{key}.region", "the region selects no elements "
                                    "(elements are selected by their centre)")
             masks[p.kind][elems] = True
+            self.passive_elements.append(elems)
             self.selections.append(Selection(key, p.kind, p.name, 0, len(elems)))
         both = masks["solid"] & masks["void"]
         if both.any():
@@ -156,16 +158,16 @@ class Model:
         return ~(self.solid | self.void)
 
     # ------------------------------------------------------------------- assembly
-    def _build_pattern(self, full: bool = False) -> None:
-        """Map element matrix entries to the entries of the reduced matrix: its lower
-        triangle in CSC order (for CHOLMOD) or, with `full`, all of it in CSR order.
-        Entries that are zero in k0 (no coupling in any element) are left out."""
+    def _build_pattern(self) -> None:
+        """Map element matrix entries to the lower triangle of the reduced matrix in
+        CSC order (for CHOLMOD). Entries that are zero in k0 (no coupling in any
+        element) are left out."""
         n_free = len(self.free)
         index = np.full(self.grid.n_dofs, -1, dtype=np.int64)
         index[self.free] = np.arange(n_free)
         edofs = index[self.grid.element_dofs]  # (ne, nde), -1 where fixed
         nde = self.ke.shape[0]
-        a, b = np.indices((nde, nde)).reshape(2, -1) if full else np.tril_indices(nde)
+        a, b = np.tril_indices(nde)
         nonzero = np.abs(self.ke[a, b]) > 1e-12 * np.abs(self.ke).max()
         a, b = a[nonzero], b[nonzero]
         r, c = edofs[:, a], edofs[:, b]  # (ne, n_pairs)
@@ -173,26 +175,23 @@ class Model:
         elem = np.broadcast_to(np.arange(len(edofs), dtype=np.int32)[:, None], r.shape)[keep]
         vals = np.broadcast_to(self.ke[a, b], r.shape)[keep]
         r, c = r[keep], c[keep]
-        if full:
-            major, minor = r, c  # CSR: row-major
-        else:
-            major, minor = np.minimum(r, c), np.maximum(r, c)  # lower triangle, CSC: column-major
+        col, row = np.minimum(r, c), np.maximum(r, c)  # lower triangle; k0 is symmetric
         del r, c
-        unique, entry = np.unique(major * n_free + minor, return_inverse=True)
+        unique, entry = np.unique(col * n_free + row, return_inverse=True)  # CSC order
         self._indices = (unique % n_free).astype(np.int32)
         self._indptr = np.searchsorted(unique // n_free, np.arange(n_free + 1)).astype(np.int32)
         self._scatter = sp.csr_matrix((vals, (entry.astype(np.int64), elem)),
                                       shape=(len(unique), len(edofs)))
         self._n_free = n_free
-        self._format = sp.csr_matrix if full else sp.csc_matrix
 
     def stiffness(self, moduli: np.ndarray) -> sp.spmatrix:
-        """Reduced stiffness for element modulus factors E/E0: the lower triangle
-        (CSC) for the direct solver, the full matrix (CSR) for the iterative one."""
+        """Stiffness for element modulus factors E/E0: the lower triangle of the
+        reduced matrix (CSC) for the direct solver, the full-space matrix with the
+        supports as identity rows (CSR) for the iterative one."""
         if self.full_space:
             return self._stencil.matrix(moduli)
         data = self._scatter @ moduli
-        return self._format((data, self._indices, self._indptr), shape=(self._n_free,) * 2)
+        return sp.csc_matrix((data, self._indices, self._indptr), shape=(self._n_free,) * 2)
 
     def moduli(self, density: np.ndarray) -> np.ndarray:
         opt = self.problem.optimization
@@ -213,14 +212,7 @@ class Model:
         clock = time.perf_counter()
         k = self.stiffness(self.moduli(density))
         clock = _tick(timer, "assembly", clock)
-        u = np.zeros_like(self.loads)
-        if self.full_space:
-            f = self.loads.copy()
-            f[self._fixed] = 0.0  # a load on a fixed dof goes to the support
-            u[:] = self.solver.solve(k, f).reshape(u.shape)
-            u[self._fixed] = 0.0
-        else:
-            u[self.free] = self.solver.solve(k, self.loads[self.free]).reshape(len(self.free), -1)
+        u = self._solve_with(lambda rhs: self.solver.solve(k, rhs), self.loads)
         if not np.all(np.isfinite(u)):
             raise FloatingPointError("the linear solve returned non-finite displacements")
         clock = _tick(timer, "solve", clock)
@@ -237,14 +229,20 @@ class Model:
     def resolve(self, rhs: np.ndarray) -> np.ndarray:
         """K⁻¹ rhs with the matrix of the last analysis (adjoint solves); full-size
         vectors, zero on the fixed dofs."""
+        return self._solve_with(self.solver.resolve, rhs)
+
+    def _solve_with(self, solve, rhs: np.ndarray) -> np.ndarray:
+        """Full-size solution of the system `solve` handles for full-size `rhs`:
+        on the free dofs for the direct solver; on the full space, with zero load on
+        the fixed dofs (a load there goes to the support), for the iterative one."""
         out = np.zeros_like(rhs)
         if self.full_space:
             r = rhs.copy()
             r[self._fixed] = 0.0
-            out[:] = self.solver.resolve(r).reshape(out.shape)
+            out[:] = solve(r).reshape(out.shape)
             out[self._fixed] = 0.0
-            return out
-        out[self.free] = self.solver.resolve(rhs[self.free]).reshape(len(self.free), -1)
+        else:
+            out[self.free] = solve(rhs[self.free]).reshape(len(self.free), -1)
         return out
 
     def _von_mises(self, ue: np.ndarray) -> np.ndarray:

@@ -47,26 +47,21 @@ def prolongation(shape: tuple[int, ...]) -> tuple[sp.csr_matrix, tuple[int, ...]
 
 
 class Hierarchy:
-    """Grid levels for a fixed set of free dofs; operators refreshed per design."""
+    """Grid levels over the full dof space of a grid of `shape` elements (supports
+    live in the matrix as identity rows); operators refreshed per design."""
 
-    def __init__(self, shape: tuple[int, ...], free: np.ndarray, coarse_dofs: int = 15000,
-                 smoothing: int = 2):
+    def __init__(self, shape: tuple[int, ...], coarse_dofs: int = 15000, smoothing: int = 2):
         self.smoothing = smoothing
         self.transfers: list[sp.csr_matrix] = []
-        keep = free
         level_shape = tuple(shape)
-        n_dofs = len(free)
+        n_dofs = len(shape) * int(np.prod([n + 1 for n in shape]))
         while n_dofs > coarse_dofs and min(level_shape) >= 2:
-            p, coarse_shape = prolongation(level_shape)
-            p = p[keep]  # fine rows: free (or kept) dofs only
-            used = np.flatnonzero(np.asarray(abs(p).sum(axis=0)).ravel() > 0)
-            p = p[:, used].tocsr()
+            p, level_shape = prolongation(level_shape)
             self.transfers.append(p)
-            keep = np.arange(p.shape[1])  # every kept coarse dof is free at its level
-            level_shape, n_dofs = coarse_shape, p.shape[1]
+            n_dofs = p.shape[1]
         self.operators: list[sp.csr_matrix] = []
         self.inv_diag: list[np.ndarray] = []
-        self.coarse = DirectSolver()
+        self.coarse: DirectSolver | None = None
 
     @property
     def levels(self) -> int:
@@ -150,13 +145,10 @@ class MultigridCG:
     Works on the full dof space (supports imposed as identity rows, see
     stencil.py), so every level is a whole structured grid."""
 
-    full_matrix = True
     full_space = True
 
-    def __init__(self, shape: tuple[int, ...], free: np.ndarray | None = None, rtol: float = 1e-6,
-                 coarse_dofs: int = 15000):
-        n_dofs = len(shape) * int(np.prod([n + 1 for n in shape]))
-        self.hierarchy = Hierarchy(shape, np.arange(n_dofs), coarse_dofs)
+    def __init__(self, shape: tuple[int, ...], rtol: float = 1e-6, coarse_dofs: int = 15000):
+        self.hierarchy = Hierarchy(shape, coarse_dofs)
         self.rtol = rtol
         self.last: np.ndarray | None = None
         self.iterations = 0

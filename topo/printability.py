@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
-SOLID = 0.5
+SOLID = 0.5  # ρ at or above which an element counts as printed material
 
 
 def directions(dim: int) -> tuple[str, ...]:
@@ -57,16 +57,7 @@ def shift(layer: np.ndarray, offset: tuple[int, ...], sign: int) -> np.ndarray:
 def window_sum(layer: np.ndarray) -> np.ndarray:
     """Σ over the support region of each cell, zero outside the domain. The offsets
     are symmetric, so this linear map is its own transpose."""
-    out = layer.copy()
-    if layer.ndim == 1:
-        out[1:] += layer[:-1]
-        out[:-1] += layer[1:]
-        return out
-    out[1:, :] += layer[:-1, :]
-    out[:-1, :] += layer[1:, :]
-    out[:, 1:] += layer[:, :-1]
-    out[:, :-1] += layer[:, 1:]
-    return out
+    return sum(shift(layer, o, +1) for o in support_offsets(layer.ndim))
 
 
 def unsupported_mask(solid: np.ndarray, direction: str) -> np.ndarray:

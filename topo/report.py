@@ -3,9 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .printability import printable_envelope, unsupported_by_direction
-
-SOLID = 0.5  # ρ at or above which an element counts as printed material
+from .printability import SOLID, printable_envelope, unsupported_by_direction
+from .stress import relax
 
 CAUTION = ("Concept design only. Verify by qualified analysis and physical testing "
            "under the applicable codes and licensed engineering practice before use.")
@@ -24,7 +23,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
     solid = rho >= SOLID
     weights = np.array([c.weight for c in problem.load_cases])
     vm = np.where(solid[:, None], a.von_mises, 0.0)
-    relaxed = rho[:, None] ** 0.5 * a.von_mises  # the qp-relaxed measure of stress.py
+    relaxed = relax(rho, a.von_mises)  # the measure a stress_limit constrains
     yield_strength = mat.yield_strength
     cases = []
     for i, case in enumerate(problem.load_cases):
@@ -83,11 +82,8 @@ def summarize(result, analysis_only: bool = False) -> dict:
 def _passive_report(result, solid: np.ndarray) -> list[dict]:
     """How much of each passive region the final design keeps solid. The overhang
     layer acts on passive solids too, so an unsupported part of one is not printed."""
-    from .regions import select_elements
-
     out = []
-    for i, p in enumerate(result.problem.passives):
-        elems = select_elements(p.region, result.model.grid)
+    for i, (p, elems) in enumerate(zip(result.problem.passives, result.model.passive_elements)):
         out.append({"key": f"passive[{i}]", "name": p.name, "kind": p.kind, "elements": int(len(elems)),
                     "solid_share": float(solid[elems].mean())})
     return out
@@ -99,14 +95,11 @@ def _unsupportable(model) -> list[dict]:
     problem = model.problem
     if problem.build is None:
         return []
-    from .regions import select_elements
-
     ok = printable_envelope(model.void.reshape(model.grid.shape), problem.build.direction).ravel()
     out = []
-    for i, p in enumerate(problem.passives):
+    for i, (p, elems) in enumerate(zip(problem.passives, model.passive_elements)):
         if p.kind != "solid":
             continue
-        elems = select_elements(p.region, model.grid)
         bad = int((~ok[elems]).sum())
         if bad:
             out.append({"key": f"passive[{i}]", "name": p.name, "unsupportable_elements": bad,

@@ -71,7 +71,6 @@ class DirectSolver:
         self._lu = None
         self.name = "cholmod" if self.use_cholmod else "superlu"
 
-    full_matrix = False  # takes the lower triangle
     iterations = 0
 
     def factorize(self, k_lower: sp.csc_matrix) -> None:
@@ -118,5 +117,5 @@ def make_solver(kind: str, shape: tuple[int, ...], free: np.ndarray):
     if choose(kind, len(shape), len(free)) == "iterative":
         from .multigrid import MultigridCG
 
-        return MultigridCG(shape, free)
+        return MultigridCG(shape)
     return DirectSolver()

@@ -22,6 +22,13 @@ import numpy as np
 
 from .elements import centre_strain_displacement, elasticity_matrix
 
+RELAXATION_EXPONENT = 0.5  # q of the qp-relaxation
+
+
+def relax(density: np.ndarray, von_mises: np.ndarray, q: float = RELAXATION_EXPONENT) -> np.ndarray:
+    """s = ρ^q σ_vm for element densities (n,) and stresses (n, n_cases)."""
+    return density[:, None] ** q * von_mises
+
 
 def von_mises_matrix(dim: int) -> np.ndarray:
     if dim == 2:
@@ -35,39 +42,40 @@ def von_mises_matrix(dim: int) -> np.ndarray:
 
 
 class StressMeasure:
-    def __init__(self, model, q: float = 0.5, p_norm: float = 8.0):
+    def __init__(self, model, q: float = RELAXATION_EXPONENT, p_norm: float = 8.0):
         self.model, self.q, self.p = model, q, p_norm
         mat, grid = model.problem.material, model.grid
         self.c = elasticity_matrix(grid.dim, mat.youngs_modulus, mat.poissons_ratio) @ \
             centre_strain_displacement(grid.dim, grid.h)  # σ = C u_e
         self.m = von_mises_matrix(grid.dim)
 
-    def _stresses(self, analysis) -> np.ndarray:
+    def _stresses(self, analysis) -> tuple[np.ndarray, np.ndarray]:
+        """Centre stresses σ (ne, nc, ns) and their von Mises values (ne, nc)."""
         ue = analysis.displacements[self.model.grid.element_dofs]  # (ne, nde, nc)
-        return np.einsum("sn,enc->ecs", self.c, ue)  # (ne, nc, ns)
+        sig = np.einsum("sn,enc->ecs", self.c, ue)
+        vm = np.sqrt(np.maximum(np.einsum("ecs,st,ect->ec", sig, self.m, sig), 0.0))
+        return sig, vm
 
     def relaxed(self, rho: np.ndarray, analysis) -> np.ndarray:
         """s_el = ρ_e^q σ_vm,el (MPa), shape (n_elements, n_cases)."""
-        sig = self._stresses(analysis)
-        vm = np.sqrt(np.maximum(np.einsum("ecs,st,ect->ec", sig, self.m, sig), 0.0))
-        return rho[:, None] ** self.q * vm
+        return relax(rho, self._stresses(analysis)[1], self.q)
 
     def aggregate(self, rho: np.ndarray, analysis, gradient: bool = True):
-        """σ_PN and, with `gradient`, dσ_PN/dρ (one adjoint solve per load case)."""
+        """(σ_PN, dσ_PN/dρ or None, max s): the aggregate, with `gradient` its
+        derivative (one adjoint solve per load case), and the true peak it estimates."""
         model = self.model
-        sig = self._stresses(analysis)
-        vm = np.sqrt(np.maximum(np.einsum("ecs,st,ect->ec", sig, self.m, sig), 0.0))
+        sig, vm = self._stresses(analysis)
         rq = rho[:, None] ** self.q
         s = rq * vm
-        smax = s.max()
+        smax = float(s.max())
         if smax <= 0:
-            return 0.0, np.zeros_like(rho) if gradient else None
+            return 0.0, np.zeros_like(rho) if gradient else None, 0.0
         # scaled by smax so that s^P cannot overflow or underflow
         ratio = s / smax
         total = float((ratio**self.p).sum())
         value = smax * total ** (1.0 / self.p)
         if not gradient:
-            return value, None
+            return value, None, smax
         w = total ** (1.0 / self.p - 1.0) * ratio ** (self.p - 1.0)  # ∂σ_PN/∂s
         safe = np.where(vm > 0, vm, 1.0)
         # d(ρ^q)/dρ is unbounded at ρ = 0 (void passive elements); there s = 0 and
@@ -85,4 +93,4 @@ class StressMeasure:
         le = lam[grid.element_dofs]  # (ne, nde, nc)
         ue = analysis.displacements[grid.element_dofs]
         coupling = np.einsum("enc,nm,emc->e", le, model.ke, ue)
-        return value, explicit - model.moduli_derivative(rho) * coupling
+        return value, explicit - model.moduli_derivative(rho) * coupling, smax

@@ -68,14 +68,12 @@ def row_of(params: dict, summary: dict, out_dir: str, ran: bool) -> dict:
     return row
 
 
-def _finished(raw: dict, params: dict, out_dir: Path) -> dict | None:
-    """The summary of a finished run of exactly this problem, if there is one."""
-    from . import problem_from_dict
-
+def _finished(expected: dict, out_dir: Path) -> dict | None:
+    """The summary of a finished run of exactly the resolved problem `expected`,
+    if there is one."""
     summary, resolved = out_dir / "summary.json", out_dir / "problem.json"
     if not (summary.exists() and resolved.exists()):
         return None
-    expected = problem_from_dict(raw, params).raw
     if json.loads(resolved.read_text()) != json.loads(json.dumps(expected)):
         return None
     return json.loads(summary.read_text())
@@ -97,16 +95,15 @@ def sweep(problem, vary: dict[str, list], jobs: int = 1, out: str | Path | None 
     """Run every combination of `vary` (dotted key → values) of `problem` (a Problem
     or a problem file). Writes one folder per run, sweep.csv and sweep.png under
     `out` (default outputs/NAME-sweep) and returns the rows in combination order."""
-    from . import load_problem
+    from . import load_problem, problem_from_dict
 
     if isinstance(problem, (str, Path)):
         problem = load_problem(problem)
     raw, source = problem.raw, problem.source
     combos = combinations(vary)
-    from . import problem_from_dict
-
-    for params in combos:  # validate every combination before running any
-        problem_from_dict(raw, params, source=source)
+    # validate every combination before running any; the resolved problems also
+    # tell finished runs from stale ones
+    resolved = [problem_from_dict(raw, params, source=source).raw for params in combos]
     root = Path(out) if out else Path("outputs") / f"{problem.name}-sweep"
     root.mkdir(parents=True, exist_ok=True)
     say = progress or (lambda text: None)
@@ -114,7 +111,7 @@ def sweep(problem, vary: dict[str, list], jobs: int = 1, out: str | Path | None 
     todo = []
     for i, params in enumerate(combos):
         folder = root / folder_name(params)
-        done = _finished(raw, params, folder)
+        done = _finished(resolved[i], folder)
         if done is not None:
             rows[i] = row_of(params, done, str(folder), ran=False)
             say(f"[{i + 1}/{len(combos)}] {folder.name}: already finished")

@@ -10,6 +10,8 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
+from .printability import from_build_frame, shift, support_offsets, to_build_frame, window_sum
+
 
 class Transform:
     # True when forward is affine in x: a volume constraint through it stays linear.
@@ -158,8 +160,6 @@ class OverhangFilter(Transform):
 
     def __init__(self, shape: tuple[int, ...], direction: str, p: float = 40.0,
                  eps: float = 1e-4, xi0: float = 0.5):
-        from .printability import support_offsets
-
         self.shape, self.direction = tuple(shape), direction
         self.p, self.eps = p, eps
         self.offsets = support_offsets(len(shape) - 1)
@@ -175,8 +175,6 @@ class OverhangFilter(Transform):
 
     def _layers(self, x):
         """Forward pass in the build frame, keeping what backward needs."""
-        from .printability import to_build_frame, window_sum
-
         blue = to_build_frame(x.reshape(self.shape), self.direction)
         printed = np.empty_like(blue)
         printed[0] = blue[0]
@@ -190,14 +188,10 @@ class OverhangFilter(Transform):
         return blue, printed, sums, supports
 
     def forward(self, x):
-        from .printability import from_build_frame
-
         printed = self._layers(x)[1]
         return np.ascontiguousarray(from_build_frame(printed, self.direction)).ravel()
 
     def backward(self, x, dfdy):
-        from .printability import from_build_frame, shift, to_build_frame
-
         blue, printed, sums, supports = self._layers(x)
         g = to_build_frame(dfdy.reshape(self.shape), self.direction).copy()
         dx = np.empty_like(blue)
