@@ -12,7 +12,7 @@ from conftest import beam_problem
 
 def small_coarse_grid(shape, free):
     """Multigrid-CG with a coarsest grid small enough for test-sized problems to
-    get several levels (the default stops coarsening at 15,000 dofs)."""
+    get several levels (the default stops coarsening at 40,000 dofs)."""
     return MultigridCG(shape, coarse_dofs=300)
 
 
@@ -74,6 +74,38 @@ def test_restriction_is_the_transpose_and_the_vcycle_is_symmetric():
     for p in h.transfers:
         u, v = rng.normal(size=p.shape[1]), rng.normal(size=p.shape[0])
         assert np.isclose((p @ u) @ v, u @ (p.T @ v))
+
+
+@pytest.mark.parametrize("dim,size", [(3, [5.0, 4.0, 3.0]), (3, [6.0, 4.0, 4.0]), (2, [7.0, 5.0])])
+def test_element_galerkin_equals_the_sparse_triple_product(dim, size):
+    # the element-by-element coarse operator against scipy's Pᵀ A P of the
+    # assembled fine matrix; odd and even sizes, a face support and a point support
+    # on a fine node that is not a coarse node
+    from topo.galerkin import ElementGalerkin
+
+    d = beam_problem(dim, size, 1.0, solver="iterative")
+    d["support"].append({"region": {"point": [3.0] + [1.0] * (dim - 1)}, "fix": ["y"]})
+    m = Model(problem_from_dict(d))
+    e = m.moduli(np.random.default_rng(0).uniform(1e-3, 1.0, m.grid.n_elements))
+    a = m.stiffness(e)
+    p, _ = prolongation(m.grid.shape)
+    reference = (p.T @ a @ p).toarray()
+    coarse = ElementGalerkin(m.grid, m.ke, m._fixed, p).matrix(e).toarray()
+    assert np.abs(coarse - reference).max() <= 1e-12 * np.abs(reference).max()
+
+
+def test_hierarchy_from_moduli_matches_the_sparse_hierarchy():
+    d = beam_problem(3, [16.0, 8.0, 8.0], 1.0, solver="iterative")
+    m = Model(problem_from_dict(d), solver_factory=small_coarse_grid)
+    e = m.moduli(np.random.default_rng(4).uniform(1e-3, 1.0, m.grid.n_elements))
+    k = m.stiffness(e)
+    by_elements = m.solver.hierarchy
+    assert by_elements.first is not None and by_elements.levels >= 3
+    by_elements.update(k, e)
+    sparse = Hierarchy(m.grid.shape, coarse_dofs=300)
+    sparse.update(k)
+    for ours, ref in zip(by_elements.operators, sparse.operators):
+        assert abs(ours - ref).max() <= 1e-12 * abs(ref).max()
 
 
 @pytest.mark.parametrize("contrast_field", ["random", "blocks"])

@@ -78,6 +78,8 @@ class Model:
             from .stencil import StencilAssembly
 
             self._stencil = StencilAssembly(grid, self.ke, self._fixed)
+            if hasattr(self.solver, "use_element_galerkin"):
+                self.solver.use_element_galerkin(grid, self.ke, self._fixed)
         else:
             self._build_pattern()
 
@@ -210,9 +212,13 @@ class Model:
         `stresses=False` skips the von Mises field (not needed inside the loop);
         `timer` accumulates seconds under 'assembly', 'solve' and 'sensitivities'."""
         clock = time.perf_counter()
-        k = self.stiffness(self.moduli(density))
+        moduli = self.moduli(density)
+        k = self.stiffness(moduli)
         clock = _tick(timer, "assembly", clock)
-        u = self._solve_with(lambda rhs: self.solver.solve(k, rhs), self.loads)
+        if self.full_space:
+            u = self._solve_with(lambda rhs: self.solver.solve(k, rhs, moduli), self.loads)
+        else:
+            u = self._solve_with(lambda rhs: self.solver.solve(k, rhs), self.loads)
         if not np.all(np.isfinite(u)):
             raise FloatingPointError("the linear solve returned non-finite displacements")
         clock = _tick(timer, "solve", clock)

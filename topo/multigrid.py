@@ -14,6 +14,13 @@ import scipy.sparse as sp
 
 from .solvers import DirectSolver
 
+# Coarsening stops at the first level with at most this many dofs, which CHOLMOD
+# factorises in well under a second. Coarser grids are cheaper to factorise but
+# resolve thin members so poorly that CG needs about twice the iterations (100×50×50
+# cantilever design, iteration 20: 68 CG iterations with a 2,688-dof coarsest grid,
+# 38 with the 15,288-dof one; DEVELOPERS.md).
+COARSE_DOFS = 40_000
+
 
 def prolongation_1d(n_elements: int) -> sp.csr_matrix:
     """Linear interpolation from the coarse nodes (every other fine node, the last
@@ -50,7 +57,7 @@ class Hierarchy:
     """Grid levels over the full dof space of a grid of `shape` elements (supports
     live in the matrix as identity rows); operators refreshed per design."""
 
-    def __init__(self, shape: tuple[int, ...], coarse_dofs: int = 15000, smoothing: int = 2):
+    def __init__(self, shape: tuple[int, ...], coarse_dofs: int = COARSE_DOFS, smoothing: int = 1):
         self.smoothing = smoothing
         self.transfers: list[sp.csr_matrix] = []
         level_shape = tuple(shape)
@@ -62,26 +69,44 @@ class Hierarchy:
         self.operators: list[sp.csr_matrix] = []
         self.inv_diag: list[np.ndarray] = []
         self.coarse: DirectSolver | None = None
+        self.first = None  # galerkin.ElementGalerkin for the first coarse level, if set
+        self._power_vectors: list[np.ndarray] = []
+        self._coarse_pattern: tuple = ()
 
     @property
     def levels(self) -> int:
         return len(self.transfers) + 1
 
-    def update(self, a: sp.csr_matrix) -> None:
-        """Galerkin operators and smoother diagonals for a new fine matrix."""
+    def update(self, a: sp.csr_matrix, moduli: np.ndarray | None = None) -> None:
+        """Galerkin operators and smoother diagonals for a new fine matrix; with the
+        element moduli it was assembled from and `first` set, the first coarse
+        operator comes element by element (the same matrix, several times faster)."""
         self.operators = [a]
-        for p in self.transfers:
-            a = (p.T @ (a @ p)).tocsr()
-            a = ((a + a.T) * 0.5).tocsr()  # remove round-off asymmetry before Cholesky
+        for level, p in enumerate(self.transfers):
+            if level == 0 and self.first is not None and moduli is not None:
+                a = self.first.matrix(moduli)
+            else:
+                a = (p.T @ (a @ p)).tocsr()
+                a = ((a + a.T) * 0.5).tocsr()  # remove round-off asymmetry before Cholesky
             self.operators.append(a)
         self.inv_diag = [1.0 / op.diagonal() for op in self.operators]
         # Jacobi damping ω = 4 / (3 λmax(D⁻¹A)) per level: it damps the upper half of
         # the spectrum evenly and keeps the smoother convergent whatever the contrast.
-        self.omegas = [4.0 / (3.0 * _lambda_max(op, d)) for op, d in zip(self.operators, self.inv_diag)]
-        # A fresh symbolic analysis: sparse sums drop entries that come out zero, so
-        # the coarse pattern can change from one design to the next.
-        self.coarse = DirectSolver()
-        self.coarse.factorize(sp.tril(self.operators[-1]).tocsc())
+        # The power iteration starts from the last design's eigenvector, which
+        # changes little from one design to the next.
+        warm = len(self._power_vectors) == len(self.operators)
+        estimates = [_lambda_max(op, d, self._power_vectors[i] if warm else None)
+                     for i, (op, d) in enumerate(zip(self.operators, self.inv_diag))]
+        self.omegas = [4.0 / (3.0 * lam) for lam, _ in estimates]
+        self._power_vectors = [v for _, v in estimates]
+        # The coarse pattern can change from one design to the next (sparse sums
+        # drop entries that come out zero): a new symbolic analysis only then.
+        lower = sp.tril(self.operators[-1]).tocsc()
+        pattern = (lower.indptr, lower.indices)
+        if self.coarse is None or not all(np.array_equal(a, b) for a, b in zip(pattern, self._coarse_pattern)):
+            self.coarse = DirectSolver()
+            self._coarse_pattern = (pattern[0].copy(), pattern[1].copy())
+        self.coarse.factorize(lower)
 
     def vcycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
         """One V-cycle for A z = r (r has one column per load case)."""
@@ -99,16 +124,20 @@ class Hierarchy:
         return z
 
 
-def _lambda_max(a: sp.csr_matrix, inv_diag: np.ndarray, iterations: int = 12) -> float:
-    """Largest eigenvalue of D⁻¹A by power iteration (from a fixed start vector, so
-    runs are repeatable), raised 5 % as the iteration approaches from below."""
-    v = np.random.default_rng(0).standard_normal(a.shape[0])
+def _lambda_max(a: sp.csr_matrix, inv_diag: np.ndarray, start: np.ndarray | None = None,
+                cold: int = 12, warm: int = 6) -> tuple[float, np.ndarray]:
+    """Largest eigenvalue of D⁻¹A by power iteration, raised 5 % as the iteration
+    approaches from below, and the last iterate (normalised). Without `start` it
+    runs `cold` steps from a fixed random vector (so runs are repeatable), with it
+    `warm` steps."""
+    v = np.random.default_rng(0).standard_normal(a.shape[0]) if start is None else start
     lam = 1.0
-    for _ in range(iterations):
+    for _ in range(cold if start is None else warm):
         w = inv_diag * (a @ v)
-        lam = float(np.linalg.norm(w) / np.linalg.norm(v))
-        v = w
-    return 1.05 * lam
+        norm_w = np.linalg.norm(w)
+        lam = float(norm_w / np.linalg.norm(v))
+        v = w / norm_w
+    return 1.05 * lam, v
 
 
 def pcg(a: sp.csr_matrix, b: np.ndarray, precondition, x0: np.ndarray | None = None,
@@ -147,16 +176,24 @@ class MultigridCG:
 
     full_space = True
 
-    def __init__(self, shape: tuple[int, ...], rtol: float = 1e-6, coarse_dofs: int = 15000):
+    def __init__(self, shape: tuple[int, ...], rtol: float = 1e-6, coarse_dofs: int = COARSE_DOFS):
         self.hierarchy = Hierarchy(shape, coarse_dofs)
         self.rtol = rtol
         self.last: np.ndarray | None = None
         self.iterations = 0
         self.name = f"multigrid-cg ({self.hierarchy.levels} levels)"
 
-    def solve(self, k: sp.csr_matrix, rhs: np.ndarray) -> np.ndarray:
+    def use_element_galerkin(self, grid, ke: np.ndarray, fixed: np.ndarray) -> None:
+        """Form the first coarse operator from element moduli (see galerkin.py);
+        `solve` then needs the moduli the matrix was assembled from."""
+        if self.hierarchy.transfers:
+            from .galerkin import ElementGalerkin
+
+            self.hierarchy.first = ElementGalerkin(grid, ke, fixed, self.hierarchy.transfers[0])
+
+    def solve(self, k: sp.csr_matrix, rhs: np.ndarray, moduli: np.ndarray | None = None) -> np.ndarray:
         rhs = np.asarray(rhs, dtype=float).reshape(k.shape[0], -1)
-        self.hierarchy.update(k)
+        self.hierarchy.update(k, moduli)
         x0 = self.last if self.last is not None and self.last.shape == rhs.shape else None
         x, self.iterations = pcg(k, rhs, self.hierarchy.vcycle, x0, self.rtol)
         if self.iterations >= 500:

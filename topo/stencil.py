@@ -1,11 +1,19 @@
 """Assembly of the full stiffness matrix on a structured grid by node stencils.
 
-Every node couples only with the 3^dim nodes around it, so the matrix is stored as
-a block per (node, neighbour offset). An element's block between its corners a and
-b lands on node n_a(e) at the offset corner_b − corner_a; on the grid the nodes at
-corner a of all elements form one slice, so each entry of each (a, b) block is one
-vectorised update of a contiguous slice, with no sorting and no scatter matrix. Memory is O(nodes), about 2 kB per node in
-3D, against tens of bytes per element-matrix entry for a general sparse assembly.
+Every node couples only with the 3^dim nodes around it, so row (node n, component
+i) of the matrix holds one 3×3 (2×2) block per neighbour offset o. The elements
+that contribute to block (n, o) are those with n at some corner a and n + o at the
+corner b = a + o; so with E_a(n) the modulus of the element that has n at corner a
+(zero outside the grid), every row of the matrix is
+
+    K[n, (i, o, j)] = Σ_a E_a(n) · k0[(a, i), (a + o, j)],
+
+one dense product of an (nodes × corners) array with a constant (corners × row
+entries) matrix, written straight in CSR order: no sorting, no scatter matrix, no
+intermediate layout. Memory is O(nodes), about 2 kB per node in 3D, against tens of
+bytes per element-matrix entry for a general sparse assembly. Element matrices
+that differ per element (the coarse levels of multigrid) go through
+`from_entries`, which accumulates contiguous slices instead.
 
 Supports are imposed on the full dof space: rows and columns of fixed dofs are
 zeroed and their diagonal set to 1 (with zero load there), which keeps the grid
@@ -20,7 +28,7 @@ import scipy.sparse as sp
 
 
 class StencilAssembly:
-    def __init__(self, grid, ke: np.ndarray, fixed: np.ndarray):
+    def __init__(self, grid, ke: np.ndarray | None, fixed: np.ndarray):
         self.grid, self.ke = grid, ke
         dim = self.dim = grid.dim
         nshape = np.array(grid.node_shape)
@@ -28,51 +36,76 @@ class StencilAssembly:
         slot_of = {o: s for s, o in enumerate(self.offsets)}
         corners = grid.corners
         nc = len(corners)
-        # per corner a: the slots of all corners b, and k0's (a, b) blocks as (b, da, db)
+        # per corner a: the slot of every corner b
         self.slots = [np.array([slot_of[tuple(corners[b] - corners[a])] for b in range(nc)])
                       for a in range(nc)]
-        self.blocks_of = [np.stack([ke[dim * a:dim * a + dim, dim * b:dim * b + dim] for b in range(nc)])
-                          for a in range(nc)]
         n_nodes, n_slots = grid.n_nodes, len(self.offsets)
         idx = np.indices(tuple(nshape)).reshape(dim, -1).T  # (n_nodes, dim)
         nbr_idx = idx[:, None, :] + np.array(self.offsets)[None, :, :]
-        valid = np.all((nbr_idx >= 0) & (nbr_idx < nshape), axis=2)  # (n_nodes, n_slots)
         nbr = np.ravel_multi_index(tuple(np.clip(nbr_idx, 0, nshape - 1).transpose(2, 0, 1)), tuple(nshape))
-        # CSR layout: row (node, ca) lists slots in order, then cb; invalid slots dropped
-        mask = np.broadcast_to(valid[:, None, :, None], (n_nodes, dim, n_slots, dim))
-        self._mask = mask.reshape(n_nodes * dim, n_slots * dim)
+        # CSR layout: row (node, ca) lists every slot in order, then cb. Slots whose
+        # neighbour lies outside the grid are kept as explicit zeros (on the clipped
+        # neighbour's column; matrix-vector products and sums add them harmlessly),
+        # so that the rows computed below are the CSR data as they stand.
+        self.n = n = n_nodes * dim
+        width = n_slots * dim
+        index_type = np.int32 if n * width < 2**31 else np.int64  # what scipy would pick
         cols = (dim * nbr[:, None, :, None] + np.arange(dim)[None, None, None, :])
-        cols = np.broadcast_to(cols, (n_nodes, dim, n_slots, dim)).reshape(n_nodes * dim, -1)
-        self.indices = cols[self._mask].astype(np.int32)
-        counts = self._mask.sum(axis=1)
-        self.indptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int64)
-        rows = np.repeat(np.arange(n_nodes * dim), counts)
-        free = ~fixed
-        self._keep = free[rows] & free[self.indices]
-        self._fixed_diag = np.flatnonzero((rows == self.indices) & fixed[rows])
-        self.n = n_nodes * dim
-        # slot-major so that every update below runs over contiguous node slices
-        self._blocks = np.empty((n_slots, dim, dim) + tuple(nshape))
+        self.indices = np.broadcast_to(cols, (n_nodes, dim, n_slots, dim)).reshape(-1).astype(index_type)
+        self.indptr = np.arange(0, n * width + 1, width, dtype=index_type)
+        fixed_dofs = np.flatnonzero(fixed)
+        # entries in rows or columns of fixed dofs are zeroed, their diagonal set to 1
+        fixed_rows = (fixed_dofs[:, None] * width + np.arange(width)).ravel()
+        self._drop = np.union1d(fixed_rows, np.flatnonzero(fixed[self.indices]))
+        centre = self.offsets.index((0,) * dim)
+        self._fixed_diag = fixed_dofs * width + centre * dim + fixed_dofs % dim
+        self._blocks = None  # from_entries' accumulator, made on first use
+        if ke is not None:
+            # row entries (i, slot, j) of a node that sits at corner a of an element
+            row = np.zeros((nc, dim, n_slots, dim))
+            for a in range(nc):
+                for b in range(nc):
+                    row[a, :, self.slots[a][b], :] = ke[dim * a:dim * a + dim, dim * b:dim * b + dim]
+            self._row_of_corner = row.reshape(nc, -1)
 
     def matrix(self, moduli: np.ndarray) -> sp.csr_matrix:
         """Full stiffness for element modulus factors, supports imposed."""
+        shape = self.grid.shape
+        padded = np.zeros(tuple(n + 2 for n in shape))
+        padded[tuple(slice(1, -1) for _ in shape)] = moduli.reshape(shape)
+        # E_a(n): the element with node n at corner a is n − corner_a
+        around = np.stack([padded[tuple(slice(1 - c, 2 - c + n) for c, n in zip(corner, shape))]
+                           for corner in self.grid.corners], axis=-1)
+        rows = around.reshape(-1, len(self.grid.corners)) @ self._row_of_corner
+        return self._csr(rows.reshape(self.n, -1))
+
+    def from_entries(self, entry) -> sp.csr_matrix:
+        """Full matrix from element matrices that differ per element: `entry(r, c)`
+        gives entry (r, c) of every element's matrix as an array of the grid's
+        shape, or None where it is zero for all; supports imposed."""
+        if self._blocks is None:
+            # slot-major so that every update below runs over contiguous node slices
+            self._blocks = np.empty((len(self.offsets), self.dim, self.dim) + self.grid.node_shape)
         blocks = self._blocks
         blocks[:] = 0.0
         shape = self.grid.shape
-        e = moduli.reshape(shape)
         d = self.dim
         for a, corner in enumerate(self.grid.corners):
             # nodes at corner a of element i sit at i + corner: a slice of the grid
             nodes = tuple(slice(c, c + n) for c, n in zip(corner, shape))
             for b, slot in enumerate(self.slots[a]):
-                block = self.blocks_of[a][b]
                 for i in range(d):
                     for j in range(d):
-                        if block[i, j] != 0.0:
-                            blocks[(slot, i, j) + nodes] += block[i, j] * e
+                        values = entry(d * a + i, d * b + j)
+                        if values is not None:
+                            blocks[(slot, i, j) + nodes] += values
         # to the CSR row layout (node, da, slot, db)
         rows = np.moveaxis(blocks.reshape(blocks.shape[0], d, d, -1), 3, 0).transpose(0, 2, 1, 3)
-        data = rows.reshape(self.n, -1)[self._mask]
-        data *= self._keep
+        return self._csr(rows.reshape(self.n, -1))
+
+    def _csr(self, rows: np.ndarray) -> sp.csr_matrix:
+        """CSR matrix from rows laid out (row, slot, component), supports imposed."""
+        data = rows.reshape(-1)  # a view for the product's contiguous output
+        data[self._drop] = 0.0
         data[self._fixed_diag] = 1.0
         return sp.csr_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
