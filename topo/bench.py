@@ -140,8 +140,10 @@ def case_scale(shape: tuple[int, int, int], iterations: int) -> dict:
     return out
 
 
-# Run only when named with --case: it takes about half an hour on two cores.
-ON_REQUEST = {"scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100))}
+# Run only when named with --case: each takes from ten minutes to over half an
+# hour on two cores (the long comparison is dominated by its direct run).
+ON_REQUEST = {"scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100)),
+              "compare-3d-60x30x30-long": (case_compare, ((60, 30, 30), 50))}
 
 
 def cases(quick: bool) -> dict:
