@@ -79,6 +79,12 @@ class StencilAssembly:
         rows = around.reshape(-1, len(self.grid.corners)) @ self._row_of_corner
         return self._csr(rows.reshape(self.n, -1))
 
+    def from_elements(self, k: np.ndarray) -> sp.csr_matrix:
+        """Full matrix from one (nde, nde) matrix per element, supports imposed."""
+        flat = np.ascontiguousarray(k.reshape(len(k), -1).T)  # entry-major: contiguous reads
+        nde, shape = k.shape[1], self.grid.shape
+        return self.from_entries(lambda r, c: flat[r * nde + c].reshape(shape))
+
     def from_entries(self, entry) -> sp.csr_matrix:
         """Full matrix from element matrices that differ per element: `entry(r, c)`
         gives entry (r, c) of every element's matrix as an array of the grid's

@@ -34,6 +34,10 @@ def folder_name(params: dict[str, Any]) -> str:
 
 
 def _limit_blas(threads: int) -> None:
+    """BLAS threads and the threads of sparse products (parallel.py) of one job."""
+    from .parallel import set_threads
+
+    set_threads(threads)
     try:
         from threadpoolctl import threadpool_limits
 
