@@ -3,9 +3,11 @@
 After Amir, Aage & Lazarov 2014 ("On multigrid-CG for efficient topology
 optimization", Struct. Multidisc. Optim. 49:815): nested grids made by merging
 2×2(×2) elements, prolongation P by bilinear/trilinear interpolation of the nodal
-displacements, coarse operators by the Galerkin product A_c = Pᵀ A P, damped
-Jacobi smoothing, a sparse Cholesky solve on the coarsest grid, and one V-cycle as
-the preconditioner of conjugate gradients.
+displacements, coarse operators by the Galerkin product A_c = Pᵀ A P (formed
+element by element, galerkin.py), damped Jacobi smoothing, a sparse Cholesky solve
+on the coarsest grid, and one V-cycle as the preconditioner of conjugate
+gradients, warm-started from the last design's displacements. The constants below
+were chosen by measurement on the 2-core development machine (DEVELOPERS.md).
 """
 from __future__ import annotations
 
@@ -15,11 +17,13 @@ import scipy.sparse as sp
 from .parallel import RowBlocks
 from .solvers import DirectSolver
 
-# Coarsening stops at the first level with at most this many dofs, which CHOLMOD
-# factorises in well under a second. Coarser grids are cheaper to factorise but
-# resolve thin members so poorly that CG needs about twice the iterations (100×50×50
-# cantilever, design of iteration 20, two Jacobi sweeps: 68 CG iterations with a
-# 2,688-dof coarsest grid, 32 with the 15,288-dof one; DEVELOPERS.md).
+# Coarsening stops at the first level with at most this many dofs. The coarsest
+# grid trades its Cholesky factorisation, redone every design iteration, against CG
+# iterations: on the 100×50×50 cantilever (design of iteration 20, two Jacobi
+# sweeps) a 2,688-dof coarsest grid needed 68 CG iterations, the 15,288-dof one 32;
+# on 60×30×30 a 23,808-dof one halved the CG iterations (17 against 32) but its
+# factorisation (0.6 s) cost more than that saved (1.41 against 1.23 s per design
+# iteration). DEVELOPERS.md has the measurements.
 COARSE_DOFS = 20_000
 # One Jacobi sweep before and after the coarse correction: on that design 38 CG
 # iterations against 32 with two sweeps, but 25 % less time.

@@ -1,10 +1,10 @@
 """Memory and time estimates of a problem before the model is built.
 
 The coefficients are fitted to runs on the 2-core development machine (see
-DEVELOPERS.md, "Benchmarks"; the iterative ones to a 100×50×50 run: 2.6 GB peak,
-about 0.55 s per CG iteration and 6.5 s of assembly and Galerkin products per
-design iteration); they are estimates to catch a problem that cannot fit, not
-promises.
+DEVELOPERS.md, "Benchmarks"; the iterative ones to the 100-iteration 100×50×50
+run of `topo bench --case scale-3d-100x50x50`: 2.2 GB peak, 15.8 CG iterations
+of about 0.09 s each and about 1.1 s of assembly and hierarchy update per design
+iteration); they are estimates to catch a problem that cannot fit, not promises.
 """
 from __future__ import annotations
 
@@ -15,10 +15,10 @@ from .problem import Problem
 from .solvers import choose
 
 FACTOR_FLOPS_PER_S = 7e9  # CHOLMOD supernodal on two cores with OpenBLAS
-CG_SECONDS_PER_ENTRY = 8.6e-9  # one multigrid-CG iteration per stored matrix entry
-CG_ITERATIONS = 20  # typical with warm starts once the design has formed
-REBUILD_SECONDS_PER_ENTRY = 1.0e-7  # stencil assembly and Galerkin products, per iteration
-ITERATIVE_BYTES_PER_NODE = 10_000  # stencil blocks, CSR copy, hierarchy, one load case
+CG_SECONDS_PER_ENTRY = 1.5e-9  # one multigrid-CG iteration per stored matrix entry
+CG_ITERATIONS = 16  # mean over a run, with warm starts
+REBUILD_SECONDS_PER_ENTRY = 1.7e-8  # assembly, coarse operators, coarse Cholesky, per iteration
+ITERATIVE_BYTES_PER_NODE = 8_500  # fine matrix, hierarchy, work vectors of one load case
 
 
 def estimate(problem: Problem) -> dict:
