@@ -31,7 +31,7 @@ SMOOTHING_SWEEPS = 1
 # CG stops at ‖r‖ < RTOL·‖b‖. Compliance is second-order in the solution error, and
 # designs made with 1e-4 match those made with 1e-6 or the direct solver: 3D demo
 # bracket after 150 iterations 6e-6 apart in compliance, 100×50×50 cantilever after
-# 30 iterations 3e-7 (DEVELOPERS.md); 1e-4 needs about 40 % fewer CG iterations.
+# 30 iterations 3e-7 (DEVELOPERS.md); 1e-4 needs about a third fewer CG iterations.
 RTOL = 1e-4
 
 
@@ -81,6 +81,7 @@ class Hierarchy:
             self.transfers.append(p)
             n_dofs = p.shape[1]
         self.operators: list[sp.csr_matrix] = []
+        self.products: list[RowBlocks] = []
         self.inv_diag: list[np.ndarray] = []
         self.coarse: DirectSolver | None = None
         self.elementwise = None  # galerkin.ElementGalerkin for the coarse levels, if set

@@ -17,7 +17,6 @@ import scipy.sparse as sp
 MIN_SPLIT_ENTRIES = 1_000_000
 
 
-
 def default_threads() -> int:
     """The cores this process may run on."""
     if hasattr(os, "sched_getaffinity"):

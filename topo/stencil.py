@@ -10,10 +10,10 @@ corner b = a + o; so with E_a(n) the modulus of the element that has n at corner
 
 one dense product of an (nodes × corners) array with a constant (corners × row
 entries) matrix, written straight in CSR order: no sorting, no scatter matrix, no
-intermediate layout. Memory is O(nodes), about 2 kB per node in 3D, against tens of
+intermediate layout. Memory is O(nodes), about 3 kB per node in 3D, against tens of
 bytes per element-matrix entry for a general sparse assembly. Element matrices
 that differ per element (the coarse levels of multigrid) go through
-`from_entries`, which accumulates contiguous slices instead.
+`from_elements`, which accumulates contiguous slices instead.
 
 Supports are imposed on the full dof space: rows and columns of fixed dofs are
 zeroed and their diagonal set to 1 (with zero load there), which keeps the grid
@@ -59,7 +59,7 @@ class StencilAssembly:
         self._drop = np.union1d(fixed_rows, np.flatnonzero(fixed[self.indices]))
         centre = self.offsets.index((0,) * dim)
         self._fixed_diag = fixed_dofs * width + centre * dim + fixed_dofs % dim
-        self._blocks = None  # from_entries' accumulator, made on first use
+        self._blocks = None  # from_elements' accumulator, made on first use
         if ke is not None:
             # row entries (i, slot, j) of a node that sits at corner a of an element
             row = np.zeros((nc, dim, n_slots, dim))
@@ -82,29 +82,19 @@ class StencilAssembly:
     def from_elements(self, k: np.ndarray) -> sp.csr_matrix:
         """Full matrix from one (nde, nde) matrix per element, supports imposed."""
         flat = np.ascontiguousarray(k.reshape(len(k), -1).T)  # entry-major: contiguous reads
-        nde, shape = k.shape[1], self.grid.shape
-        return self.from_entries(lambda r, c: flat[r * nde + c].reshape(shape))
-
-    def from_entries(self, entry) -> sp.csr_matrix:
-        """Full matrix from element matrices that differ per element: `entry(r, c)`
-        gives entry (r, c) of every element's matrix as an array of the grid's
-        shape, or None where it is zero for all; supports imposed."""
+        nde, shape, d = k.shape[1], self.grid.shape, self.dim
         if self._blocks is None:
             # slot-major so that every update below runs over contiguous node slices
-            self._blocks = np.empty((len(self.offsets), self.dim, self.dim) + self.grid.node_shape)
+            self._blocks = np.empty((len(self.offsets), d, d) + self.grid.node_shape)
         blocks = self._blocks
         blocks[:] = 0.0
-        shape = self.grid.shape
-        d = self.dim
         for a, corner in enumerate(self.grid.corners):
             # nodes at corner a of element i sit at i + corner: a slice of the grid
             nodes = tuple(slice(c, c + n) for c, n in zip(corner, shape))
             for b, slot in enumerate(self.slots[a]):
                 for i in range(d):
                     for j in range(d):
-                        values = entry(d * a + i, d * b + j)
-                        if values is not None:
-                            blocks[(slot, i, j) + nodes] += values
+                        blocks[(slot, i, j) + nodes] += flat[(d * a + i) * nde + d * b + j].reshape(shape)
         # to the CSR row layout (node, da, slot, db)
         rows = np.moveaxis(blocks.reshape(blocks.shape[0], d, d, -1), 3, 0).transpose(0, 2, 1, 3)
         return self._csr(rows.reshape(self.n, -1))
