@@ -82,7 +82,7 @@ class Hierarchy:
             n_dofs = p.shape[1]
         self.operators: list[sp.csr_matrix] = []
         self.products: list[RowBlocks] = []
-        self.inv_diag: list[np.ndarray] = []
+        self.smoother_weights: list[np.ndarray] = []  # ω D⁻¹ per smoothed level
         self.coarse: DirectSolver | None = None
         self.elementwise = None  # galerkin.ElementGalerkin for the coarse levels, if set
         self._power_vectors: list[np.ndarray] = []
@@ -105,15 +105,17 @@ class Hierarchy:
                 a = ((a + a.T) * 0.5).tocsr()  # remove round-off asymmetry before Cholesky
                 self.operators.append(a)
         self.products = [RowBlocks(op) for op in self.operators]  # threaded a @ x
-        self.inv_diag = [1.0 / op.diagonal() for op in self.operators]
-        # Jacobi damping ω = 4 / (3 λmax(D⁻¹A)) per level: it damps the upper half of
-        # the spectrum evenly and keeps the smoother convergent whatever the contrast.
+        # Jacobi damping ω = 4 / (3 λmax(D⁻¹A)) per smoothed level (all but the
+        # coarsest, which is solved directly): it damps the upper half of the
+        # spectrum evenly and keeps the smoother convergent whatever the contrast.
         # The power iteration starts from the last design's eigenvector, which
         # changes little from one design to the next.
-        warm = len(self._power_vectors) == len(self.operators)
+        smoothed = self.products[:-1]
+        inv_diag = [1.0 / op.diagonal() for op in self.operators[:-1]]
+        warm = len(self._power_vectors) == len(smoothed)
         estimates = [_lambda_max(op, d, self._power_vectors[i] if warm else None)
-                     for i, (op, d) in enumerate(zip(self.products, self.inv_diag))]
-        self.omegas = [4.0 / (3.0 * lam) for lam, _ in estimates]
+                     for i, (op, d) in enumerate(zip(smoothed, inv_diag))]
+        self.smoother_weights = [(4.0 / (3.0 * lam)) * d[:, None] for (lam, _), d in zip(estimates, inv_diag)]
         self._power_vectors = [v for _, v in estimates]
         # Sparse products drop entries that come out zero, so their pattern can
         # change from one design to the next: a new symbolic analysis only then.
@@ -130,7 +132,7 @@ class Hierarchy:
         if level == len(self.transfers):
             return self.coarse.resolve(r)
         a = self.products[level]
-        wd = self.omegas[level] * self.inv_diag[level][:, None]
+        wd = self.smoother_weights[level]
         z = wd * r
         for _ in range(self.smoothing - 1):
             z += wd * (r - a @ z)
@@ -215,11 +217,10 @@ class MultigridCG:
         if self.iterations >= 500:
             raise FloatingPointError("multigrid-CG did not converge in 500 iterations")
         self.last = x
-        self._k = k
         return x
 
     def resolve(self, rhs: np.ndarray) -> np.ndarray:
         """Solve with the matrix and hierarchy of the last `solve` (adjoint loads)."""
-        rhs = np.asarray(rhs, dtype=float).reshape(self._k.shape[0], -1)
+        rhs = np.asarray(rhs, dtype=float).reshape(self.hierarchy.products[0].shape[0], -1)
         x, _ = pcg(self.hierarchy.products[0], rhs, self.hierarchy.vcycle, None, self.rtol)
         return x
