@@ -90,3 +90,30 @@ def printable_envelope(void: np.ndarray, direction: str) -> np.ndarray:
     for i in range(1, len(free)):
         ok[i] = free[i] & (window_sum(ok[i - 1].astype(np.int32)) > 0)
     return from_build_frame(ok, direction)
+
+
+def support_needed(solid: np.ndarray, direction: str, h: float, depth: float | None = None,
+                   within: np.ndarray | None = None) -> tuple[float, float, int]:
+    """Support structure a printed design needs when grown in `direction`.
+
+    Every unsupported element (see `unsupported_mask`) needs support under its
+    down-facing face: area h² (2D: h × depth, the extrusion thickness), and a
+    column of support from that face down to the first printed element below it
+    in the same column, or to the plate. Returns (down-facing area mm², support
+    volume mm³, unsupported elements), counted over the elements of `within`
+    (a boolean grid; default all)."""
+    solid = np.asarray(solid, dtype=bool)
+    bad = unsupported_mask(solid, direction)
+    if within is not None:
+        bad &= np.asarray(within, dtype=bool).reshape(bad.shape)
+    s, b = to_build_frame(solid, direction), to_build_frame(bad, direction)
+    face = h * h if solid.ndim == 3 else h * float(depth if depth is not None else 1.0)
+    # height of the empty gap under each element: layers since the last solid one
+    gap = np.zeros(s.shape[1:], dtype=np.int64)
+    columns = 0
+    for i in range(len(s)):
+        if i > 0:
+            columns += int(gap[b[i]].sum())
+        gap = np.where(s[i], 0, gap + 1)
+    n = int(b.sum())
+    return face * n, face * h * columns, n

@@ -1,0 +1,82 @@
+"""Whether a printed design holds together: load paths and enclosed cavities.
+
+Both work on the 0/1 element field of the printed part with face connectivity
+(4 neighbours in 2D, 6 in 3D). Elements that meet only at an edge or a corner are
+not counted as joined: the finite-element model would pass load through that
+single node or edge, but the printed part has no section there.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import ndimage
+
+
+@dataclass
+class LoadPath:
+    connected: bool  # every load region joined to a support through printed elements
+    cut_off: list[str]  # names of the load regions that reach no support
+    pieces: int  # face-connected pieces of the printed part
+    loose_pieces: int  # pieces that touch no support (they fall off in service)
+    loose_volume_mm3: float
+
+
+def _elements_at_nodes(grid, nodes: np.ndarray) -> np.ndarray:
+    """Boolean mask of the elements that have any of `nodes` as a corner."""
+    mark = np.zeros(grid.n_nodes, dtype=bool)
+    mark[nodes] = True
+    return mark[grid.element_nodes].any(axis=1)
+
+
+def load_path(printed: np.ndarray, grid, supports: list[np.ndarray],
+              loads: list[tuple[str, np.ndarray]], element_volume: float) -> LoadPath:
+    """printed: 0/1 field (grid shape); supports: node sets of the supports; loads:
+    (name, node set) of every load region."""
+    solid = np.asarray(printed) > 0.5
+    labels, n = ndimage.label(solid)
+    flat = labels.ravel()
+
+    def reached(nodes: np.ndarray) -> set[int]:
+        return set(np.unique(flat[_elements_at_nodes(grid, nodes)])) - {0}
+
+    supported = set().union(*(reached(s) for s in supports)) if supports else set()
+    cut = [name for name, nodes in loads if not (reached(nodes) & supported)]
+    loose = [k for k in range(1, n + 1) if k not in supported]
+    sizes = ndimage.sum_labels(np.ones_like(flat), flat, loose) if loose else np.zeros(0)
+    return LoadPath(not cut and not loose, cut, int(n), len(loose),
+                    float(np.sum(sizes) * element_volume))
+
+
+@dataclass
+class Cavity:
+    volume_mm3: float
+    centre_mm: list[float]
+    box_min_mm: list[float]
+    box_max_mm: list[float]
+
+
+def enclosed_cavities(printed: np.ndarray, h: float, element_volume: float) -> list[Cavity]:
+    """Void pockets that do not reach the domain boundary: powder trapped in them
+    cannot be removed (flood fill of the empty elements from the outside). A 2D
+    design is extruded, so its holes go through the thickness and none is enclosed."""
+    void = np.asarray(printed) <= 0.5
+    if void.ndim == 2:
+        return []
+    labels, n = ndimage.label(void)
+    border = np.zeros_like(void)
+    for axis in range(void.ndim):
+        index = [slice(None)] * void.ndim
+        for end in (0, -1):
+            index[axis] = end
+            border[tuple(index)] = True
+    open_labels = set(np.unique(labels[border])) - {0}
+    out = []
+    for k, where in enumerate(ndimage.find_objects(labels), start=1):
+        if k in open_labels or where is None:
+            continue
+        cells = np.argwhere(labels == k)
+        out.append(Cavity(float(len(cells) * element_volume),
+                          [float(v) for v in (cells.mean(axis=0) + 0.5) * h],
+                          [float(s.start * h) for s in where], [float(s.stop * h) for s in where]))
+    return out

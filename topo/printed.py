@@ -1,0 +1,61 @@
+"""The part that gets printed, and the figures an engineer signs off for it.
+
+The optimiser works on a grey density field; the machine prints a solid/void
+part. The printed design is every element at ρ ≥ 0.5 (the level of design.stl)
+plus every passive solid region whole (bolt bosses, load eyes and mounting faces
+are always made, whether or not the overhang layer let the optimiser keep them),
+minus the void (keep-out) regions. It is re-analysed for every load case, and its
+figures are the headline ones; the optimiser's figures of the grey field stand
+beside them with the relative gap, so that a design whose grey figures flatter
+the part is seen at once.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .printability import SOLID
+
+
+def printed_density(density: np.ndarray, model) -> np.ndarray:
+    """0/1 field of the printed part, grid shape: ρ ≥ 0.5, passive solids whole,
+    void regions empty."""
+    flat = np.asarray(density, dtype=float).ravel()
+    solid = ((flat >= SOLID) | model.solid) & ~model.void
+    return solid.astype(float).reshape(np.shape(density))
+
+
+@dataclass
+class PrintedPart:
+    """The printed design, its analysis, and how it differs from the optimiser's."""
+    density: np.ndarray  # 0/1, grid shape
+    analysis: object  # fem.Analysis of the printed design
+    passive_added: int  # passive-solid elements the optimiser's design had below ρ = 0.5
+    added: int  # elements printed that the optimiser had below 0.5 (all passive)
+    removed: int  # elements at ρ ≥ 0.5 in the optimiser's design that are not printed
+
+
+def printed_part(model, density: np.ndarray) -> PrintedPart:
+    """Form and re-analyse the printed design of a grey density field."""
+    printed = printed_density(density, model)
+    grey = np.asarray(density, dtype=float).ravel() >= SOLID
+    made = printed.ravel() > 0.5
+    analysis = model.analyze(printed.ravel())
+    return PrintedPart(printed, analysis, int((model.solid & ~grey).sum()),
+                       int((made & ~grey).sum()), int((grey & ~made).sum()))
+
+
+def finite_or_none(value) -> float | None:
+    """A float for JSON, None when it is not finite (strict JSON has no NaN)."""
+    if value is None:
+        return None
+    value = float(value)
+    return value if np.isfinite(value) else None
+
+
+def relative_gap(printed: float | None, grey: float | None) -> float | None:
+    """(printed − grey) / |grey|: positive when the printed part is worse."""
+    if printed is None or grey is None or grey == 0:
+        return None
+    return finite_or_none((printed - grey) / abs(grey))
