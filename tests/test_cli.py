@@ -1,4 +1,6 @@
 """The command line end to end on a small problem: files written, exit codes."""
+import copy
+import dataclasses
 import json
 from pathlib import Path
 
@@ -88,3 +90,57 @@ def test_input_error_exits_2_with_one_clean_line(small, capsys):
     err = capsys.readouterr().err
     assert "optimization.volume_fraction" in err and "Traceback" not in err
     assert len(err.strip().splitlines()) == 1
+
+
+# Strict JSON: summary.json must parse in readers that reject NaN and Infinity
+# (RFC 8259 has no such numbers).
+
+def _reject(constant):
+    raise ValueError(f"non-finite number {constant} in JSON")
+
+
+def test_summary_of_round_off_negative_densities_is_strict_json(tmp_path):
+    from conftest import beam_problem
+    from topo import analyze, export, problem_from_dict, summarize
+    from topo.stress import relax
+
+    problem = problem_from_dict(beam_problem(2, [24.0, 12.0], 1.0))
+    design = np.ones((24, 12))
+    design[8:16, 4:8] = 0.0
+    zero = analyze(problem, design)
+    # -1e-17 is zero material up to round-off, as a filter or projection can leave it
+    negative = dataclasses.replace(zero, density=np.where(zero.density == 0.0, -1e-17, zero.density),
+                                   summary={})
+    with np.errstate(invalid="ignore"):  # the hazard: (-1e-17) ** 0.5 is NaN
+        assert np.isnan(relax(negative.density.ravel(), negative.analysis.von_mises)).any()
+    s = summarize(negative)
+    json.dumps(s, allow_nan=False)
+    assert s["peak_relaxed_stress_MPa"] == summarize(zero)["peak_relaxed_stress_MPa"]
+    export(negative, tmp_path)
+    json.loads((tmp_path / "summary.json").read_text(), parse_constant=_reject)
+
+
+def test_export_writes_the_summary_without_changing_the_result(small, tmp_path):
+    from topo import export, load_problem, optimize
+
+    result = optimize(load_problem(small, {"optimization.max_iterations": 5}))
+    before = copy.deepcopy(result.summary)
+    written = export(result, tmp_path, mesh_format="ply")
+    assert result.summary == before and "mesh" not in result.summary
+    on_disk = json.loads((tmp_path / "summary.json").read_text())
+    assert on_disk == written.summary and on_disk["mesh"]["faces"] > 0
+    assert {k: v for k, v in on_disk.items() if k != "mesh"} == json.loads(json.dumps(before))
+    assert written.files[-1] == tmp_path / "summary.json"  # last: it marks a finished folder
+
+
+def test_strict_json_writer_refuses_non_finite_numbers_and_leaves_no_file(tmp_path):
+    from topo.files import write_json
+
+    path = tmp_path / "s.json"
+    with pytest.raises(ValueError):
+        write_json(path, {"peak": float("nan")})
+    with pytest.raises(ValueError):
+        write_json(path, {"peak": [1.0, float("inf")]})
+    assert list(tmp_path.iterdir()) == []
+    write_json(path, {"peak": 1.5, "cases": [None, 2]})
+    assert json.loads(path.read_text(), parse_constant=_reject) == {"peak": 1.5, "cases": [None, 2]}

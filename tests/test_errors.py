@@ -218,3 +218,22 @@ def test_random_problem_dictionaries_load_or_raise_problem_error(data):
         Model(p)
     except ProblemError:
         pass
+
+
+def test_error_log_goes_to_the_folder_of_the_failing_command_only(tmp_path, capsys, monkeypatch):
+    f = tmp_path / "p.toml"
+    f.write_text(GOOD)
+
+    def boom(*a, **k):
+        raise RuntimeError("simulated failure")
+
+    monkeypatch.setattr("topo.cli.optimize", boom)
+    monkeypatch.setattr("topo.cli.check", boom)
+    monkeypatch.chdir(tmp_path)
+    assert main(["run", str(f), "--out", str(tmp_path / "run")]) == 1
+    assert (tmp_path / "run" / "error.log").exists()
+    # `check` writes no folder: its log goes to ./outputs, not to the previous run's folder
+    (tmp_path / "run" / "error.log").unlink()
+    assert main(["check", str(f)]) == 1
+    assert "simulated failure" in (tmp_path / "outputs" / "error.log").read_text()
+    assert not (tmp_path / "run" / "error.log").exists()

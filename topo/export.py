@@ -1,15 +1,14 @@
 """Writers for a Result, registered by output file name.
 
-Every file is written to a temporary name in the output folder and renamed into
-place, and summary.json goes last, so a folder with a summary is a finished run.
+Every file is written atomically (files.py), and summary.json goes last, so a folder
+with a summary is a finished run. The writers only write: the figures come from
+report.py and the Result is not changed.
 """
 from __future__ import annotations
 
 import csv
 import io
-import json
-import os
-import tempfile
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
@@ -21,34 +20,11 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 
 from . import mesh as meshing  # noqa: E402
+from .files import atomic_write, strict_json, write_figure, write_meshio, write_text  # noqa: E402
 from .regions import select_nodes  # noqa: E402
+from .report import design_surface, run_summary  # noqa: E402
 
 MESH_FORMATS = ("stl", "obj", "ply")
-_UMASK = os.umask(0)
-os.umask(_UMASK)
-
-
-def atomic_write(path: Path, data: bytes) -> None:
-    """Write bytes to `path` through a temporary file in the same folder."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; give the usual mode
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-
-
-def _figure_bytes(fig) -> bytes:
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=120, bbox_inches="tight")
-    plt.close(fig)
-    return buf.getvalue()
 
 
 def write_density(result, path: Path) -> None:
@@ -64,7 +40,7 @@ def write_history_csv(result, path: Path) -> None:
     w.writerow(cols)
     for row in result.history:
         w.writerow(["" if row[c] is None else f"{row[c]:.10g}" for c in cols])
-    atomic_write(path, buf.getvalue().encode())
+    write_text(path, buf.getvalue())
 
 
 def write_history_png(result, path: Path) -> None:
@@ -78,7 +54,7 @@ def write_history_png(result, path: Path) -> None:
     ax2.plot(it, [r["volume_fraction"] for r in result.history], color="tab:orange")
     ax2.set_ylabel("volume fraction", color="tab:orange")
     ax.set_title(f"{result.problem.name}: convergence")
-    atomic_write(path, _figure_bytes(fig))
+    write_figure(path, fig)
 
 
 def _mark_loads_and_supports(ax, result) -> None:
@@ -129,42 +105,12 @@ def write_design_png(result, path: Path) -> None:
             ax.set_ylabel(f"{'xyz'[b]} (mm)")
             ax.set_title(title)
         fig.suptitle(f"{result.problem.name}: mean density through the part")
-    atomic_write(path, _figure_bytes(fig))
+    write_figure(path, fig)
 
 
 def write_problem(result, path: Path) -> None:
     """The resolved problem (overrides applied), so a run folder can be re-read."""
-    atomic_write(path, json.dumps(result.problem.raw, indent=2).encode())
-
-
-def write_summary(result, path: Path) -> None:
-    atomic_write(path, (json.dumps(result.summary, indent=2) + "\n").encode())
-
-
-def design_mesh(result, iso: float = 0.5, smooth: int = 0,
-                min_piece_fraction: float = 0.01) -> tuple[meshing.TriMesh, dict]:
-    """The printable surface of a Result and its figures for summary.json."""
-    problem, model = result.problem, result.model
-    rho = np.maximum(result.density, model.solid.reshape(result.density.shape))  # passive solids in
-    raw = meshing.isosurface(rho, problem.domain.element_size, iso, problem.domain.thickness)
-    mesh, dropped = meshing.remove_debris(raw, min_piece_fraction)
-    size = tuple(problem.domain.size) + ((problem.domain.thickness,) if problem.dim == 2 else ())
-    if smooth > 0:
-        mesh = meshing.taubin_smooth(mesh, smooth, pinned=meshing.boundary_pins(mesh, size))
-    area = mesh.area
-    info = {"iso": iso, "smoothing_passes": smooth, "volume_mm3": mesh.volume, "area_mm2": area,
-            "watertight": mesh.watertight, "pieces": int(len(np.unique(mesh.pieces()))) if len(mesh.faces) else 0,
-            "debris_pieces_removed": dropped, "vertices": int(len(mesh.vertices)),
-            "faces": int(len(mesh.faces)), "downfacing_overhang_area_mm2": None,
-            "downfacing_overhang_fraction": None}
-    if problem.build is not None:
-        d = problem.build.direction
-        axis = "xyz".index(d[1])
-        plate = 0.0 if d[0] == "+" else size[axis]
-        down = meshing.downfacing_area(mesh, d, plate, problem.build.overhang_angle)
-        info["downfacing_overhang_area_mm2"] = down
-        info["downfacing_overhang_fraction"] = down / area if area > 0 else None
-    return mesh, info
+    write_text(path, strict_json(result.problem.raw))
 
 
 def write_mesh(mesh: meshing.TriMesh, path: Path, fmt: str = "stl") -> None:
@@ -173,21 +119,7 @@ def write_mesh(mesh: meshing.TriMesh, path: Path, fmt: str = "stl") -> None:
     if fmt not in MESH_FORMATS:
         raise ValueError(f"unknown mesh format {fmt!r}; choose one of {', '.join(MESH_FORMATS)}")
     m = meshio.Mesh(mesh.vertices, [("triangle", mesh.faces.astype(np.int32))])
-    _meshio_write(m, path, fmt, **({} if fmt == "obj" else {"binary": True}))
-
-
-def _meshio_write(m, path: Path, fmt: str, **options) -> None:
-    """meshio.write through a temporary name in the same folder, then rename."""
-    import meshio
-
-    tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
-    try:
-        meshio.write(tmp, m, file_format=fmt, **options)
-        os.chmod(tmp, 0o666 & ~_UMASK)
-        os.replace(tmp, path)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+    write_meshio(path, m, fmt, **({} if fmt == "obj" else {"binary": True}))
 
 
 def _safe(name: str) -> str:
@@ -213,10 +145,10 @@ def write_fields(result, path: Path) -> None:
         cell_data[f"von_mises_{_safe(case.name)}"] = [a.von_mises[:, i]]
     cell_data["von_mises_max"] = [a.von_mises.max(axis=1)]
     m = meshio.Mesh(pts, [(cell_type, grid.element_nodes)], point_data=point_data, cell_data=cell_data)
-    _meshio_write(m, path, "vtu")
+    write_meshio(path, m, "vtu")
 
 
-# Order matters: summary.json last marks a complete folder.
+# Written in this order; summary.json comes after all of them and marks a complete folder.
 EXPORTERS: dict[str, Callable] = {
     "problem.json": write_problem,
     "density.npy": write_density,
@@ -224,27 +156,38 @@ EXPORTERS: dict[str, Callable] = {
     "history.png": write_history_png,
     "design.png": write_design_png,
     "fields.vtu": write_fields,
-    "summary.json": write_summary,
 }
+SUMMARY = "summary.json"
+
+
+@dataclass(frozen=True)
+class Exported:
+    files: list[Path]  # in the order written
+    summary: dict  # what summary.json holds (or would, when it was not asked for)
 
 
 def export(result, out_dir: str | Path, only: list[str] | None = None, iso: float = 0.5,
-           smooth: int = 0, mesh_format: str = "stl", mesh: bool = True) -> list[Path]:
+           smooth: int = 0, mesh_format: str = "stl", mesh: bool = True) -> Exported:
     """Write every output file (or those named in `only`) into `out_dir`, and the
     design mesh (design.stl, .obj or .ply) unless `mesh` is false."""
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    names = [n for n in EXPORTERS if only is None or n in only]
     written = []
-    if mesh:
-        surface, info = design_mesh(result, iso, smooth)
-        result.summary["mesh"] = info
+    surface = design_surface(result, iso, smooth) if mesh else None
+    summary = run_summary(result, surface)
+    summary_text = strict_json(summary) + "\n"  # a non-finite figure fails here, before any file
+    if surface is not None:
         target = out / f"design.{mesh_format}"
-        write_mesh(surface, target, mesh_format)
+        write_mesh(surface.mesh, target, mesh_format)
         written.append(target)
-    for name in names:
+    for name, writer in EXPORTERS.items():
+        if only is not None and name not in only:
+            continue
         if name in ("history.csv", "history.png") and not result.history:
             continue
-        EXPORTERS[name](result, out / name)
+        writer(result, out / name)
         written.append(out / name)
-    return written
+    if only is None or SUMMARY in only:
+        write_text(out / SUMMARY, summary_text)
+        written.append(out / SUMMARY)
+    return Exported(written, summary)

@@ -1,8 +1,12 @@
-"""Summary figures of a Result: mass, compliance, stress and printability."""
+"""Summary figures of a Result (mass, compliance, stress, printability, the design
+mesh) and the console lines that show them. The one place summary.json is made."""
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 
+from . import mesh as meshing
 from .printability import SOLID, printable_envelope, unsupported_by_direction
 from .stress import relax
 
@@ -16,6 +20,8 @@ STRESS_NOTE = ("max_von_mises_MPa: von Mises stress of the solid material at ele
 
 
 def summarize(result, analysis_only: bool = False) -> dict:
+    """The figures of a Result (run_summary adds those of its design mesh). Every
+    number is finite, so the summary is strict JSON."""
     problem, model, a = result.problem, result.model, result.analysis
     rho = result.density.ravel()
     dom, mat = problem.domain, problem.material
@@ -23,7 +29,8 @@ def summarize(result, analysis_only: bool = False) -> dict:
     solid = rho >= SOLID
     weights = np.array([c.weight for c in problem.load_cases])
     vm = np.where(solid[:, None], a.von_mises, 0.0)
-    relaxed = relax(rho, a.von_mises)  # the measure a stress_limit constrains
+    # the measure a stress_limit constrains; ρ^q of a round-off negative density is NaN
+    relaxed = relax(np.maximum(rho, 0.0), a.von_mises)
     yield_strength = mat.yield_strength
     cases = []
     for i, case in enumerate(problem.load_cases):
@@ -77,6 +84,63 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "caution": CAUTION,
     }
     return summary
+
+
+def run_summary(result, surface: "DesignSurface | None" = None) -> dict:
+    """What summary.json holds: the Result's summary (made by summarize when it
+    carries none; read back from the folder for a re-export) with the figures of
+    `surface`, its design mesh. The Result is left as it is."""
+    base = dict(result.summary) if result.summary else summarize(result)
+    if surface is not None:
+        base["mesh"] = mesh_figures(surface, result.problem)
+    return base
+
+
+@dataclass(frozen=True)
+class DesignSurface:
+    """The printable surface of a design and how it was made."""
+    mesh: meshing.TriMesh
+    iso: float
+    smoothing_passes: int
+    debris_pieces_removed: int
+
+
+def design_surface(result, iso: float = 0.5, smooth: int = 0,
+                   min_piece_fraction: float = 0.01) -> DesignSurface:
+    """Isosurface of the density with passive solids filled in, floating debris
+    dropped and `smooth` Taubin passes that keep the domain's faces flat."""
+    problem, model = result.problem, result.model
+    rho = np.maximum(result.density, model.solid.reshape(result.density.shape))  # passive solids in
+    raw = meshing.isosurface(rho, problem.domain.element_size, iso, problem.domain.thickness)
+    mesh, dropped = meshing.remove_debris(raw, min_piece_fraction)
+    if smooth > 0:
+        mesh = meshing.taubin_smooth(mesh, smooth, pinned=meshing.boundary_pins(mesh, _box(problem)))
+    return DesignSurface(mesh, iso, smooth, dropped)
+
+
+def _box(problem) -> tuple[float, ...]:
+    """The domain's extent in mm; a 2D design is extruded through its thickness."""
+    return tuple(problem.domain.size) + ((problem.domain.thickness,) if problem.dim == 2 else ())
+
+
+def mesh_figures(surface: DesignSurface, problem) -> dict:
+    """Volume, area, watertightness, pieces and down-facing overhang area of a design mesh."""
+    mesh = surface.mesh
+    area = mesh.area
+    info = {"iso": surface.iso, "smoothing_passes": surface.smoothing_passes,
+            "volume_mm3": mesh.volume, "area_mm2": area, "watertight": mesh.watertight,
+            "pieces": int(len(np.unique(mesh.pieces()))) if len(mesh.faces) else 0,
+            "debris_pieces_removed": surface.debris_pieces_removed,
+            "vertices": int(len(mesh.vertices)), "faces": int(len(mesh.faces)),
+            "downfacing_overhang_area_mm2": None, "downfacing_overhang_fraction": None}
+    if problem.build is not None:
+        d = problem.build.direction
+        axis = "xyz".index(d[1])
+        plate = 0.0 if d[0] == "+" else _box(problem)[axis]
+        down = meshing.downfacing_area(mesh, d, plate, problem.build.overhang_angle)
+        info["downfacing_overhang_area_mm2"] = down
+        info["downfacing_overhang_fraction"] = down / area if area > 0 else None
+    return info
 
 
 def _passive_report(result, solid: np.ndarray) -> list[dict]:
@@ -141,3 +205,98 @@ def model_report(model) -> dict:
         "memory_estimate_MB": round(est["memory_bytes"] / 2**20, 1),
         "seconds_per_iteration_estimate": round(est["seconds_per_iteration"], 3),
     }
+
+
+# Console lines. Each returns the lines without printing, so the command line stays a
+# thin layer and the wording lives beside the figures it shows.
+
+def format_plan(problem, est: dict) -> str:
+    """The first line of a run: the grid, the material and the resource estimates."""
+    g = problem.domain.shape
+    return (f"{problem.name}: {problem.dim}D, {'×'.join(map(str, g))} = {int(np.prod(g))} elements "
+            f"of {problem.domain.element_size} mm, {problem.material.name}; estimated "
+            f"{est['memory_bytes'] / 2**30:.2f} GiB, {est['seconds_per_iteration']:.2g} s per iteration")
+
+
+def format_progress(row: dict) -> list[str]:
+    """One history row of the loop (the first also names the solver)."""
+    lines = [f"solver: {row['solver']}"] if row["iteration"] == 1 else []
+    beta = f"  beta {row['beta']:5.1f}" if row["beta"] is not None else ""
+    if row["solver_iterations"]:
+        beta += f"  cg {row['solver_iterations']:3d}"
+    lines.append(f"iter {row['iteration']:4d}  compliance {row['objective']:.6e} N·mm  "
+                 f"volume {row['volume_fraction']:.4f}  change {row['change']:.4f}{beta}  "
+                 f"{row['seconds']:.2f} s")
+    return lines
+
+
+def format_cases(summary: dict) -> list[str]:
+    lines = []
+    for case in summary["load_cases"]:
+        vm = case["max_von_mises_MPa"]
+        lines.append(f"  load case {case['name']}: compliance {case['compliance_Nmm']:.6g} N·mm, "
+                     f"max displacement {case['max_displacement_mm']:.4g} mm"
+                     + (f", max von Mises {vm:.4g} MPa" if vm is not None else ""))
+    return lines
+
+
+def format_mesh(m: dict, fmt: str) -> str:
+    down = m["downfacing_overhang_fraction"]
+    return (f"  mesh design.{fmt}: {m['volume_mm3']:.6g} mm³, {m['area_mm2']:.6g} mm², "
+            f"{'watertight' if m['watertight'] else 'NOT watertight'}, {m['pieces']} piece(s), "
+            f"{m['debris_pieces_removed']} debris piece(s) removed"
+            + (f", down-facing overhang {100 * down:.2f} % of the area" if down is not None else ""))
+
+
+def format_run(s: dict, mesh_format: str) -> list[str]:
+    """The outcome of a run from its summary.json."""
+    lines = [f"{'converged' if s['converged'] else 'stopped'} after {s['iterations']} iterations "
+             f"in {s['runtime_s']:.1f} s (solver {s['solver']}): {s['stop_reason']}",
+             f"  compliance {s['compliance_Nmm']:.6g} N·mm, volume fraction {s['volume_fraction']:.4f}, "
+             f"mass {s['mass_kg']:.4g} kg"]
+    lines += format_cases(s)
+    if s["build_direction"]:
+        lines.append(f"  unsupported fraction {s['unsupported_fraction']:.4f} building {s['build_direction']}"
+                     f" (overhang filter {'on' if s['overhang_filter'] else 'off'})")
+    for r in s["passive_regions"]:
+        if r["kind"] == "solid" and r["solid_share"] < 0.999:
+            lines.append(f"  note: only {100 * r['solid_share']:.1f} % of solid region {r['name']} is "
+                         "printed solid (the rest is not self-supporting)")
+    best = min(s["unsupported_by_direction"], key=s["unsupported_by_direction"].get)
+    lines.append(f"  best build direction for this design: {best} "
+                 f"(unsupported fraction {s['unsupported_by_direction'][best]:.4f})")
+    if "mesh" in s:
+        lines.append(format_mesh(s["mesh"], mesh_format))
+    return lines
+
+
+def format_analysis(s: dict, design: str | None) -> list[str]:
+    """The figures of `topo analyze`: of the design file `design`, or of the full domain."""
+    return ([f"{s['name']}: analysis of {'the design ' + design if design else 'the full domain'}",
+             f"  compliance {s['compliance_Nmm']:.6g} N·mm, mass {s['mass_kg']:.4g} kg"]
+            + format_cases(s))
+
+
+def format_check(rep: dict) -> list[str]:
+    """The model report of `topo check` (model_report) as lines."""
+    lines = [f"{rep['name']} ({rep['source']}): {rep['dimension']}D",
+             f"  grid {'×'.join(map(str, rep['elements']))} = {rep['element_count']} elements of "
+             f"{rep['element_size_mm']} mm; {rep['nodes']} nodes; {rep['dofs']} dofs "
+             f"({rep['free_dofs']} free); {rep['design_elements']} design elements",
+             f"  material {rep['material']}; build direction {rep['build_direction'] or 'none'}; "
+             f"solver {rep['solver']}"]
+    for r in rep["regions"]:
+        what = f"{r['nodes']} nodes" if r["role"] in ("support", "force") else f"{r['elements']} elements"
+        lines.append(f"  {r['key']:<24} {r['role']:<8} {r['name']:<24} {what}")
+    for c in rep["load_cases"]:
+        tot = ", ".join(f"{v:.6g}" for v in c["total_force_N"])
+        extra = (f"; {c['force_on_fixed_dofs_N']:.6g} N lands on fixed dofs"
+                 if c["force_on_fixed_dofs_N"] > 0 else "")
+        lines.append(f"  load case {c['name']} (weight {c['weight']}): total force [{tot}] N{extra}")
+    for r in rep["unsupportable_solid_regions"]:
+        lines.append(f"  warning: {r['key']} ({r['name']}): {r['unsupportable_elements']} of {r['elements']} "
+                     f"elements cannot be supported from the build plate ({rep['build_direction']}); "
+                     "void regions block every 45° path")
+    lines.append(f"  estimated memory {rep['memory_estimate_MB']} MB, "
+                 f"{rep['seconds_per_iteration_estimate']:.2g} s per iteration")
+    return lines

@@ -17,6 +17,8 @@ from typing import Any, Callable
 
 import numpy as np
 
+from .files import write_figure, write_text
+
 
 def combinations(vary: dict[str, list]) -> list[dict[str, Any]]:
     keys = list(vary)
@@ -54,9 +56,8 @@ def run_one(raw: dict, source: str, params: dict[str, Any], out_dir: str,
     if blas_threads:
         _limit_blas(blas_threads)
     problem = problem_from_dict(raw, params, source=source)
-    result = optimize(problem)
-    export(result, out_dir)
-    return row_of(params, result.summary, out_dir, ran=True)
+    written = export(optimize(problem), out_dir)
+    return row_of(params, written.summary, out_dir, ran=True)
 
 
 def row_of(params: dict, summary: dict, out_dir: str, ran: bool) -> dict:
@@ -157,15 +158,13 @@ def sweep(problem, vary: dict[str, list], jobs: int = 1, out: str | Path | None 
 
 
 def write_table(rows: list[dict], path: Path) -> None:
-    from .export import atomic_write
-
     columns = list(dict.fromkeys(k for r in rows for k in r if k != "ran")) + ["pareto"]
     buf = io.StringIO()
     w = csv.DictWriter(buf, columns, extrasaction="ignore", lineterminator="\n")
     w.writeheader()
     for r, best in zip(rows, pareto(rows)):
         w.writerow({**r, "pareto": best})
-    atomic_write(path, buf.getvalue().encode())
+    write_text(path, buf.getvalue())
 
 
 def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
@@ -173,8 +172,6 @@ def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
-
-    from .export import _figure_bytes, atomic_write
 
     best = pareto(rows)
     fig, ax = plt.subplots(figsize=(6.4, 4.4))
@@ -191,4 +188,4 @@ def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
     ax.set_ylabel("weighted compliance (N·mm)")
     ax.set_title("trade-off: stiffness against mass")
     ax.legend(fontsize=8)
-    atomic_write(path, _figure_bytes(fig))
+    write_figure(path, fig)
