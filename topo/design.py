@@ -90,7 +90,7 @@ def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make
     optimizer = make(opt, model.active, responses.n_bounds, len(responses.constraints))
     saved = Checkpoint(checkpoint, problem, model, {"opt": optimizer, "resp": responses})
     state = saved.load() if resume else LoopState(_start_design(model, responses.material.start))
-    beta = Continuation(projection, opt.beta_max, opt.beta_interval, opt.tolerance, state.beta)
+    continuation = Continuation(projection, opt.beta_max, opt.beta_interval, opt.tolerance, state.beta)
     stop, stop_reason = None, "iteration limit"
     try:
         for it in range(state.iteration + 1, opt.max_iterations + 1):
@@ -99,9 +99,9 @@ def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make
             if not (np.isfinite(ev.objective.value) and np.all(np.isfinite(x))):
                 raise FloatingPointError(f"non-finite objective or design at iteration {it}")
             change = float(np.max(np.abs(x - state.x)[model.active]))
-            row = _history_row(it, ev, rho, change, beta.beta, time.perf_counter() - t0, model)
+            row = _history_row(it, ev, rho, change, continuation.beta, time.perf_counter() - t0, model)
             state.history.append(row)
-            stop = beta.after(state, change)
+            stop = continuation.after(state, change)
             state.x, state.iteration = x, it
             if saved.due(it):
                 saved.save(state)
@@ -116,15 +116,18 @@ def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make
         saved.save(state)
         raise
 
-    x = state.x
-    rho = chain.forward(x)
-    analysis = model.analyze(rho)
-    shape = model.grid.shape
-    result = Result(problem, model, rho.reshape(shape), x.reshape(shape), analysis, state.history,
-                    stop is not None, time.perf_counter() - start,
-                    stop_reason=stop_reason)
+    result = _result(problem, model, chain, state, stop is not None, stop_reason, start)
     result.summary = summarize(result)
     return result
+
+
+def _result(problem, model: Model, chain: Chain, state: LoopState, converged: bool,
+            stop_reason: str, start: float) -> Result:
+    """The last good design with a fresh analysis (stresses included)."""
+    rho = chain.forward(state.x)
+    shape = model.grid.shape
+    return Result(problem, model, rho.reshape(shape), state.x.reshape(shape), model.analyze(rho),
+                  state.history, converged, time.perf_counter() - start, stop_reason=stop_reason)
 
 
 def _start_design(model: Model, fraction: float) -> np.ndarray:

@@ -15,6 +15,12 @@ towards the nominal value. This damps the flip-flopping that OC shows with a sha
 Heaviside projection (the same idea as the asymptote adaptation of MMA, Svanberg
 1987, Int. J. Numer. Meth. Eng. 24:359). With ``adaptive=False`` the update is the
 classical fixed-move OC.
+
+Every optimizer the loop uses has `step(x, ev) → x_new`, with `ev` a responses
+Evaluation (objective, constraints g = v/L − 1 ≤ 0, worst-case bounds; gradients
+with respect to the full design vector x), and `state()` / `restore()` for
+checkpoints. `make_optimizer` builds the one the problem names: OC, MMA, GCMMA, or
+the bound formulation of the worst case on MMA.
 """
 from __future__ import annotations
 
@@ -281,10 +287,6 @@ class MMA:
             self.xold2 = x.copy()
         return x_new
 
-
-# The step interface: `step(x, ev) → x_new` with `ev` a responses Evaluation
-# (objective, constraints g = v/L − 1 ≤ 0 and worst-case bounds, gradients with
-# respect to the full design vector x), plus `state()` / `restore()` for checkpoints.
 
 def _constraint_arrays(constraints, active: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Values g_i and gradients ∂g_i/∂x on the design elements."""
