@@ -114,3 +114,34 @@ def test_gcmma_reaches_the_oc_result_on_the_mbb_beam():
     gc = optimize(problem_from_dict(mbb(optimizer="gcmma", max_iterations=150)))
     assert gc.summary["compliance_Nmm"] == pytest.approx(oc.summary["compliance_Nmm"], rel=0.02)
     assert abs(gc.summary["volume_fraction"] - 0.5) < 1e-3
+
+
+def test_factory_builds_the_optimizer_the_settings_name():
+    from types import SimpleNamespace
+
+    from topo.optimizers import BoundFormulation, MMAStep, OptimalityCriteria, make_optimizer
+
+    active = np.ones(6, bool)
+    settings = lambda name: SimpleNamespace(optimizer=name, move_limit=0.2)  # noqa: E731
+    assert isinstance(make_optimizer(settings("oc"), active), OptimalityCriteria)
+    mma = make_optimizer(settings("mma"), active, n_constraints=2)
+    assert isinstance(mma, MMAStep) and mma.mma.m == 2 and not mma.mma.globally_convergent
+    assert make_optimizer(settings("gcmma"), active).mma.globally_convergent
+    bound = make_optimizer(settings("mma"), active, n_bounds=3, n_constraints=1)
+    assert isinstance(bound, BoundFormulation) and (bound.mma.n, bound.mma.m) == (7, 4)
+
+
+def test_oc_step_refuses_a_second_constraint():
+    from types import SimpleNamespace
+
+    from topo.optimizers import OptimalityCriteria
+    from topo.responses import Evaluation, Response
+
+    active = np.ones(4, bool)
+    x = np.full(4, 0.5)
+    budget = Response("material", 2.0, 2.0, np.ones(4))
+    objective = Response("compliance", 1.0, gradient=-np.ones(4))
+    ok = OptimalityCriteria(active).step(x, Evaluation(objective, [budget]))
+    assert ok.sum() == pytest.approx(2.0)  # the budget met: Σx = 2
+    with pytest.raises(ValueError, match="material budget only"):
+        OptimalityCriteria(active).step(x, Evaluation(objective, [budget, SimpleNamespace()]))

@@ -15,6 +15,12 @@ towards the nominal value. This damps the flip-flopping that OC shows with a sha
 Heaviside projection (the same idea as the asymptote adaptation of MMA, Svanberg
 1987, Int. J. Numer. Meth. Eng. 24:359). With ``adaptive=False`` the update is the
 classical fixed-move OC.
+
+Every optimizer the loop uses has `step(x, ev) → x_new`, with `ev` a responses
+Evaluation (objective, constraints g = v/L − 1 ≤ 0, worst-case bounds; gradients
+with respect to the full design vector x), and `state()` / `restore()` for
+checkpoints. `make_optimizer` builds the one the problem names: OC, MMA, GCMMA, or
+the bound formulation of the worst case on MMA.
 """
 from __future__ import annotations
 
@@ -41,6 +47,15 @@ class OptimalityCriteria:
 
     def restore(self, state: dict) -> None:
         self.limits, self.last_step = state["limits"].copy(), state["last_step"].copy()
+
+    def step(self, x: np.ndarray, ev) -> np.ndarray:
+        """One update from a responses evaluation: OC handles one constraint, the
+        material budget, met exactly when it carries an `exact` evaluation."""
+        if len(ev.constraints) != 1:
+            raise ValueError("the optimality-criteria update handles the material budget only")
+        (budget,) = ev.constraints
+        return self.update(x, ev.objective.gradient, budget.value, budget.gradient, budget.limit,
+                           budget.exact)
 
     def update(self, x: np.ndarray, dc: np.ndarray, volume: float, dv: np.ndarray,
                target: float, exact_volume: Callable[[np.ndarray], float] | None = None
@@ -271,3 +286,98 @@ class MMA:
         if self.xold2 is None:
             self.xold2 = x.copy()
         return x_new
+
+
+def _constraint_arrays(constraints, active: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Values g_i and gradients ∂g_i/∂x on the design elements."""
+    g = np.array([r.value / r.limit - 1.0 for r in constraints])
+    dg = np.array([r.gradient[active] / r.limit for r in constraints])
+    return g, dg
+
+
+class _MMAOnDesign:
+    """MMA on the design elements, with the objective scaled by its first value."""
+
+    def __init__(self, active: np.ndarray, n_extra: int, m: int, move: float,
+                 globally_convergent: bool = False):
+        n = int(active.sum()) + n_extra
+        lo, hi = np.zeros(n), np.ones(n)
+        if n_extra:
+            hi[-1] = 100.0  # t, in units of the first iteration's largest compliance
+        self.mma = MMA(n, m, lo, hi, move=move, globally_convergent=globally_convergent)
+        self.active, self.scale, self.t = active, None, None
+
+    def state(self) -> dict:
+        out = {f"mma_{k}": v for k, v in self.mma.state().items()}
+        out["scale"] = np.array(self.scale if self.scale is not None else np.nan)
+        out["t"] = np.array(self.t if self.t is not None else np.nan)
+        return out
+
+    def restore(self, state: dict) -> None:
+        self.mma.restore({k[4:]: v for k, v in state.items() if k.startswith("mma_")})
+        self.scale = None if np.isnan(state["scale"]) else float(state["scale"])
+        self.t = None if np.isnan(state["t"]) else float(state["t"])
+
+
+class MMAStep(_MMAOnDesign):
+    """min f/f₁ s.t. g_i ≤ 0 with f₁ = |∂f/∂x · x| at the first iteration; with
+    `globally_convergent`, GCMMA, whose inner iterations call `ev.probe`."""
+
+    def __init__(self, active: np.ndarray, n_constraints: int, move: float,
+                 globally_convergent: bool = False):
+        super().__init__(active, 0, n_constraints, move, globally_convergent)
+
+    def step(self, x: np.ndarray, ev) -> np.ndarray:
+        act, objective = self.active, ev.objective
+        if self.scale is None:
+            self.scale = float(abs(objective.gradient[act] @ x[act])) or 1.0
+        g, dg = _constraint_arrays(ev.constraints, act)
+        probe = None
+        if self.mma.globally_convergent:
+            def probe(xa: np.ndarray) -> tuple[float, np.ndarray]:
+                full = x.copy()
+                full[act] = xa
+                value, values = ev.probe(full)
+                return value / self.scale, values
+        out = x.copy()
+        out[act] = self.mma.update(x[act], objective.gradient[act] / self.scale, g, dg,
+                                   objective.value / self.scale, probe)
+        return out
+
+
+class BoundFormulation(_MMAOnDesign):
+    """Worst case by the bound formulation: min t over (x, t) s.t. c_l/c₁ ≤ t for
+    every bound term and g_i ≤ 0; c₁ is the first iteration's largest c_l."""
+
+    def __init__(self, active: np.ndarray, n_bounds: int, n_constraints: int, move: float):
+        super().__init__(active, 1, n_bounds + n_constraints, move)
+
+    def step(self, x: np.ndarray, ev) -> np.ndarray:
+        act, n = self.active, int(self.active.sum())
+        c = np.array([b.value for b in ev.bounds])
+        if self.scale is None:
+            self.scale, self.t = float(c.max()), 1.0
+        g, dg = _constraint_arrays(ev.constraints, act)
+        df0 = np.zeros(n + 1)
+        df0[-1] = 1.0
+        df = np.zeros((len(c) + len(g), n + 1))
+        for i, b in enumerate(ev.bounds):
+            df[i, :n], df[i, -1] = b.gradient[act] / self.scale, -1.0
+        df[len(c):, :n] = dg
+        z = self.mma.update(np.append(x[act], self.t), df0, np.concatenate([c / self.scale - self.t, g]), df)
+        self.t = float(z[-1])
+        out = x.copy()
+        out[act] = z[:n]
+        return out
+
+
+def make_optimizer(settings, active: np.ndarray, n_bounds: int = 0, n_constraints: int = 1):
+    """The optimizer the problem's `optimization` settings name, sized for the design
+    elements `active`, `n_bounds` worst-case bounds and `n_constraints` constraints.
+    Any callable of these arguments returning an object with `step` can stand in."""
+    if n_bounds:
+        return BoundFormulation(active, n_bounds, n_constraints, settings.move_limit)
+    if settings.optimizer in ("mma", "gcmma"):
+        return MMAStep(active, n_constraints, settings.move_limit,
+                       globally_convergent=settings.optimizer == "gcmma")
+    return OptimalityCriteria(active, settings.move_limit)

@@ -1,0 +1,208 @@
+"""The responses the optimizer sees: the objective and the constraints g ≤ 0.
+
+Each response is a named term with a value v, a limit L and the gradient of v, first
+with respect to the physical density ρ (`Responses.evaluate`, the sensitivities) and
+then, pulled back through the transform chain, with respect to the design variables
+x (`Responses.pull_back`). A constraint reads g = v/L − 1 ≤ 0. A new constraint is
+one more term in `constraint_terms`: an object with a `name` and
+`evaluate(rho, analysis, gradient) → Response`; neither the loop nor the optimizers
+change.
+
+The worst-case objective (bound formulation) reports max_l c_l and hands the
+optimizer one bound term per load case, c_l ≤ t, in `Evaluation.bounds`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+
+from .problem import Problem, ProblemError
+
+
+@dataclass
+class Response:
+    name: str
+    value: float
+    limit: float = 1.0
+    gradient: np.ndarray | None = None  # d value / dρ, after pull_back d value / dx
+    exact: Callable[[np.ndarray], float] | None = None  # value at a candidate x without a solve
+
+    @property
+    def g(self) -> float:
+        """The constraint value v/L − 1 (≤ 0 when met)."""
+        return self.value / self.limit - 1.0
+
+
+@dataclass
+class Evaluation:
+    """The responses at one design; `probe(x)` → (objective, g values) at a candidate
+    design, one solve each (the inner iterations of GCMMA)."""
+    objective: Response
+    constraints: list[Response]
+    bounds: list[Response] = field(default_factory=list)
+    probe: Callable[[np.ndarray], tuple[float, np.ndarray]] | None = None
+
+
+def compliance_gradient(model, density: np.ndarray, analysis, weights: np.ndarray
+                        ) -> tuple[float, np.ndarray]:
+    """Weighted compliance and its derivative with respect to ρ (adjoint: λ = −u)."""
+    c = float(weights @ analysis.compliances)
+    # ∂c_l/∂ρ_e = −(∂E_e/∂ρ_e / E0) · u_eᵀ k0 u_e  (k0 with the solid modulus)
+    dc = -model.moduli_derivative(density) * (analysis.energies @ weights)
+    return c, dc
+
+
+class WeightedCompliance:
+    """c = Σ w_l f_lᵀ u_l over the load cases."""
+    name = "compliance"
+
+    def __init__(self, model, weights: np.ndarray):
+        self.model, self.weights = model, weights
+
+    def evaluate(self, rho, analysis, gradient: bool = True) -> tuple[Response, list]:
+        if not gradient:
+            return Response(self.name, float(self.weights @ analysis.compliances)), []
+        c, dc = compliance_gradient(self.model, rho, analysis, self.weights)
+        return Response(self.name, c, gradient=dc), []
+
+
+class WorstCaseCompliance:
+    """max_l c_l, handed to the optimizer as one bound c_l ≤ t per load case
+    (bound formulation, Bendsøe & Sigmund 2003, Topology Optimization, §2.5)."""
+    name = "worst-case compliance"
+
+    def __init__(self, model, case_names: list[str]):
+        self.model, self.case_names = model, case_names
+
+    def evaluate(self, rho, analysis, gradient: bool = True) -> tuple[Response, list]:
+        worst = Response(self.name, float(analysis.compliances.max()))
+        per_case = -self.model.moduli_derivative(rho)[:, None] * analysis.energies
+        bounds = [Response(f"compliance[{name}]", float(c), gradient=g)
+                  for name, c, g in zip(self.case_names, analysis.compliances, per_case.T)]
+        return worst, bounds
+
+
+class MaterialBudget:
+    """w·ρ ≤ target. volume_fraction: w averages ρ over the design elements.
+    mass_limit: w is each element's mass at full density, over all elements, so
+    passive solids count (and so does any part of them the overhang layer removes).
+    `start` is the starting density of the design elements."""
+    name = "material"
+
+    def __init__(self, problem: Problem, model, chain):
+        opt, active = problem.optimization, model.active
+        n_active = int(active.sum())
+        self.chain = chain
+        if opt.mass_limit is None:
+            self.weights, self.target = active / n_active, opt.volume_fraction
+            self.start = opt.volume_fraction
+            return
+        element_mass = problem.domain.element_volume * 1e-9 * problem.material.density  # kg
+        passive = element_mass * int(model.solid.sum())
+        if passive >= opt.mass_limit:
+            raise ProblemError(problem.source, "optimization.mass_limit",
+                               f"{opt.mass_limit} kg is not more than the passive solid regions "
+                               f"alone ({passive:.4g} kg)")
+        self.weights = np.full(model.grid.n_elements, element_mass)
+        self.target = opt.mass_limit
+        self.start = float(np.clip((opt.mass_limit - passive) / (element_mass * n_active), 0.01, 1.0))
+
+    def at(self, x: np.ndarray) -> float:
+        return float(self.weights @ self.chain.forward(x))
+
+    def evaluate(self, rho, analysis, gradient: bool = True) -> Response:
+        # A projection or an overhang layer makes the budget nonlinear in x: OC
+        # meets it exactly at every step through `exact`.
+        return Response(self.name, float(self.weights @ rho), self.target,
+                        self.weights if gradient else None,
+                        None if self.chain.linear else self.at)
+
+
+class StressLimit:
+    """c_k·σ_PN/σ_limit − 1 ≤ 0 on the p-norm of the relaxed stress, with the
+    adaptive correction c_k of Le et al. (2010, Struct. Multidisc. Optim. 41:605):
+    the latest ratio of the true peak to the aggregate blended with the previous
+    correction. Only the evaluation with gradient (the accepted design) updates c_k."""
+    name = "stress"
+
+    def __init__(self, model, limit: float, alpha: float = 0.5):
+        from .stress import StressMeasure
+
+        self.measure, self.limit, self.alpha = StressMeasure(model), limit, alpha
+        self.correction: float | None = None
+
+    def evaluate(self, rho, analysis, gradient: bool = True) -> Response:
+        if not gradient:
+            pn = self.measure.aggregate(rho, analysis, gradient=False)[0]
+            return Response(self.name, self.correction * pn / self.limit)
+        pn, dpn, peak = self.measure.aggregate(rho, analysis)
+        ratio = peak / pn if pn > 0 else 1.0
+        prev = self.correction
+        self.correction = ratio if prev is None else self.alpha * ratio + (1 - self.alpha) * prev
+        return Response(self.name, self.correction * pn / self.limit,
+                        gradient=self.correction * dpn / self.limit)
+
+    def state(self) -> dict:
+        return {"correction": np.array(np.nan if self.correction is None else self.correction)}
+
+    def restore(self, state: dict) -> None:
+        c = state.get("correction")
+        self.correction = None if c is None or np.isnan(c) else float(c)
+
+
+def constraint_terms(problem: Problem, model, chain) -> list:
+    """The constraints of a problem, the material budget first."""
+    terms = [MaterialBudget(problem, model, chain)]
+    if problem.optimization.stress_limit is not None:
+        terms.append(StressLimit(model, problem.optimization.stress_limit))
+    return terms
+
+
+class Responses:
+    """The objective and the constraint terms of a problem, evaluated together."""
+
+    def __init__(self, problem: Problem, model, chain):
+        if problem.optimization.objective == "worst_case":
+            self.objective = WorstCaseCompliance(model, [c.name for c in problem.load_cases])
+        else:
+            self.objective = WeightedCompliance(model, np.array([c.weight for c in problem.load_cases]))
+        self.constraints = constraint_terms(problem, model, chain)
+        self.model, self.chain = model, chain
+        self.n_bounds = len(problem.load_cases) if problem.optimization.objective == "worst_case" else 0
+
+    @property
+    def material(self) -> MaterialBudget:
+        return self.constraints[0]
+
+    def evaluate(self, rho: np.ndarray, analysis) -> Evaluation:
+        """Values and ρ-gradients at the accepted design."""
+        objective, bounds = self.objective.evaluate(rho, analysis)
+        constraints = [t.evaluate(rho, analysis) for t in self.constraints]
+        return Evaluation(objective, constraints, bounds, self.probe)
+
+    def pull_back(self, x: np.ndarray, ev: Evaluation) -> None:
+        """Turn every ρ-gradient of `ev` into an x-gradient, in one chain pass."""
+        terms = [r for r in [ev.objective, *ev.bounds, *ev.constraints] if r.gradient is not None]
+        for r, g in zip(terms, self.chain.backward_many(x, [r.gradient for r in terms])):
+            r.gradient = g
+
+    def probe(self, x: np.ndarray) -> tuple[float, np.ndarray]:
+        """Objective and constraint values at a candidate design (one solve); the
+        stress correction stays as it is."""
+        rho = self.chain.forward(x)
+        analysis = self.model.analyze(rho, stresses=False)
+        objective = self.objective.evaluate(rho, analysis, gradient=False)[0]
+        return objective.value, np.array([t.evaluate(rho, analysis, gradient=False).g
+                                          for t in self.constraints])
+
+    def state(self) -> dict:
+        return {f"{t.name}_{k}": v for t in self.constraints if hasattr(t, "state")
+                for k, v in t.state().items()}
+
+    def restore(self, state: dict) -> None:
+        for t in self.constraints:
+            if hasattr(t, "restore"):
+                prefix = f"{t.name}_"
+                t.restore({k[len(prefix):]: v for k, v in state.items() if k.startswith(prefix)})
