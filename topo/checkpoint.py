@@ -45,7 +45,7 @@ class Checkpoint:
         return bool(self.path) and iteration % self.interval == 0
 
     def save(self, state: LoopState) -> None:
-        from .export import atomic_write
+        from .files import atomic_write
 
         if not self.path:
             return
