@@ -16,11 +16,19 @@ from typing import Callable
 
 import numpy as np
 
-from .fem import Analysis, Model, _tick
+from .fem import Analysis, Model
 from .optimizers import MMA, OptimalityCriteria
 from .problem import Problem, ProblemError
 from .solvers import blas_for_solver
+from .timing import Timer
 from .transforms import Chain, DensityFilter, HeavisideProjection, OverhangFilter, PassiveOverride
+
+
+def _tick(timer: dict | None, phase: str, since: float) -> float:
+    now = time.perf_counter()
+    if timer is not None:
+        timer[phase] = timer.get(phase, 0.0) + now - since
+    return now
 
 
 @dataclass
@@ -211,10 +219,10 @@ def _save_checkpoint(path: Path, state: _LoopState, update, model: Model,
 
     from .export import atomic_write
 
-    warm = getattr(model.solver, "last", None)
     buf = io.BytesIO()
     extra = {f"opt_{k}": np.asarray(v) for k, v in update.state().items()}
-    np.savez(buf, x=state.x, **extra, warm=np.zeros(0) if warm is None else warm,
+    extra.update({f"sys_{k}": v for k, v in model.system.state().items()})
+    np.savez(buf, x=state.x, **extra,
              scalars=np.array([state.iteration, state.beta, state.since_beta], dtype=float),
              history=np.array(json.dumps(state.history)), problem=np.array(json.dumps(problem.raw)))
     atomic_write(path, buf.getvalue())
@@ -233,8 +241,7 @@ def _load_checkpoint(path: Path, state: _LoopState, update, model: Model,
     state.iteration, state.beta, state.since_beta = int(it), float(beta), int(since)
     state.history = json.loads(str(data["history"]))
     update.restore({k[4:]: data[k] for k in data.files if k.startswith("opt_")})
-    if data["warm"].size and hasattr(model.solver, "last"):
-        model.solver.last = data["warm"].copy()
+    model.system.restore({k[4:]: data[k] for k in data.files if k.startswith("sys_")})
 
 
 def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
@@ -295,7 +302,7 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
             t0 = time.perf_counter()
             rho = chain.forward(x)
             clock = _tick(timer, "transforms", t0)
-            analysis = model.analyze(rho, stresses=False, timer=timer)
+            analysis = model.analyze(rho, stresses=False, timer=Timer(timer))
             clock = time.perf_counter()
             volume = float(dv_drho @ rho)
             extra, extra_grads = [], []
@@ -336,7 +343,7 @@ def _optimize(problem: Problem, callback, timer, checkpoint, resume) -> Result:
             row = {"iteration": it, "objective": c, "volume_fraction": float(rho[active].mean()),
                    "constraint": volume / target - 1.0, "change": change,
                    "beta": beta, "seconds": time.perf_counter() - t0,
-                   "solver_iterations": model.solver.iterations, "solver": model.solver.name}
+                   "solver_iterations": model.system.iterations, "solver": model.system.name}
             state.history.append(row)
             state.since_beta += 1
             at_max = projection is None or projection.beta >= opt.beta_max

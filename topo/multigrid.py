@@ -14,8 +14,12 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
+from .cholesky import SparseCholesky
+from .galerkin import ElementGalerkin
+from .linear import LinearSystem, check_state_keys
 from .parallel import RowBlocks
-from .solvers import DirectSolver
+from .stencil import StencilAssembly
+from .timing import Timer
 
 # Coarsening stops at the first level with at most this many dofs. The coarsest
 # grid trades its Cholesky factorisation, redone every design iteration, against CG
@@ -83,7 +87,7 @@ class Hierarchy:
         self.operators: list[sp.csr_matrix] = []
         self.products: list[RowBlocks] = []
         self.smoother_weights: list[np.ndarray] = []  # ω D⁻¹ per smoothed level
-        self.coarse: DirectSolver | None = None
+        self.coarse: SparseCholesky | None = None
         self.elementwise = None  # galerkin.ElementGalerkin for the coarse levels, if set
         self._power_vectors: list[np.ndarray] = []
         self._coarse_pattern: tuple = ()
@@ -123,14 +127,14 @@ class Hierarchy:
         lower.sum_duplicates()  # the stencil layout repeats columns at the grid edge
         pattern = (lower.indptr, lower.indices)
         if self.coarse is None or not all(np.array_equal(a, b) for a, b in zip(pattern, self._coarse_pattern)):
-            self.coarse = DirectSolver()
+            self.coarse = SparseCholesky()
             self._coarse_pattern = (pattern[0].copy(), pattern[1].copy())
         self.coarse.factorize(lower)
 
     def vcycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
         """One V-cycle for A z = r (r has one column per load case)."""
         if level == len(self.transfers):
-            return self.coarse.resolve(r)
+            return self.coarse.solve(r)
         a = self.products[level]
         wd = self.smoother_weights[level]
         z = wd * r
@@ -188,39 +192,55 @@ def pcg(a, b: np.ndarray, precondition, x0: np.ndarray | None = None,
     return x, max_iter
 
 
-class MultigridCG:
-    """CG preconditioned by one multigrid V-cycle, warm-started from the last solve.
-    Works on the full dof space (supports imposed as identity rows, see
-    stencil.py), so every level is a whole structured grid."""
+class MultigridCG(LinearSystem):
+    """CG preconditioned by one multigrid V-cycle on the full dof space (supports
+    as identity rows, see stencil.py), so every level is a whole structured grid.
+    The fine matrix comes by node stencils, the coarse ones element by element
+    (galerkin.py).
 
-    full_space = True
+    The first solve after an assemble is the load-case solve: it starts from the
+    previous design's load-case solution (the warm start a checkpoint keeps) and
+    its CG iterations are `iterations`. Later solves with the same matrix (adjoint
+    right-hand sides) start from zero."""
 
-    def __init__(self, shape: tuple[int, ...], rtol: float = RTOL, coarse_dofs: int = COARSE_DOFS):
-        self.hierarchy = Hierarchy(shape, coarse_dofs)
-        self.rtol = rtol
-        self.last: np.ndarray | None = None
-        self.iterations = 0
-        self.name = f"multigrid-cg ({self.hierarchy.levels} levels)"
-
-    def use_element_galerkin(self, grid, ke: np.ndarray, fixed: np.ndarray) -> None:
-        """Form the coarse operators from element moduli (see galerkin.py); `solve`
-        then needs the moduli the matrix was assembled from."""
-        from .galerkin import ElementGalerkin
-
+    def __init__(self, grid, ke: np.ndarray, fixed: np.ndarray, rtol: float = RTOL,
+                 coarse_dofs: int = COARSE_DOFS):
+        self._fixed = fixed
+        self._assembly = StencilAssembly(grid, ke, fixed)
+        self.hierarchy = Hierarchy(grid.shape, coarse_dofs)
         self.hierarchy.elementwise = ElementGalerkin(grid, ke, fixed, len(self.hierarchy.transfers))
+        self.rtol = rtol
+        self.iterations: int | None = None
+        self.name = f"multigrid-cg ({self.hierarchy.levels} levels)"
+        self._warm: np.ndarray | None = None
+        self._first_solve = False
 
-    def solve(self, k: sp.csr_matrix, rhs: np.ndarray, moduli: np.ndarray | None = None) -> np.ndarray:
-        rhs = np.asarray(rhs, dtype=float).reshape(k.shape[0], -1)
-        self.hierarchy.update(k, moduli)
-        x0 = self.last if self.last is not None and self.last.shape == rhs.shape else None
-        x, self.iterations = pcg(self.hierarchy.products[0], rhs, self.hierarchy.vcycle, x0, self.rtol)
-        if self.iterations >= 500:
+    def assemble(self, moduli: np.ndarray, timer: Timer | None = None) -> None:
+        timer = timer or Timer()
+        with timer("assembly"):
+            a = self._assembly.matrix(moduli)
+        with timer("solve"):
+            self.hierarchy.update(a, moduli)
+        self._first_solve = True
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        b = np.array(rhs, dtype=float).reshape(len(self._fixed), -1)
+        b[self._fixed] = 0.0  # a load on a support goes to the support
+        x0 = None
+        if self._first_solve and self._warm is not None and self._warm.shape == b.shape:
+            x0 = self._warm
+        x, iterations = pcg(self.hierarchy.products[0], b, self.hierarchy.vcycle, x0, self.rtol)
+        if iterations >= 500:
             raise FloatingPointError("multigrid-CG did not converge in 500 iterations")
-        self.last = x
-        return x
+        if self._first_solve:
+            self._warm, self.iterations, self._first_solve = x, iterations, False
+        out = x.copy()  # the warm start keeps CG's own (near-zero) values on the supports
+        out[self._fixed] = 0.0
+        return out.reshape(np.shape(rhs))
 
-    def resolve(self, rhs: np.ndarray) -> np.ndarray:
-        """Solve with the matrix and hierarchy of the last `solve` (adjoint loads)."""
-        rhs = np.asarray(rhs, dtype=float).reshape(self.hierarchy.products[0].shape[0], -1)
-        x, _ = pcg(self.hierarchy.products[0], rhs, self.hierarchy.vcycle, None, self.rtol)
-        return x
+    def state(self) -> dict[str, np.ndarray]:
+        return {} if self._warm is None else {"warm": self._warm.copy()}
+
+    def restore(self, state: dict[str, np.ndarray]) -> None:
+        check_state_keys(state, ("warm",))
+        self._warm = np.array(state["warm"], dtype=float) if "warm" in state else None
