@@ -89,7 +89,7 @@ class Hierarchy:
         self.smoother_weights: list[np.ndarray] = []  # ω D⁻¹ per smoothed level
         self.coarse: SparseCholesky | None = None
         self.elementwise = None  # galerkin.ElementGalerkin for the coarse levels, if set
-        self._power_vectors: list[np.ndarray] = []
+        self.power_vectors: list[np.ndarray] = []  # last λmax eigenvector per smoothed level
         self._coarse_pattern: tuple = ()
 
     @property
@@ -116,11 +116,11 @@ class Hierarchy:
         # changes little from one design to the next.
         smoothed = self.products[:-1]
         inv_diag = [1.0 / op.diagonal() for op in self.operators[:-1]]
-        warm = len(self._power_vectors) == len(smoothed)
-        estimates = [_lambda_max(op, d, self._power_vectors[i] if warm else None)
+        warm = len(self.power_vectors) == len(smoothed)
+        estimates = [_lambda_max(op, d, self.power_vectors[i] if warm else None)
                      for i, (op, d) in enumerate(zip(smoothed, inv_diag))]
         self.smoother_weights = [(4.0 / (3.0 * lam)) * d[:, None] for (lam, _), d in zip(estimates, inv_diag)]
-        self._power_vectors = [v for _, v in estimates]
+        self.power_vectors = [v for _, v in estimates]
         # Sparse products drop entries that come out zero, so their pattern can
         # change from one design to the next: a new symbolic analysis only then.
         lower = sp.tril(self.operators[-1]).tocsc()
@@ -199,9 +199,10 @@ class MultigridCG(LinearSystem):
     (galerkin.py).
 
     The first solve after an assemble is the load-case solve: it starts from the
-    previous design's load-case solution (the warm start a checkpoint keeps) and
-    its CG iterations are `iterations`. Later solves with the same matrix (adjoint
-    right-hand sides) start from zero."""
+    previous design's load-case solution and its CG iterations are `iterations`.
+    Later solves with the same matrix (adjoint right-hand sides) start from zero.
+    The state is that warm start and the smoothers' power-iteration vectors, so a
+    run resumed from a checkpoint repeats the uninterrupted one exactly."""
 
     def __init__(self, grid, ke: np.ndarray, fixed: np.ndarray, rtol: float = RTOL,
                  coarse_dofs: int = COARSE_DOFS):
@@ -239,8 +240,14 @@ class MultigridCG(LinearSystem):
         return out.reshape(np.shape(rhs))
 
     def state(self) -> dict[str, np.ndarray]:
-        return {} if self._warm is None else {"warm": self._warm.copy()}
+        out = {f"power_{i}": v.copy() for i, v in enumerate(self.hierarchy.power_vectors)}
+        if self._warm is not None:
+            out["warm"] = self._warm.copy()
+        return out
 
     def restore(self, state: dict[str, np.ndarray]) -> None:
-        check_state_keys(state, ("warm",))
+        smoothed = self.hierarchy.levels - 1
+        check_state_keys(state, ("warm",) + tuple(f"power_{i}" for i in range(smoothed)))
         self._warm = np.array(state["warm"], dtype=float) if "warm" in state else None
+        power = [state.get(f"power_{i}") for i in range(smoothed)]
+        self.hierarchy.power_vectors = [] if any(v is None for v in power) else [np.array(v) for v in power]
