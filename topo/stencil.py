@@ -132,12 +132,12 @@ class FreeLowerTriangle:
         keep = keep.reshape(n, -1) & free[:, None] & free[cols] & (cols >= np.arange(n)[:, None])
         take = np.flatnonzero(keep)
         self.n_free = n_free = int(free.sum())
-        index_type = np.int32 if max(len(take), n * cols.shape[1]) < 2**31 else np.int64
-        self._take = take.astype(index_type)
+        index_type = np.int32 if len(take) < 2**31 else np.int64
+        self._take = take  # np.intp: np.take is fastest with native indices
         self._indices = (np.cumsum(free) - 1)[cols.reshape(-1)[take]].astype(index_type)
         per_column = keep.sum(axis=1)[free]
         self._indptr = np.concatenate([[0], np.cumsum(per_column)]).astype(index_type)
 
     def __call__(self, full: sp.csr_matrix) -> sp.csc_matrix:
-        return sp.csc_matrix((full.data[self._take], self._indices, self._indptr),
+        return sp.csc_matrix((np.take(full.data, self._take), self._indices, self._indptr),
                              shape=(self.n_free, self.n_free))
