@@ -11,7 +11,7 @@ from contextlib import contextmanager
 
 import numpy as np
 
-from .cholesky import SparseCholesky, cholmod_available  # noqa: F401 - part of this module's API
+from .cholesky import SparseCholesky
 from .linear import LinearSystem, check_state_keys
 from .multigrid import MultigridCG
 from .stencil import FreeLowerTriangle, StencilAssembly
