@@ -15,6 +15,9 @@ bytes per element-matrix entry for a general sparse assembly. Element matrices
 that differ per element (the coarse levels of multigrid) go through
 `from_elements`, which accumulates contiguous slices instead.
 
+Both linear systems assemble here: multigrid-CG uses the full matrix, the direct
+solver gathers the lower triangle of its free-dof block (FreeLowerTriangle).
+
 Supports are imposed on the full dof space: rows and columns of fixed dofs are
 zeroed and their diagonal set to 1 (with zero load there), which keeps the grid
 structure that geometric multigrid relies on.
