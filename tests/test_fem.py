@@ -79,9 +79,15 @@ def test_all_load_cases_in_one_solve_match_separate_solves():
         assert np.allclose(both.displacements[:, c], one.displacements[:, 0], rtol=1e-10, atol=1e-14)
 
 
-def test_assembly_matches_dense_reference():
-    # Independent assembly with plain loops and numpy, against the fixed-pattern one.
-    d = beam_problem(3, [3.0, 2.0, 2.0], 1.0)
+@pytest.mark.parametrize("dim", [2, 3])
+def test_assembly_matches_dense_reference(dim):
+    # Independent assembly with plain loops and numpy, against the node-stencil one
+    # (full dof space, supports as identity rows) and the lower triangle of its
+    # free-dof block that the direct solver gathers from it and factorises.
+    from topo.solvers import DirectSystem
+    from topo.stencil import StencilAssembly
+
+    d = beam_problem(dim, [5.0, 3.0] if dim == 2 else [3.0, 2.0, 2.0], 1.0)
     m = Model(problem_from_dict(d))
     rho = np.random.default_rng(1).uniform(0.1, 1.0, m.grid.n_elements)
     e = m.moduli(rho)
@@ -89,8 +95,15 @@ def test_assembly_matches_dense_reference():
     for el, dofs in enumerate(m.grid.element_dofs):
         full[np.ix_(dofs, dofs)] += e[el] * m.ke
     reduced = full[np.ix_(m.free, m.free)]
-    lower = m.stiffness(e).toarray()
-    assert np.allclose(lower, np.tril(reduced), atol=1e-12 * np.abs(reduced).max())
+    tol = 1e-12 * np.abs(reduced).max()
+    stencil = StencilAssembly(m.grid, m.ke, m._fixed).matrix(e).toarray()
+    assert np.allclose(stencil[np.ix_(m.free, m.free)], reduced, rtol=0, atol=tol)
+    fixed = m.fixed_dofs
+    assert np.array_equal(stencil[np.ix_(fixed, fixed)], np.eye(len(fixed)))
+    assert not stencil[np.ix_(fixed, m.free)].any() and not stencil[np.ix_(m.free, fixed)].any()
+    lower = DirectSystem(m.grid, m.ke, m._fixed).lower(e)
+    assert lower.format == "csc" and lower.has_sorted_indices
+    assert np.allclose(lower.toarray(), np.tril(reduced), rtol=0, atol=tol)
 
 
 def test_loads_are_shared_evenly():

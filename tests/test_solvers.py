@@ -1,35 +1,121 @@
-"""Solver back ends agree with each other and with a dense solve."""
+"""Linear systems: the back ends agree with each other and with a dense solve, and
+every implementation keeps the same contract."""
 import warnings
 
 import numpy as np
 import pytest
 
-from topo import solvers
+from topo import cholesky
 from topo.fem import Model
+from topo.multigrid import MultigridCG
 from topo.problem import problem_from_dict
+from topo.solvers import DirectSystem, make_system
 from conftest import beam_problem
+
+
+def dense_reference(m, e):
+    """K from plain loops over the elements, and its free-dof block."""
+    k = np.zeros((m.grid.n_dofs,) * 2)
+    for el, dofs in enumerate(m.grid.element_dofs):
+        k[np.ix_(dofs, dofs)] += e[el] * m.ke
+    return k[np.ix_(m.free, m.free)]
 
 
 def test_cholmod_superlu_and_dense_agree(monkeypatch):
     m = Model(problem_from_dict(beam_problem(3, [5.0, 3.0, 2.0], 1.0)))
     rho = np.random.default_rng(3).uniform(1e-3, 1.0, m.grid.n_elements)
-    k = m.stiffness(m.moduli(rho))
+    k = DirectSystem(m.grid, m.ke, m._fixed).lower(m.moduli(rho))
     f = m.loads[m.free]
     full = k.toarray()
     full = full + np.tril(full, -1).T
     dense = np.linalg.solve(full, f)
-    if solvers.cholmod_available():
-        chol = solvers.DirectSolver()
+    if cholesky.cholmod_available():
+        chol = cholesky.SparseCholesky()
         assert chol.name == "cholmod"
-        # two calls: the second reuses the symbolic analysis
-        chol.solve(k, f)
-        assert np.allclose(chol.solve(k, f), dense, rtol=1e-8)
-    monkeypatch.setattr(solvers, "_cholmod", None)
-    monkeypatch.setattr(solvers, "_warned", False)
+        # two factorisations: the second reuses the symbolic analysis
+        chol.factorize(k)
+        chol.factorize(k)
+        assert np.allclose(chol.solve(f), dense, rtol=1e-8)
+    monkeypatch.setattr(cholesky, "_cholmod", None)
+    monkeypatch.setattr(cholesky, "_warned", False)
     with pytest.warns(RuntimeWarning, match="CHOLMOD"):
-        lu = solvers.DirectSolver()
+        lu = cholesky.SparseCholesky()
     assert lu.name == "superlu"
-    assert np.allclose(lu.solve(k, f), dense, rtol=1e-8)
+    lu.factorize(k)
+    assert np.allclose(lu.solve(f), dense, rtol=1e-8)
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # the warning is given once only
-        solvers.DirectSolver()
+        cholesky.SparseCholesky()
+        assert DirectSystem(m.grid, m.ke, m._fixed).name == "superlu"
+
+
+def systems():
+    """Every implementation, with tight tolerances: CHOLMOD (when present),
+    SuperLU, and multigrid-CG with a coarse grid small enough for three levels."""
+    out = [("superlu", lambda g, ke, f: DirectSystem(g, ke, f, prefer_cholmod=False)),
+           ("multigrid-cg", lambda g, ke, f: MultigridCG(g, ke, f, rtol=1e-12, coarse_dofs=100))]
+    if cholesky.cholmod_available():
+        out.append(("cholmod", DirectSystem))
+    return out
+
+
+@pytest.mark.parametrize("name,factory", systems(), ids=[n for n, _ in systems()])
+def test_every_linear_system_keeps_the_contract(name, factory):
+    d = beam_problem(3, [8.0, 4.0, 4.0], 1.0)
+    d["load_case"].append({"name": "side", "force": [{"region": {"point": [8.0, 4.0, 4.0]},
+                                                      "total": [0.0, 1.0, 0.5]}]})
+    m = Model(problem_from_dict(d))
+    rng = np.random.default_rng(5)
+    e = m.moduli(rng.uniform(0.05, 1.0, m.grid.n_elements))
+    reference = np.zeros_like(m.loads)
+    reference[m.free] = np.linalg.solve(dense_reference(m, e), m.loads[m.free])
+
+    system = factory(m.grid, m.ke, m._fixed)
+    assert system.name.startswith(name)
+    system.assemble(e)
+    rhs = m.loads.copy()
+    rhs[m.fixed_dofs] = rng.normal(size=(len(m.fixed_dofs), 2))  # loads on supports go to them
+    u = system.solve(rhs)
+    assert u.shape == rhs.shape
+    assert not u[m.fixed_dofs].any()
+    # numpy's dense solve as the independent reference; CG to ‖r‖ < 1e-12‖b‖
+    assert np.linalg.norm(u - reference) <= 1e-8 * np.linalg.norm(reference)
+    if name == "multigrid-cg":
+        assert system.iterations > 0
+    else:
+        assert system.iterations is None
+    # one column alone, and an adjoint-style solve after it, leave the state alone
+    state = system.state()
+    one = system.solve(rhs[:, 1])
+    assert one.shape == (m.grid.n_dofs,)
+    assert np.linalg.norm(one - reference[:, 1]) <= 1e-8 * np.linalg.norm(reference[:, 1])
+    assert state.keys() == system.state().keys()
+    assert all(np.array_equal(state[k], system.state()[k]) for k in state)
+
+    # state/restore: a new system given the state makes the next design's solve
+    # exactly as the original does
+    e2 = e * rng.uniform(0.9, 1.1, len(e))
+    twin = factory(m.grid, m.ke, m._fixed)
+    twin.restore(state)
+    for s in (system, twin):
+        s.assemble(e2)
+    a, b = system.solve(m.loads), twin.solve(m.loads)
+    assert np.array_equal(a, b)
+    assert system.iterations == twin.iterations
+    if name == "multigrid-cg":
+        assert set(state) == {"warm"} | {f"power_{i}" for i in range(system.hierarchy.levels - 1)}
+    else:
+        assert state == {}
+    with pytest.raises(ValueError, match="unknown linear-system state"):
+        twin.restore({"bogus": np.zeros(3)})
+
+
+def test_make_system_follows_the_solver_choice():
+    d = beam_problem(3, [8.0, 4.0, 4.0], 1.0)
+    m = Model(problem_from_dict(d))
+    assert isinstance(make_system("direct", m.grid, m.ke, m._fixed), DirectSystem)
+    assert isinstance(make_system("iterative", m.grid, m.ke, m._fixed), MultigridCG)
+    # auto: direct below solvers.AUTO_ITERATIVE_DOFS free dofs
+    assert isinstance(make_system("auto", m.grid, m.ke, m._fixed), DirectSystem)
+    with pytest.raises(ValueError, match="unknown solver"):
+        make_system("fastest", m.grid, m.ke, m._fixed)

@@ -1,8 +1,8 @@
 """Loop state saved to one file every `optimization.checkpoint_interval` iterations
 and on interruption, and read back on resume so that the run continues to the design
 an uninterrupted run would reach: design variables, iteration, β and its age, the
-history, the state of each named part (optimizer, responses), the solver's warm start
-and the problem the run belongs to."""
+history, the state of each named part (optimizer, responses, the linear system's
+warm start) and the problem the run belongs to."""
 from __future__ import annotations
 
 import io
@@ -24,15 +24,6 @@ class LoopState:
     history: list = field(default_factory=list)
 
 
-def _warm_start(model) -> np.ndarray | None:
-    return getattr(model.solver, "last", None)
-
-
-def _set_warm_start(model, warm: np.ndarray) -> None:
-    if warm.size and hasattr(model.solver, "last"):
-        model.solver.last = warm.copy()
-
-
 class Checkpoint:
     """`parts`: prefix → object with state() / restore(state)."""
 
@@ -49,11 +40,10 @@ class Checkpoint:
 
         if not self.path:
             return
-        warm = _warm_start(self.model)
         parts = {f"{p}_{k}": np.asarray(v) for p, part in self.parts.items()
                  for k, v in part.state().items()}
         buf = io.BytesIO()
-        np.savez(buf, x=state.x, **parts, warm=np.zeros(0) if warm is None else warm,
+        np.savez(buf, x=state.x, **parts,
                  scalars=np.array([state.iteration, state.beta, state.since_beta], dtype=float),
                  history=np.array(json.dumps(state.history)),
                  problem=np.array(json.dumps(self.problem.raw)))
@@ -71,5 +61,4 @@ class Checkpoint:
                           json.loads(str(data["history"])))
         for p, part in self.parts.items():
             part.restore({k[len(p) + 1:]: data[k] for k in data.files if k.startswith(f"{p}_")})
-        _set_warm_start(self.model, data["warm"])
         return state

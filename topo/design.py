@@ -88,7 +88,7 @@ def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make
                            "cover the whole domain")
     responses = Responses(problem, model, chain)
     optimizer = make(opt, model.active, responses.n_bounds, len(responses.constraints))
-    saved = Checkpoint(checkpoint, problem, model, {"opt": optimizer, "resp": responses})
+    saved = Checkpoint(checkpoint, problem, model, {"opt": optimizer, "resp": responses, "sys": model.system})
     state = saved.load() if resume else LoopState(_start_design(model, responses.material.start))
     continuation = Continuation(projection, opt.beta_max, opt.beta_interval, opt.tolerance, state.beta)
     stop, stop_reason = None, "iteration limit"
@@ -141,7 +141,7 @@ def _iterate(x, chain: Chain, model: Model, responses: Responses, optimizer, tim
     """One design iteration: ρ, the responses there and the optimizer's next x."""
     with timer("transforms"):
         rho = chain.forward(x)
-    analysis = model.analyze(rho, stresses=False, timer=timer.seconds)
+    analysis = model.analyze(rho, stresses=False, timer=timer)
     with timer("sensitivities"):
         ev = responses.evaluate(rho, analysis)
     with timer("transforms"):
@@ -157,7 +157,7 @@ def _history_row(it: int, ev: Evaluation, rho, change: float, beta, seconds: flo
     return {"iteration": it, "objective": ev.objective.value,
             "volume_fraction": float(rho[model.active].mean()),
             "constraint": ev.constraints[0].g, "change": change, "beta": beta, "seconds": seconds,
-            "solver_iterations": model.solver.iterations, "solver": model.solver.name}
+            "solver_iterations": model.system.iterations, "solver": model.system.name}
 
 
 def analyze(problem: Problem, density: np.ndarray | None = None) -> Result:

@@ -1,33 +1,22 @@
-"""Finite-element model on the structured grid: assembly, supports, loads, solves.
-
-Assembly follows the fixed-pattern approach: the map from element stiffness entries
-to the entries of the reduced (free dofs), lower-triangular global matrix is built
-once as a sparse matrix A, so that each iteration's matrix values are one product
-``A @ E`` with the element moduli E. Modified SIMP (Sigmund 2007, Struct. Multidisc.
-Optim. 33:401) gives E(ρ) = E0·(e_min + ρ^p (1 − e_min)).
+"""Finite-element model on the structured grid: supports, loads, passive sets,
+and the analysis of a design through a linear system (linear.py), which assembles
+K = Σ_e E_e k0 and solves. Modified SIMP (Sigmund 2007, Struct. Multidisc. Optim.
+33:401) gives E(ρ) = E0·(e_min + ρ^p (1 − e_min)).
 """
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse as sp
 
 from .elements import centre_strain_displacement, element_stiffness, elasticity_matrix, von_mises
 from .grid import Grid
 from .problem import Problem, ProblemError
 from .regions import outside_domain, select_elements, select_nodes
-from .solvers import make_solver
+from .solvers import make_system
+from .timing import Timer
 
 AXIS_INDEX = {"x": 0, "y": 1, "z": 2}
-
-
-def _tick(timer: dict | None, phase: str, since: float) -> float:
-    now = time.perf_counter()
-    if timer is not None:
-        timer[phase] = timer.get(phase, 0.0) + now - since
-    return now
 
 
 @dataclass(frozen=True)
@@ -53,9 +42,9 @@ class Analysis:
 class Model:
     """Grid, element matrix, supports, loads and passive sets of a problem."""
 
-    def __init__(self, problem: Problem, solver_factory=None):
-        """`solver_factory(shape, free)` replaces the solver `optimization.solver`
-        names (tests and benchmarks use it to set solver options)."""
+    def __init__(self, problem: Problem, system_factory=None):
+        """`system_factory(grid, ke, fixed_mask)` replaces the linear system
+        `optimization.solver` names (tests and benchmarks use it to set options)."""
         self.problem = problem
         dom, mat = problem.domain, problem.material
         self.grid = grid = Grid(dom.shape, dom.element_size)
@@ -69,19 +58,8 @@ class Model:
         self.loads = self._loads()
         self._check_restraint()
         self.free = np.flatnonzero(~self._fixed)
-        self.solver = (solver_factory or (lambda shape, free: make_solver(
-            problem.optimization.solver, shape, free)))(grid.shape, self.free)
-        # The iterative solver works on the full dof space with node-stencil
-        # assembly; the direct one on the free dofs with a fixed sparse pattern.
-        self.full_space = getattr(self.solver, "full_space", False)
-        if self.full_space:
-            from .stencil import StencilAssembly
-
-            self._stencil = StencilAssembly(grid, self.ke, self._fixed)
-            if hasattr(self.solver, "use_element_galerkin"):
-                self.solver.use_element_galerkin(grid, self.ke, self._fixed)
-        else:
-            self._build_pattern()
+        factory = system_factory or (lambda g, ke, fixed: make_system(problem.optimization.solver, g, ke, fixed))
+        self.system = factory(grid, self.ke, self._fixed)
 
     # ------------------------------------------------------------------ problem → sets
     def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
@@ -159,42 +137,7 @@ class Model:
         """Elements the optimiser may change (not in a passive region)."""
         return ~(self.solid | self.void)
 
-    # ------------------------------------------------------------------- assembly
-    def _build_pattern(self) -> None:
-        """Map element matrix entries to the lower triangle of the reduced matrix in
-        CSC order (for CHOLMOD). Entries that are zero in k0 (no coupling in any
-        element) are left out."""
-        n_free = len(self.free)
-        index = np.full(self.grid.n_dofs, -1, dtype=np.int64)
-        index[self.free] = np.arange(n_free)
-        edofs = index[self.grid.element_dofs]  # (ne, nde), -1 where fixed
-        nde = self.ke.shape[0]
-        a, b = np.tril_indices(nde)
-        nonzero = np.abs(self.ke[a, b]) > 1e-12 * np.abs(self.ke).max()
-        a, b = a[nonzero], b[nonzero]
-        r, c = edofs[:, a], edofs[:, b]  # (ne, n_pairs)
-        keep = (r >= 0) & (c >= 0)
-        elem = np.broadcast_to(np.arange(len(edofs), dtype=np.int32)[:, None], r.shape)[keep]
-        vals = np.broadcast_to(self.ke[a, b], r.shape)[keep]
-        r, c = r[keep], c[keep]
-        col, row = np.minimum(r, c), np.maximum(r, c)  # lower triangle; k0 is symmetric
-        del r, c
-        unique, entry = np.unique(col * n_free + row, return_inverse=True)  # CSC order
-        self._indices = (unique % n_free).astype(np.int32)
-        self._indptr = np.searchsorted(unique // n_free, np.arange(n_free + 1)).astype(np.int32)
-        self._scatter = sp.csr_matrix((vals, (entry.astype(np.int64), elem)),
-                                      shape=(len(unique), len(edofs)))
-        self._n_free = n_free
-
-    def stiffness(self, moduli: np.ndarray) -> sp.spmatrix:
-        """Stiffness for element modulus factors E/E0: the lower triangle of the
-        reduced matrix (CSC) for the direct solver, the full-space matrix with the
-        supports as identity rows (CSR) for the iterative one."""
-        if self.full_space:
-            return self._stencil.matrix(moduli)
-        data = self._scatter @ moduli
-        return sp.csc_matrix((data, self._indices, self._indptr), shape=(self._n_free,) * 2)
-
+    # ------------------------------------------------------------------- analysis
     def moduli(self, density: np.ndarray) -> np.ndarray:
         opt = self.problem.optimization
         e_min = opt.min_stiffness
@@ -205,51 +148,33 @@ class Model:
         p = opt.penalty
         return p * density ** (p - 1) * (1.0 - opt.min_stiffness)
 
-    # ---------------------------------------------------------------------- solve
     def analyze(self, density: np.ndarray, stresses: bool = True,
-                timer: dict | None = None) -> Analysis:
+                timer: Timer | None = None) -> Analysis:
         """Solve every load case for the element densities (flat, C order).
         `stresses=False` skips the von Mises field (not needed inside the loop);
         `timer` accumulates seconds under 'assembly', 'solve' and 'sensitivities'."""
-        clock = time.perf_counter()
-        moduli = self.moduli(density)
-        k = self.stiffness(moduli)
-        clock = _tick(timer, "assembly", clock)
-        if self.full_space:
-            u = self._solve_with(lambda rhs: self.solver.solve(k, rhs, moduli), self.loads)
-        else:
-            u = self._solve_with(lambda rhs: self.solver.solve(k, rhs), self.loads)
-        if not np.all(np.isfinite(u)):
-            raise FloatingPointError("the linear solve returned non-finite displacements")
-        clock = _tick(timer, "solve", clock)
-        compliances = np.einsum("dc,dc->c", self.loads, u)
-        ue = u[self.grid.element_dofs]  # (ne, nde, nc)
-        # u_eᵀ k0 u_e for every element and case: one matrix product over all elements
-        flat = ue.transpose(0, 2, 1).reshape(-1, ue.shape[1])
-        energies = np.einsum("ij,ij->i", flat @ self.ke, flat).reshape(len(ue), -1)
-        mag = np.linalg.norm(u.reshape(self.grid.n_nodes, self.dim, -1), axis=1)
-        vm = self._von_mises(ue) if stresses else np.zeros_like(energies)
-        _tick(timer, "sensitivities", clock)
+        timer = timer or Timer()
+        with timer("assembly"):
+            moduli = self.moduli(density)
+        self.system.assemble(moduli, timer)
+        with timer("solve"):
+            u = self.system.solve(self.loads)
+            if not np.all(np.isfinite(u)):
+                raise FloatingPointError("the linear solve returned non-finite displacements")
+        with timer("sensitivities"):
+            compliances = np.einsum("dc,dc->c", self.loads, u)
+            ue = u[self.grid.element_dofs]  # (ne, nde, nc)
+            # u_eᵀ k0 u_e for every element and case: one matrix product over all elements
+            flat = ue.transpose(0, 2, 1).reshape(-1, ue.shape[1])
+            energies = np.einsum("ij,ij->i", flat @ self.ke, flat).reshape(len(ue), -1)
+            mag = np.linalg.norm(u.reshape(self.grid.n_nodes, self.dim, -1), axis=1)
+            vm = self._von_mises(ue) if stresses else np.zeros_like(energies)
         return Analysis(u, compliances, energies, mag.max(axis=0), vm)
 
     def resolve(self, rhs: np.ndarray) -> np.ndarray:
         """K⁻¹ rhs with the matrix of the last analysis (adjoint solves); full-size
         vectors, zero on the fixed dofs."""
-        return self._solve_with(self.solver.resolve, rhs)
-
-    def _solve_with(self, solve, rhs: np.ndarray) -> np.ndarray:
-        """Full-size solution of the system `solve` handles for full-size `rhs`:
-        on the free dofs for the direct solver; on the full space, with zero load on
-        the fixed dofs (a load there goes to the support), for the iterative one."""
-        out = np.zeros_like(rhs)
-        if self.full_space:
-            r = rhs.copy()
-            r[self._fixed] = 0.0
-            out[:] = solve(r).reshape(out.shape)
-            out[self._fixed] = 0.0
-        else:
-            out[self.free] = solve(rhs[self.free]).reshape(len(self.free), -1)
-        return out
+        return self.system.solve(rhs)
 
     def _von_mises(self, ue: np.ndarray) -> np.ndarray:
         mat = self.problem.material

@@ -14,8 +14,12 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
+from .cholesky import SparseCholesky
+from .galerkin import ElementGalerkin
+from .linear import LinearSystem, check_state_keys
 from .parallel import RowBlocks
-from .solvers import DirectSolver
+from .stencil import StencilAssembly
+from .timing import Timer
 
 # Coarsening stops at the first level with at most this many dofs. The coarsest
 # grid trades its Cholesky factorisation, redone every design iteration, against CG
@@ -83,9 +87,9 @@ class Hierarchy:
         self.operators: list[sp.csr_matrix] = []
         self.products: list[RowBlocks] = []
         self.smoother_weights: list[np.ndarray] = []  # ω D⁻¹ per smoothed level
-        self.coarse: DirectSolver | None = None
+        self.coarse: SparseCholesky | None = None
         self.elementwise = None  # galerkin.ElementGalerkin for the coarse levels, if set
-        self._power_vectors: list[np.ndarray] = []
+        self.power_vectors: list[np.ndarray] = []  # last λmax eigenvector per smoothed level
         self._coarse_pattern: tuple = ()
 
     @property
@@ -112,25 +116,25 @@ class Hierarchy:
         # changes little from one design to the next.
         smoothed = self.products[:-1]
         inv_diag = [1.0 / op.diagonal() for op in self.operators[:-1]]
-        warm = len(self._power_vectors) == len(smoothed)
-        estimates = [_lambda_max(op, d, self._power_vectors[i] if warm else None)
+        warm = len(self.power_vectors) == len(smoothed)
+        estimates = [_lambda_max(op, d, self.power_vectors[i] if warm else None)
                      for i, (op, d) in enumerate(zip(smoothed, inv_diag))]
         self.smoother_weights = [(4.0 / (3.0 * lam)) * d[:, None] for (lam, _), d in zip(estimates, inv_diag)]
-        self._power_vectors = [v for _, v in estimates]
+        self.power_vectors = [v for _, v in estimates]
         # Sparse products drop entries that come out zero, so their pattern can
         # change from one design to the next: a new symbolic analysis only then.
         lower = sp.tril(self.operators[-1]).tocsc()
         lower.sum_duplicates()  # the stencil layout repeats columns at the grid edge
         pattern = (lower.indptr, lower.indices)
         if self.coarse is None or not all(np.array_equal(a, b) for a, b in zip(pattern, self._coarse_pattern)):
-            self.coarse = DirectSolver()
+            self.coarse = SparseCholesky()
             self._coarse_pattern = (pattern[0].copy(), pattern[1].copy())
         self.coarse.factorize(lower)
 
     def vcycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
         """One V-cycle for A z = r (r has one column per load case)."""
         if level == len(self.transfers):
-            return self.coarse.resolve(r)
+            return self.coarse.solve(r)
         a = self.products[level]
         wd = self.smoother_weights[level]
         z = wd * r
@@ -188,39 +192,62 @@ def pcg(a, b: np.ndarray, precondition, x0: np.ndarray | None = None,
     return x, max_iter
 
 
-class MultigridCG:
-    """CG preconditioned by one multigrid V-cycle, warm-started from the last solve.
-    Works on the full dof space (supports imposed as identity rows, see
-    stencil.py), so every level is a whole structured grid."""
+class MultigridCG(LinearSystem):
+    """CG preconditioned by one multigrid V-cycle on the full dof space (supports
+    as identity rows, see stencil.py), so every level is a whole structured grid.
+    The fine matrix comes by node stencils, the coarse ones element by element
+    (galerkin.py).
 
-    full_space = True
+    The first solve after an assemble is the load-case solve: it starts from the
+    previous design's load-case solution and its CG iterations are `iterations`.
+    Later solves with the same matrix (adjoint right-hand sides) start from zero.
+    The state is that warm start and the smoothers' power-iteration vectors, so a
+    run resumed from a checkpoint repeats the uninterrupted one exactly."""
 
-    def __init__(self, shape: tuple[int, ...], rtol: float = RTOL, coarse_dofs: int = COARSE_DOFS):
-        self.hierarchy = Hierarchy(shape, coarse_dofs)
-        self.rtol = rtol
-        self.last: np.ndarray | None = None
-        self.iterations = 0
-        self.name = f"multigrid-cg ({self.hierarchy.levels} levels)"
-
-    def use_element_galerkin(self, grid, ke: np.ndarray, fixed: np.ndarray) -> None:
-        """Form the coarse operators from element moduli (see galerkin.py); `solve`
-        then needs the moduli the matrix was assembled from."""
-        from .galerkin import ElementGalerkin
-
+    def __init__(self, grid, ke: np.ndarray, fixed: np.ndarray, rtol: float = RTOL,
+                 coarse_dofs: int = COARSE_DOFS):
+        self._fixed = fixed
+        self._assembly = StencilAssembly(grid, ke, fixed)
+        self.hierarchy = Hierarchy(grid.shape, coarse_dofs)
         self.hierarchy.elementwise = ElementGalerkin(grid, ke, fixed, len(self.hierarchy.transfers))
+        self.rtol = rtol
+        self.iterations: int | None = None
+        self.name = f"multigrid-cg ({self.hierarchy.levels} levels)"
+        self._warm: np.ndarray | None = None
+        self._first_solve = False
 
-    def solve(self, k: sp.csr_matrix, rhs: np.ndarray, moduli: np.ndarray | None = None) -> np.ndarray:
-        rhs = np.asarray(rhs, dtype=float).reshape(k.shape[0], -1)
-        self.hierarchy.update(k, moduli)
-        x0 = self.last if self.last is not None and self.last.shape == rhs.shape else None
-        x, self.iterations = pcg(self.hierarchy.products[0], rhs, self.hierarchy.vcycle, x0, self.rtol)
-        if self.iterations >= 500:
+    def assemble(self, moduli: np.ndarray, timer: Timer | None = None) -> None:
+        timer = timer or Timer()
+        with timer("assembly"):
+            a = self._assembly.matrix(moduli)
+        with timer("solve"):
+            self.hierarchy.update(a, moduli)
+        self._first_solve = True
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        b = np.array(rhs, dtype=float).reshape(len(self._fixed), -1)
+        b[self._fixed] = 0.0  # a load on a support goes to the support
+        x0 = None
+        if self._first_solve and self._warm is not None and self._warm.shape == b.shape:
+            x0 = self._warm
+        x, iterations = pcg(self.hierarchy.products[0], b, self.hierarchy.vcycle, x0, self.rtol)
+        if iterations >= 500:
             raise FloatingPointError("multigrid-CG did not converge in 500 iterations")
-        self.last = x
-        return x
+        if self._first_solve:
+            self._warm, self.iterations, self._first_solve = x, iterations, False
+        out = x.copy()  # the warm start keeps CG's own (near-zero) values on the supports
+        out[self._fixed] = 0.0
+        return out.reshape(np.shape(rhs))
 
-    def resolve(self, rhs: np.ndarray) -> np.ndarray:
-        """Solve with the matrix and hierarchy of the last `solve` (adjoint loads)."""
-        rhs = np.asarray(rhs, dtype=float).reshape(self.hierarchy.products[0].shape[0], -1)
-        x, _ = pcg(self.hierarchy.products[0], rhs, self.hierarchy.vcycle, None, self.rtol)
-        return x
+    def state(self) -> dict[str, np.ndarray]:
+        out = {f"power_{i}": v.copy() for i, v in enumerate(self.hierarchy.power_vectors)}
+        if self._warm is not None:
+            out["warm"] = self._warm.copy()
+        return out
+
+    def restore(self, state: dict[str, np.ndarray]) -> None:
+        smoothed = self.hierarchy.levels - 1
+        check_state_keys(state, ("warm",) + tuple(f"power_{i}" for i in range(smoothed)))
+        self._warm = np.array(state["warm"], dtype=float) if "warm" in state else None
+        power = [state.get(f"power_{i}") for i in range(smoothed)]
+        self.hierarchy.power_vectors = [] if any(v is None for v in power) else [np.array(v) for v in power]

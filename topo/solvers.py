@@ -1,26 +1,21 @@
-"""Linear solvers for the reduced stiffness system K u = f behind one interface.
+"""The direct linear system and the choice between direct and iterative.
 
-`solve(K_lower, F)` takes the lower triangle of the symmetric positive-definite
-stiffness matrix (CSC, sorted indices, the same pattern every call) and a block of
-right-hand sides (one column per load case), and returns the displacements.
-CHOLMOD (SuiteSparse, through scikit-sparse) does its symbolic analysis once and
-only refactorises numerically afterwards; without it scipy's SuperLU serves.
+DirectSystem assembles K by node stencils (stencil.py, shared with multigrid-CG),
+gathers the lower triangle of its free-dof block and factorises it with CHOLMOD,
+reusing the symbolic analysis (cholesky.py; SuperLU without CHOLMOD).
+`make_system` builds the system `optimization.solver` names.
 """
 from __future__ import annotations
 
-import warnings
 from contextlib import contextmanager
 
 import numpy as np
-import scipy.sparse as sp
-import scipy.sparse.linalg as spla
 
-try:  # scikit-sparse wraps CHOLMOD; it needs libsuitesparse-dev at build time
-    from sksparse import cholmod as _cholmod
-except ImportError:  # pragma: no cover - depends on the machine
-    _cholmod = None
-
-_warned = False
+from .cholesky import SparseCholesky
+from .linear import LinearSystem, check_state_keys
+from .multigrid import MultigridCG
+from .stencil import FreeLowerTriangle, StencilAssembly
+from .timing import Timer
 
 
 @contextmanager
@@ -48,54 +43,41 @@ def blas_for_solver():
             lib.set_num_threads(n)
 
 
-def cholmod_available() -> bool:
-    return _cholmod is not None
+class DirectSystem(LinearSystem):
+    """Sparse Cholesky on the free dofs; one factorisation per assemble serves
+    every right-hand side until the next."""
 
+    iterations = None
 
-def _full(k_lower: sp.csc_matrix) -> sp.csc_matrix:
-    return (k_lower + sp.triu(k_lower.T, k=1)).tocsc()
+    def __init__(self, grid, ke: np.ndarray, fixed: np.ndarray, prefer_cholmod: bool = True):
+        self._fixed = fixed
+        self._free = np.flatnonzero(~fixed)
+        self._assembly = StencilAssembly(grid, ke, fixed)
+        self._reduce = FreeLowerTriangle(self._assembly, fixed)
+        self._factor = SparseCholesky(prefer_cholmod)
+        self.name = self._factor.name
 
+    def lower(self, moduli: np.ndarray):
+        """The lower triangle of K on the free dofs (CSC), as factorised."""
+        return self._reduce(self._assembly.matrix(moduli))
 
-class DirectSolver:
-    """Sparse Cholesky (CHOLMOD) with a reused symbolic analysis, or SuperLU."""
+    def assemble(self, moduli: np.ndarray, timer: Timer | None = None) -> None:
+        timer = timer or Timer()
+        with timer("assembly"):
+            k = self.lower(moduli)
+        with timer("solve"):
+            self._factor.factorize(k)
 
-    def __init__(self, prefer_cholmod: bool = True):
-        global _warned
-        self.use_cholmod = prefer_cholmod and cholmod_available()
-        if prefer_cholmod and not cholmod_available() and not _warned:
-            warnings.warn("CHOLMOD (scikit-sparse) cannot be imported; using scipy's SuperLU, "
-                          "which is slower. Install libsuitesparse-dev and scikit-sparse 0.4.x.",
-                          RuntimeWarning, stacklevel=2)
-            _warned = True
-        self._factor = None
-        self._lu = None
-        self.name = "cholmod" if self.use_cholmod else "superlu"
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        out = np.zeros(np.shape(rhs))
+        out[self._free] = self._factor.solve(np.asarray(rhs, dtype=float)[self._free])
+        return out
 
-    iterations = 0
+    def state(self) -> dict[str, np.ndarray]:
+        return {}
 
-    def factorize(self, k_lower: sp.csc_matrix) -> None:
-        if self.use_cholmod:
-            try:
-                if self._factor is None:
-                    self._factor = _cholmod.analyze(k_lower, mode="supernodal")
-                self._factor.cholesky_inplace(k_lower)
-                self._lu = None
-                return
-            except _cholmod.CholmodNotPositiveDefiniteError:
-                warnings.warn("the stiffness matrix is not positive definite (CHOLMOD); "
-                              "falling back to a general sparse LU solve", RuntimeWarning, stacklevel=2)
-        self._lu = spla.splu(_full(k_lower), permc_spec="MMD_AT_PLUS_A")
-
-    def resolve(self, rhs: np.ndarray) -> np.ndarray:
-        """Solve with the last factorisation."""
-        rhs = np.asarray(rhs, dtype=float)
-        if self._lu is not None:
-            return self._lu.solve(rhs)
-        return np.asarray(self._factor(rhs))
-
-    def solve(self, k_lower: sp.csc_matrix, rhs: np.ndarray) -> np.ndarray:
-        self.factorize(k_lower)
-        return self.resolve(rhs)
+    def restore(self, state: dict[str, np.ndarray]) -> None:
+        check_state_keys(state, ())
 
 
 # "auto" takes multigrid-CG for 3D problems above this many free dofs, where its
@@ -114,10 +96,9 @@ def choose(kind: str, dim: int, n_free: int) -> str:
     return kind
 
 
-def make_solver(kind: str, shape: tuple[int, ...], free: np.ndarray):
-    """The solver object for `optimization.solver` on a grid with these free dofs."""
-    if choose(kind, len(shape), len(free)) == "iterative":
-        from .multigrid import MultigridCG
-
-        return MultigridCG(shape)
-    return DirectSolver()
+def make_system(kind: str, grid, ke: np.ndarray, fixed_mask: np.ndarray) -> LinearSystem:
+    """The linear system for `optimization.solver` (auto | direct | iterative) on
+    `grid` with element matrix `ke` and the supports `fixed_mask` (per dof)."""
+    if choose(kind, grid.dim, int(np.count_nonzero(~fixed_mask))) == "iterative":
+        return MultigridCG(grid, ke, fixed_mask)
+    return DirectSystem(grid, ke, fixed_mask)

@@ -15,6 +15,9 @@ bytes per element-matrix entry for a general sparse assembly. Element matrices
 that differ per element (the coarse levels of multigrid) go through
 `from_elements`, which accumulates contiguous slices instead.
 
+Both linear systems assemble here: multigrid-CG uses the full matrix, the direct
+solver gathers the lower triangle of its free-dof block (FreeLowerTriangle).
+
 Supports are imposed on the full dof space: rows and columns of fixed dofs are
 zeroed and their diagonal set to 1 (with zero load there), which keeps the grid
 structure that geometric multigrid relies on.
@@ -105,3 +108,39 @@ class StencilAssembly:
         data[self._drop] = 0.0
         data[self._fixed_diag] = 1.0
         return sp.csr_matrix((data, self.indices, self.indptr), shape=(self.n, self.n))
+
+
+class FreeLowerTriangle:
+    """The lower triangle of the free-dof block of a StencilAssembly matrix, in
+    CSC order with sorted indices (what CHOLMOD takes), by one gather from the
+    stencil entries: the direct solver shares the iterative one's assembly.
+
+    K is symmetric, so column j of its lower triangle in CSC holds the entries of
+    row j at columns ≥ j, which a stencil row lists in increasing column order.
+    Left out: slots whose neighbour lies outside the grid (the explicit zeros on a
+    clipped column), entries no element couples (zero in k0), and the rows and
+    columns of fixed dofs. Setup needs no sort; each call is one fancy index."""
+
+    def __init__(self, assembly: StencilAssembly, fixed: np.ndarray):
+        grid, dim, n = assembly.grid, assembly.dim, assembly.n
+        n_slots = len(assembly.offsets)
+        node = np.indices(grid.node_shape).reshape(dim, -1).T
+        nbr = node[:, None, :] + np.array(assembly.offsets)[None, :, :]
+        inside = np.all((nbr >= 0) & (nbr < np.array(grid.node_shape)), axis=2)  # (nodes, slots)
+        ke = assembly.ke
+        coupled = np.abs(assembly._row_of_corner).max(axis=0) > 1e-12 * np.abs(ke).max()
+        keep = inside[:, None, :, None] & coupled.reshape(1, dim, n_slots, dim)
+        cols = assembly.indices.reshape(n, -1)
+        free = ~fixed
+        keep = keep.reshape(n, -1) & free[:, None] & free[cols] & (cols >= np.arange(n)[:, None])
+        take = np.flatnonzero(keep)
+        self.n_free = n_free = int(free.sum())
+        index_type = np.int32 if len(take) < 2**31 else np.int64
+        self._take = take  # np.intp: np.take is fastest with native indices
+        self._indices = (np.cumsum(free) - 1)[cols.reshape(-1)[take]].astype(index_type)
+        per_column = keep.sum(axis=1)[free]
+        self._indptr = np.concatenate([[0], np.cumsum(per_column)]).astype(index_type)
+
+    def __call__(self, full: sp.csr_matrix) -> sp.csc_matrix:
+        return sp.csc_matrix((np.take(full.data, self._take), self._indices, self._indptr),
+                             shape=(self.n_free, self.n_free))
