@@ -11,6 +11,7 @@ import numpy as np
 from . import (analyze, check, estimate_resources, export, load_problem, load_run, load_run_problem,
                optimize, run_benchmarks, sweep)
 from .problem import ProblemError, parse_override
+from .schema import format_setting
 from .export import MESH_FORMATS
 from .report import CAUTION
 
@@ -136,6 +137,9 @@ def cmd_check(args) -> int:
           f"({rep['free_dofs']} free); {rep['design_elements']} design elements")
     print(f"  material {rep['material']}; build direction {rep['build_direction'] or 'none'}; "
           f"solver {rep['solver']}")
+    print("  settings in effect:")
+    for row in rep["settings"]:
+        print(f"    {format_setting(row)}")
     for r in rep["regions"]:
         what = f"{r['nodes']} nodes" if r["role"] in ("support", "force") else f"{r['elements']} elements"
         print(f"  {r['key']:<24} {r['role']:<8} {r['name']:<24} {what}")

@@ -4,6 +4,7 @@ from __future__ import annotations
 import numpy as np
 
 from .printability import SOLID, printable_envelope, unsupported_by_direction
+from .schema import settings
 from .stress import relax
 
 CAUTION = ("Concept design only. Verify by qualified analysis and physical testing "
@@ -137,6 +138,7 @@ def model_report(model) -> dict:
         "material": problem.material.name,
         "solver": model.solver.name,
         "build_direction": problem.build.direction if problem.build else None,
+        "settings": settings(problem),
         "unsupportable_solid_regions": _unsupportable(model),
         "memory_estimate_MB": round(est["memory_bytes"] / 2**20, 1),
         "seconds_per_iteration_estimate": round(est["seconds_per_iteration"], 3),

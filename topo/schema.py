@@ -2,18 +2,15 @@
 values, default and meaning.
 
 The one table drives the parser (`Reader`, used by problem.py), its error messages,
-the key reference in README.md (`python -m topo.schema` prints it; `python -m
-topo.schema --readme README.md` rewrites the block there) and the settings that
-`topo check` lists with where each came from. A new key is one `Key(...)` line; a
+the key reference in README.md (keyref.py writes it) and the settings that `topo
+check` lists with where each came from. A new key is one `Key(...)` line; a
 new table is one `Section(...)`. Rules that tie keys together stay in problem.py.
 """
 from __future__ import annotations
 
 import difflib
 import math
-import sys
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any, Callable
 
 from .materials import PRESETS, find_preset
@@ -28,7 +25,7 @@ VECTOR, LIST, REGION, TABLE, TABLES = "list of numbers", "list", "region", "tabl
 SCALARS = (NUMBER, INTEGER, BOOL, STRING)
 
 
-def _show(value) -> str:
+def show(value) -> str:
     if value is None:
         return "none"
     if isinstance(value, bool):
@@ -38,7 +35,7 @@ def _show(value) -> str:
     if isinstance(value, float):
         return f"{value:g}"
     if isinstance(value, (tuple, list)):
-        return "[" + ", ".join(_show(v) for v in value) + "]"
+        return "[" + ", ".join(show(v) for v in value) + "]"
     return str(value)
 
 
@@ -107,12 +104,12 @@ def _from_preset(field: str, otherwise: Any = REQUIRED) -> Rule:
     def value(env):
         preset = find_preset(env["preset"]) if env.get("preset") is not None else None
         return getattr(preset, field) if preset else otherwise
-    text = "from the preset" + ("" if otherwise is REQUIRED else f", else {_show(otherwise)}")
+    text = "from the preset" + ("" if otherwise is REQUIRED else f", else {show(otherwise)}")
     return Rule(text, value)
 
 
 _GIVE = f"give a preset or the value (presets: {', '.join(PRESETS)})"
-_ENTRY_NAME = Rule("the entry's key, e.g. support[0]", lambda env: env["where"])
+_ENTRY_NAME = Rule("its key path, e.g. passive[1]", lambda env: env["where"])
 _POSITIVE = "(0, inf)"
 
 SCHEMA: tuple[Section, ...] = (
@@ -206,12 +203,12 @@ SCHEMA: tuple[Section, ...] = (
         Key("kind", STRING, "solid or void", choices=("solid", "void")),
         Key("region", REGION, "the elements"),
     ), many=True),
-    Section("region", "exactly one of these forms", (
-        Key("box", TABLE, "axis-aligned box"),
-        Key("cylinder", TABLE, "circle (2D) or cylinder (3D)"),
-        Key("sphere", TABLE, "disc (2D) or ball (3D)"),
-        Key("face", STRING, "a face of the domain", choices=lambda dim: FACES[:2 * dim]),
-        Key("point", VECTOR, "the node nearest this point", "mm"),
+    Section("region", "exactly one of these forms, e.g. region = { face = \"x-min\" }", (
+        Key("box", TABLE, "axis-aligned box", default=None),
+        Key("cylinder", TABLE, "circle (2D) or cylinder (3D)", default=None),
+        Key("sphere", TABLE, "disc (2D) or ball (3D)", default=None),
+        Key("face", STRING, "a face of the domain", default=None, choices=lambda dim: FACES[:2 * dim]),
+        Key("point", VECTOR, "the node nearest this point", "mm", None),
     )),
     Section("region.box", "box corners", (
         Key("min", VECTOR, "lower corner", "mm"),
@@ -370,48 +367,6 @@ class Reader:
         return tuple(self.number(v, f"{where}[{i}]", bounds) for i, v in enumerate(value))
 
 
-# ------------------------------------------------------------------ documentation
-
-def label(path: str) -> str:
-    """'load_case.force' → 'load_case[].force[]' (array tables marked)."""
-    parts = path.split(".") if path else []
-    out = []
-    for i in range(len(parts)):
-        section = SECTIONS.get(".".join(parts[: i + 1]))
-        out.append(parts[i] + ("[]" if section and section.many else ""))
-    return ".".join(out)
-
-
-def reference() -> str:
-    """The key reference as a markdown table (README.md holds a copy)."""
-    rows = ["| key | type | unit | allowed | default | meaning |",
-            "| --- | --- | --- | --- | --- | --- |"]
-    for section in SCHEMA:
-        for key in section.keys:
-            name = f"{label(section.path)}.{key.name}" if section.path else key.name
-            kind = "list of axes" if key.kind == LIST else key.kind
-            allowed = (", ".join(f"`{c}`" for c in key.allowed(3)) if key.choices
-                       else describe_bounds(key.bounds) if key.bounds else "")
-            if key.dims != (2, 3):
-                allowed = (allowed + "; " if allowed else "") + f"{'/'.join(map(str, key.dims))}D only"
-            default = ("required" if key.default is REQUIRED else key.default.text
-                       if isinstance(key.default, Rule) else _show(key.default))
-            if key.kind in (TABLE, TABLES, REGION):
-                default = "required" if key.default is REQUIRED else "none"
-            rows.append(f"| `{name}` | {kind} | {key.unit} | {allowed} | {default} | {key.doc} |")
-    return "\n".join(rows) + "\n"
-
-
-BEGIN = "<!-- key reference: generated by `python -m topo.schema`, do not edit -->\n"
-END = "<!-- end of key reference -->\n"
-
-
-def replace_block(text: str) -> str:
-    """`text` (README.md) with the block between the markers regenerated."""
-    head, rest = text.split(BEGIN, 1)
-    return head + BEGIN + reference() + END + rest.split(END, 1)[1]
-
-
 # ------------------------------------------------------------ settings in effect
 
 SETTINGS = ("domain", "material", "optimization", "build")
@@ -438,12 +393,5 @@ def settings(problem) -> list[dict]:
 
 def format_setting(row: dict) -> str:
     unit = f" {row['unit']}" if row["unit"] and row["value"] is not None else ""
-    return f"{row['key']} = {_show(row['value'])}{unit} ({row['source']})"
+    return f"{row['key']} = {show(row['value'])}{unit} ({row['source']})"
 
-
-if __name__ == "__main__":
-    if sys.argv[1:2] == ["--readme"]:
-        readme = Path(sys.argv[2])
-        readme.write_text(replace_block(readme.read_text(encoding="utf-8")), encoding="utf-8")
-    else:
-        sys.stdout.write(reference())
