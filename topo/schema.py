@@ -114,8 +114,8 @@ _POSITIVE = "(0, inf)"
 
 SCHEMA: tuple[Section, ...] = (
     Section("", "the problem file", (
-        Key("name", STRING, "output folder name", default=Rule("the file name without .toml",
-                                                                lambda env: "problem"), check=_plain_name),
+        Key("name", STRING, "output folder name", check=_plain_name,  # load_problem gives the file's stem
+            default=Rule("the file name without .toml", lambda env: "problem")),
         Key("description", STRING, "free text for the reports", default=""),
         Key("domain", TABLE, "the design domain"),
         Key("material", TABLE, "the solid material"),
