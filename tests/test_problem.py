@@ -301,3 +301,15 @@ def test_check_prints_the_settings(tmp_path, capsys):
     assert "optimization.filter_radius = 2.5 mm (file)" in out
     assert "optimization.move_limit = 0.2 (default)" in out
     assert 'material.name = "AlSi10Mg" (default' in out
+
+
+@pytest.mark.parametrize("form", ["box", "cylinder", "sphere", "face", "point"])
+def test_a_null_region_form_is_refused(form):
+    """JSON and Python can say null where TOML cannot."""
+    with pytest.raises(ProblemError) as err:
+        problem_from_dict(beam_problem(), {"support.0.region": {form: None}})
+    assert err.value.key == f"support[0].region.{form}"
+
+
+def test_a_null_optional_table_is_absent():
+    assert problem_from_dict(beam_problem(), {"build": None, "passive": None}).build is None

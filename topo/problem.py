@@ -329,6 +329,8 @@ class _Parser(Reader):
             self.fail(key, f"expected one of {{{', '.join(f'{f} = …' for f in forms)}}}")
         form = next(iter(value))
         spec = self.read("region", value, key, {"dim": dim}, (form,))[form]
+        if spec is None:  # `box = null` from JSON or Python
+            self.fail(f"{key}.{form}", "missing")
         if form in ("face", "point"):
             return Face(spec) if form == "face" else Point(spec)
         if form == "cylinder" and dim == 2:
