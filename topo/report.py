@@ -8,6 +8,7 @@ import numpy as np
 
 from . import mesh as meshing
 from .printability import SOLID, printable_envelope, unsupported_by_direction
+from .schema import format_setting, settings
 from .stress import relax
 
 CAUTION = ("Concept design only. Verify by qualified analysis and physical testing "
@@ -201,6 +202,7 @@ def model_report(model) -> dict:
         "material": problem.material.name,
         "solver": model.system.name,
         "build_direction": problem.build.direction if problem.build else None,
+        "settings": settings(problem),
         "unsupportable_solid_regions": _unsupportable(model),
         "memory_estimate_MB": round(est["memory_bytes"] / 2**20, 1),
         "seconds_per_iteration_estimate": round(est["seconds_per_iteration"], 3),
@@ -284,7 +286,8 @@ def format_check(rep: dict) -> list[str]:
              f"{rep['element_size_mm']} mm; {rep['nodes']} nodes; {rep['dofs']} dofs "
              f"({rep['free_dofs']} free); {rep['design_elements']} design elements",
              f"  material {rep['material']}; build direction {rep['build_direction'] or 'none'}; "
-             f"solver {rep['solver']}"]
+             f"solver {rep['solver']}", "  settings in effect:"]
+    lines += [f"    {format_setting(row)}" for row in rep["settings"]]
     for r in rep["regions"]:
         what = f"{r['nodes']} nodes" if r["role"] in ("support", "force") else f"{r['elements']} elements"
         lines.append(f"  {r['key']:<24} {r['role']:<8} {r['name']:<24} {what}")
