@@ -10,7 +10,7 @@ PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.topo-installed
 DEBS   := libsuitesparse-dev libopenblas0-pthread
 
-.PHONY: setup system-deps demo demo-3d test bench clean
+.PHONY: setup system-deps demo demo-3d test lint bench clean
 
 setup: $(STAMP)
 
@@ -40,6 +40,10 @@ demo-3d: $(STAMP)
 
 test: $(STAMP)
 	$(PY) -m pytest -q
+
+lint: $(STAMP)
+	$(VENV)/bin/ruff check topo tests
+	$(VENV)/bin/ruff format --check topo tests
 
 bench: $(STAMP)
 	$(VENV)/bin/topo bench --quick

@@ -1,4 +1,5 @@
 """Every sign-off check, each outcome: PASS, FAIL and N/A where it applies."""
+
 from dataclasses import replace
 
 import pytest
@@ -8,12 +9,22 @@ from topo.checks import FAIL, NA, PASS, SignOffFigures, failed, run_checks
 
 def good() -> SignOffFigures:
     return SignOffFigures(
-        load_path_connected=True, cut_off_loads=[], loose_pieces=0,
+        load_path_connected=True,
+        cut_off_loads=[],
+        loose_pieces=0,
         interfaces=[{"name": "boss", "solid_share": 1.0, "downfacing_area_mm2": 0.0}],
-        compliance_gaps={"a": 0.01, "b": -0.02}, safety_factor=2.0, required_safety_factor=1.5,
-        max_von_mises_MPa=100.0, stress_limit_MPa=120.0, mass_kg=1.0, mass_limit_kg=1.2,
+        compliance_gaps={"a": 0.01, "b": -0.02},
+        safety_factor=2.0,
+        required_safety_factor=1.5,
+        max_von_mises_MPa=100.0,
+        stress_limit_MPa=120.0,
+        mass_kg=1.0,
+        mass_limit_kg=1.2,
         deflections=[{"name": "tip", "load_case": "a", "value_mm": -0.9, "limit_mm": 1.0}],
-        unsupported_fraction=0.0, unsupported_limit=0.0, cavities=[])
+        unsupported_fraction=0.0,
+        unsupported_limit=0.0,
+        cavities=[],
+    )
 
 
 def status(figures) -> dict:
@@ -25,41 +36,61 @@ def test_a_sound_design_passes_every_check():
     assert failed(run_checks(good())) == []
 
 
-@pytest.mark.parametrize("name,change", [
-    ("load_path", {"load_path_connected": False, "cut_off_loads": ["tip"]}),
-    ("load_path", {"load_path_connected": False, "loose_pieces": 2}),
-    ("interfaces_whole", {"interfaces": [{"name": "boss", "solid_share": 0.875, "downfacing_area_mm2": 4.0}]}),
-    ("compliance_gap", {"compliance_gaps": {"a": 0.051}}),
-    ("compliance_gap", {"compliance_gaps": {"a": -0.2}}),
-    ("compliance_gap", {"compliance_gaps": {"a": None}}),
-    ("safety_factor", {"safety_factor": 0.43}),
-    ("stress_limit", {"max_von_mises_MPa": 130.8}),
-    ("mass_limit", {"mass_kg": 1.3}),
-    ("deflection_limits", {"deflections": [{"name": "tip", "load_case": "a", "value_mm": -1.2,
-                                            "limit_mm": 1.0}]}),
-    ("unsupported_fraction", {"unsupported_fraction": 0.01}),
-    ("enclosed_cavities", {"cavities": [{"volume_mm3": 8.0, "centre_mm": [1.0, 2.0, 3.0]}]}),
-])
+@pytest.mark.parametrize(
+    "name,change",
+    [
+        ("load_path", {"load_path_connected": False, "cut_off_loads": ["tip"]}),
+        ("load_path", {"load_path_connected": False, "loose_pieces": 2}),
+        (
+            "interfaces_whole",
+            {"interfaces": [{"name": "boss", "solid_share": 0.875, "downfacing_area_mm2": 4.0}]},
+        ),
+        ("compliance_gap", {"compliance_gaps": {"a": 0.051}}),
+        ("compliance_gap", {"compliance_gaps": {"a": -0.2}}),
+        ("compliance_gap", {"compliance_gaps": {"a": None}}),
+        ("safety_factor", {"safety_factor": 0.43}),
+        ("stress_limit", {"max_von_mises_MPa": 130.8}),
+        ("mass_limit", {"mass_kg": 1.3}),
+        (
+            "deflection_limits",
+            {"deflections": [{"name": "tip", "load_case": "a", "value_mm": -1.2, "limit_mm": 1.0}]},
+        ),
+        ("unsupported_fraction", {"unsupported_fraction": 0.01}),
+        ("enclosed_cavities", {"cavities": [{"volume_mm3": 8.0, "centre_mm": [1.0, 2.0, 3.0]}]}),
+    ],
+)
 def test_each_check_fails_on_its_own_fault(name, change):
     s = status(replace(good(), **change))
     assert s[name] == FAIL
     assert [k for k, v in s.items() if v == FAIL] == [name]
 
 
-@pytest.mark.parametrize("name,change", [
-    ("interfaces_whole", {"interfaces": []}),
-    ("safety_factor", {"safety_factor": None}),
-    ("stress_limit", {"stress_limit_MPa": None}),
-    ("mass_limit", {"mass_limit_kg": None}),
-    ("deflection_limits", {"deflections": [{"name": "tip", "load_case": "a", "value_mm": 5.0,
-                                            "limit_mm": None}]}),
-    ("unsupported_fraction", {"unsupported_fraction": None}),
-])
+@pytest.mark.parametrize(
+    "name,change",
+    [
+        ("interfaces_whole", {"interfaces": []}),
+        ("safety_factor", {"safety_factor": None}),
+        ("stress_limit", {"stress_limit_MPa": None}),
+        ("mass_limit", {"mass_limit_kg": None}),
+        (
+            "deflection_limits",
+            {"deflections": [{"name": "tip", "load_case": "a", "value_mm": 5.0, "limit_mm": None}]},
+        ),
+        ("unsupported_fraction", {"unsupported_fraction": None}),
+    ],
+)
 def test_checks_without_a_limit_say_not_applicable(name, change):
     assert status(replace(good(), **change))[name] == NA
 
 
 def test_boundaries_pass():
-    s = status(replace(good(), safety_factor=1.5, compliance_gaps={"a": 0.05}, mass_kg=1.2,
-                       deflections=[{"name": "t", "load_case": "a", "value_mm": 1.0, "limit_mm": 1.0}]))
+    s = status(
+        replace(
+            good(),
+            safety_factor=1.5,
+            compliance_gaps={"a": 0.05},
+            mass_kg=1.2,
+            deflections=[{"name": "t", "load_case": "a", "value_mm": 1.0, "limit_mm": 1.0}],
+        )
+    )
     assert set(s.values()) == {PASS}

@@ -1,8 +1,8 @@
 """The command line end to end on a small problem: files written, exit codes."""
+
 import copy
 import dataclasses
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -38,9 +38,22 @@ kind = "void"
 region = { box = { min = [8.0, 4.0], max = [12.0, 8.0] } }
 """
 
-SUMMARY_KEYS = {"name", "dimension", "elements", "element_size_mm", "volume_fraction", "mass_kg",
-                "compliance_Nmm", "load_cases", "iterations", "converged", "runtime_s",
-                "build_direction", "unsupported_fraction", "max_von_mises_MPa"}
+SUMMARY_KEYS = {
+    "name",
+    "dimension",
+    "elements",
+    "element_size_mm",
+    "volume_fraction",
+    "mass_kg",
+    "compliance_Nmm",
+    "load_cases",
+    "iterations",
+    "converged",
+    "runtime_s",
+    "build_direction",
+    "unsupported_fraction",
+    "max_von_mises_MPa",
+}
 
 
 @pytest.fixture
@@ -52,7 +65,10 @@ def small(tmp_path):
 
 def test_run_writes_every_output(small, tmp_path, capsys):
     out = tmp_path / "run"
-    assert main(["run", str(small), "--out", str(out), "--set", "optimization.volume_fraction=0.35"]) == 0
+    assert (
+        main(["run", str(small), "--out", str(out), "--set", "optimization.volume_fraction=0.35"])
+        == 0
+    )
     for name in ["summary.json", "density.npy", "history.csv", "history.png", "design.png"]:
         assert (out / name).stat().st_size > 0
     s = json.loads((out / "summary.json").read_text())
@@ -80,7 +96,9 @@ def test_check_and_analyze(small, tmp_path, capsys):
     design = np.full((24, 12), 1e-3)
     design[:, 5:7] = 1.0
     np.save(tmp_path / "d.npy", design)
-    assert main(["analyze", str(small), "--design", str(tmp_path / "d.npy"), "--out", str(out)]) == 0
+    assert (
+        main(["analyze", str(small), "--design", str(tmp_path / "d.npy"), "--out", str(out)]) == 0
+    )
     s2 = json.loads((out / "summary.json").read_text())
     assert s2["load_cases"][0]["compliance_Nmm"] > s["load_cases"][0]["compliance_Nmm"]
 
@@ -95,12 +113,14 @@ def test_input_error_exits_2_with_one_clean_line(small, capsys):
 # Strict JSON: summary.json must parse in readers that reject NaN and Infinity
 # (RFC 8259 has no such numbers).
 
+
 def _reject(constant):
     raise ValueError(f"non-finite number {constant} in JSON")
 
 
 def test_summary_of_round_off_negative_densities_is_strict_json(tmp_path):
     from conftest import beam_problem
+
     from topo import analyze, export, problem_from_dict, summarize
     from topo.stress import relax
 
@@ -109,8 +129,9 @@ def test_summary_of_round_off_negative_densities_is_strict_json(tmp_path):
     design[8:16, 4:8] = 0.0
     zero = analyze(problem, design)
     # -1e-17 is zero material up to round-off, as a filter or projection can leave it
-    negative = dataclasses.replace(zero, density=np.where(zero.density == 0.0, -1e-17, zero.density),
-                                   summary={})
+    negative = dataclasses.replace(
+        zero, density=np.where(zero.density == 0.0, -1e-17, zero.density), summary={}
+    )
     with np.errstate(invalid="ignore"):  # the hazard: (-1e-17) ** 0.5 is NaN
         assert np.isnan(relax(negative.density.ravel(), negative.analysis.von_mises)).any()
     s = summarize(negative)

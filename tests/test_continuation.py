@@ -1,8 +1,15 @@
 """β continuation and the stopping rules, each outcome."""
+
 import pytest
 
 from topo.checkpoint import LoopState
-from topo.continuation import SETTLED_RTOL, SETTLED_WINDOW, Continuation, objective_settled, stop_reason
+from topo.continuation import (
+    SETTLED_RTOL,
+    SETTLED_WINDOW,
+    Continuation,
+    objective_settled,
+    stop_reason,
+)
 from topo.transforms import HeavisideProjection
 
 
@@ -52,11 +59,14 @@ def test_stop_reasons():
     assert stop_reason(moving, SETTLED_WINDOW, 0.5, 0.01) is None
 
 
-@pytest.mark.parametrize("spread,since,expected", [
-    (0.5 * SETTLED_RTOL, SETTLED_WINDOW, True),  # within the band
-    (2.0 * SETTLED_RTOL, SETTLED_WINDOW, False),  # outside it
-    (0.5 * SETTLED_RTOL, SETTLED_WINDOW - 1, False),  # too soon after a β step
-])
+@pytest.mark.parametrize(
+    "spread,since,expected",
+    [
+        (0.5 * SETTLED_RTOL, SETTLED_WINDOW, True),  # within the band
+        (2.0 * SETTLED_RTOL, SETTLED_WINDOW, False),  # outside it
+        (0.5 * SETTLED_RTOL, SETTLED_WINDOW - 1, False),  # too soon after a β step
+    ],
+)
 def test_objective_settled(spread, since, expected):
     values = [100.0] * (SETTLED_WINDOW - 1) + [100.0 * (1 + spread)]
     assert objective_settled(rows(values), since) is expected

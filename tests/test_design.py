@@ -1,32 +1,54 @@
 """The design loop: compliance sensitivities and the published MBB benchmark."""
+
 import numpy as np
 import pytest
+from conftest import beam_problem
 
 from topo.design import build_chain, optimize
-from topo.responses import compliance_gradient
 from topo.fem import Model
 from topo.problem import problem_from_dict
-from conftest import beam_problem
+from topo.responses import compliance_gradient
 
 
 def mbb(**opt):
     # Half MBB beam: symmetry (x fixed) on the left edge, roller (y fixed) at the
     # lower right corner, unit load down at the upper left corner; unit data.
-    return {"name": "mbb", "domain": {"size": [60.0, 20.0], "element_size": 1.0, "thickness": 1.0},
-            "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
-            "optimization": {"volume_fraction": 0.5, "penalty": 3.0, "filter_radius": 2.4,
-                             "projection": False, "max_iterations": 500, "tolerance": 0.01, **opt},
-            "support": [{"region": {"face": "x-min"}, "fix": ["x"]},
-                        {"region": {"point": [60.0, 0.0]}, "fix": ["y"]}],
-            "load_case": [{"force": [{"region": {"point": [0.0, 20.0]}, "total": [0.0, -1.0]}]}]}
+    return {
+        "name": "mbb",
+        "domain": {"size": [60.0, 20.0], "element_size": 1.0, "thickness": 1.0},
+        "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
+        "optimization": {
+            "volume_fraction": 0.5,
+            "penalty": 3.0,
+            "filter_radius": 2.4,
+            "projection": False,
+            "max_iterations": 500,
+            "tolerance": 0.01,
+            **opt,
+        },
+        "support": [
+            {"region": {"face": "x-min"}, "fix": ["x"]},
+            {"region": {"point": [60.0, 0.0]}, "fix": ["y"]},
+        ],
+        "load_case": [{"force": [{"region": {"point": [0.0, 20.0]}, "total": [0.0, -1.0]}]}],
+    }
 
 
 @pytest.mark.parametrize("dim", [2, 3])
 def test_compliance_sensitivity_matches_finite_differences(dim, rng):
     d = beam_problem(dim, [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0], 1.0)
-    d["load_case"].append({"name": "side", "weight": 0.7, "force": [
-        {"region": {"point": [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0]},
-         "total": [1.0, 0.5] + ([0.2] if dim == 3 else [])}]})
+    d["load_case"].append(
+        {
+            "name": "side",
+            "weight": 0.7,
+            "force": [
+                {
+                    "region": {"point": [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0]},
+                    "total": [1.0, 0.5] + ([0.2] if dim == 3 else []),
+                }
+            ],
+        }
+    )
     problem = problem_from_dict(d)
     model = Model(problem)
     chain, projection = build_chain(problem, model)
@@ -83,8 +105,10 @@ def test_projection_run_meets_volume_and_is_nearly_black_and_white():
 
 def test_passive_regions_are_held_and_outside_the_budget():
     d = mbb()
-    d["passive"] = [{"kind": "solid", "region": {"box": {"min": [50, 0], "max": [60, 20]}}},
-                    {"kind": "void", "region": {"box": {"min": [20, 8], "max": [30, 14]}}}]
+    d["passive"] = [
+        {"kind": "solid", "region": {"box": {"min": [50, 0], "max": [60, 20]}}},
+        {"kind": "void", "region": {"box": {"min": [20, 8], "max": [30, 14]}}},
+    ]
     d["optimization"]["max_iterations"] = 40
     r = optimize(problem_from_dict(d))
     rho = r.density.ravel()

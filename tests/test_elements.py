@@ -1,9 +1,15 @@
 """Q4 and H8 element checks against closed-form references."""
+
 import numpy as np
 import pytest
 
-from topo.elements import (element_stiffness, elasticity_matrix, gauss_points,
-                           strain_displacement, von_mises)
+from topo.elements import (
+    elasticity_matrix,
+    element_stiffness,
+    gauss_points,
+    strain_displacement,
+    von_mises,
+)
 from topo.grid import H8_CORNERS, Q4_CORNERS
 
 
@@ -25,12 +31,33 @@ def test_q4_matches_closed_form_of_99_line_paper():
     # unit thickness, nodes counter-clockwise from the lower left (recalled from
     # memory; its entries are the k1..k8 below).
     nu = 0.3
-    k = np.array([1/2 - nu/6, 1/8 + nu/8, -1/4 - nu/12, -1/8 + 3*nu/8,
-                  -1/4 + nu/12, -1/8 - nu/8, nu/6, 1/8 - 3*nu/8])
-    pattern = np.array([[1, 2, 3, 4, 5, 6, 7, 8], [2, 1, 8, 7, 6, 5, 4, 3],
-                        [3, 8, 1, 6, 7, 4, 5, 2], [4, 7, 6, 1, 8, 3, 2, 5],
-                        [5, 6, 7, 8, 1, 2, 3, 4], [6, 5, 4, 3, 2, 1, 8, 7],
-                        [7, 4, 5, 2, 3, 8, 1, 6], [8, 3, 2, 5, 4, 7, 6, 1]]) - 1
+    k = np.array(
+        [
+            1 / 2 - nu / 6,
+            1 / 8 + nu / 8,
+            -1 / 4 - nu / 12,
+            -1 / 8 + 3 * nu / 8,
+            -1 / 4 + nu / 12,
+            -1 / 8 - nu / 8,
+            nu / 6,
+            1 / 8 - 3 * nu / 8,
+        ]
+    )
+    pattern = (
+        np.array(
+            [
+                [1, 2, 3, 4, 5, 6, 7, 8],
+                [2, 1, 8, 7, 6, 5, 4, 3],
+                [3, 8, 1, 6, 7, 4, 5, 2],
+                [4, 7, 6, 1, 8, 3, 2, 5],
+                [5, 6, 7, 8, 1, 2, 3, 4],
+                [6, 5, 4, 3, 2, 1, 8, 7],
+                [7, 4, 5, 2, 3, 8, 1, 6],
+                [8, 3, 2, 5, 4, 7, 6, 1],
+            ]
+        )
+        - 1
+    )
     reference = k[pattern] / (1 - nu**2)
     # The plane-stress Q4 matrix does not depend on the element size.
     for h in (1.0, 2.5):
@@ -51,7 +78,9 @@ def test_patch_linear_field_gives_uniform_strain_and_energy(dim, rng):
     if dim == 2:
         voigt = np.array([eps[0, 0], eps[1, 1], 2 * eps[0, 1]])
     else:
-        voigt = np.array([eps[0, 0], eps[1, 1], eps[2, 2], 2 * eps[1, 2], 2 * eps[0, 2], 2 * eps[0, 1]])
+        voigt = np.array(
+            [eps[0, 0], eps[1, 1], eps[2, 2], 2 * eps[1, 2], 2 * eps[0, 2], 2 * eps[0, 1]]
+        )
     for xi in list(gauss_points(dim)) + [np.zeros(dim), np.full(dim, 0.77)]:
         assert np.allclose(strain_displacement(dim, h, xi) @ u, voigt, atol=1e-12)
     d = elasticity_matrix(dim, e, nu)

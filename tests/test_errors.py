@@ -1,17 +1,19 @@
 """Bad input, rigid-body motion, faults and interruptions."""
+
 import json
-import tomllib
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings, strategies as st
+import tomllib
+from conftest import beam_problem
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from topo import resources
 from topo.cli import main
 from topo.design import optimize
 from topo.fem import Model
 from topo.problem import ProblemError, problem_from_dict
-from conftest import beam_problem
 
 GOOD = """
 name = "plate"
@@ -43,31 +45,82 @@ def run_check(tmp_path, text, capsys, command="check"):
 
 ERRORS = [
     ("toml syntax", GOOD.replace("thickness = 2.0", "thickness = = 2.0"), "line 6"),
-    ("unknown key", GOOD.replace("volume_fraction = 0.4", "volume_fracton = 0.4"),
-     "optimization.volume_fracton: unknown key (did you mean 'volume_fraction'?)"),
-    ("wrong type", GOOD.replace("thickness = 2.0", 'thickness = "thin"'), "domain.thickness: expected a number"),
-    ("missing material", GOOD.replace('preset = "AlSi10Mg"', "poissons_ratio = 0.3"), "material.youngs_modulus: missing"),
-    ("non-positive size", GOOD.replace("size = [20.0, 10.0]", "size = [20.0, 0.0]"), "domain.size[1]: must be positive"),
+    (
+        "unknown key",
+        GOOD.replace("volume_fraction = 0.4", "volume_fracton = 0.4"),
+        "optimization.volume_fracton: unknown key (did you mean 'volume_fraction'?)",
+    ),
+    (
+        "wrong type",
+        GOOD.replace("thickness = 2.0", 'thickness = "thin"'),
+        "domain.thickness: expected a number",
+    ),
+    (
+        "missing material",
+        GOOD.replace('preset = "AlSi10Mg"', "poissons_ratio = 0.3"),
+        "material.youngs_modulus: missing",
+    ),
+    (
+        "non-positive size",
+        GOOD.replace("size = [20.0, 10.0]", "size = [20.0, 0.0]"),
+        "domain.size[1]: must be positive",
+    ),
     ("not whole elements", GOOD.replace("element_size = 1.0", "element_size = 3.0"), "use 21 mm"),
-    ("volume fraction", GOOD.replace("volume_fraction = 0.4", "volume_fraction = 0.0"), "optimization.volume_fraction"),
-    ("filter radius 0", GOOD.replace("max_iterations = 12", "max_iterations = 12\nfilter_radius = 0"),
-     "optimization.filter_radius: must be positive, got 0"),
-    ("not a whole number", GOOD.replace("max_iterations = 12", "max_iterations = 12.5"),
-     "optimization.max_iterations: expected a whole number, got 12.5"),
-    ("unknown key, no near match", GOOD.replace("max_iterations = 12", "iterations_max_count = 12"),
-     "optimization.iterations_max_count: unknown key (valid keys: volume_fraction, "),
-    ("selects no nodes", GOOD.replace('region = { point = [20.0, 5.0] }',
-                                      'region = { sphere = { center = [10.5, 5.5], radius = 0.05 } }'),
-     "load_case[0].force[0].region: the region selects no nodes"),
-    ("outside domain", GOOD.replace("[20.0, 5.0]", "[80.0, 5.0]"), "load_case[0].force[0].region: the region lies outside"),
+    (
+        "volume fraction",
+        GOOD.replace("volume_fraction = 0.4", "volume_fraction = 0.0"),
+        "optimization.volume_fraction",
+    ),
+    (
+        "filter radius 0",
+        GOOD.replace("max_iterations = 12", "max_iterations = 12\nfilter_radius = 0"),
+        "optimization.filter_radius: must be positive, got 0",
+    ),
+    (
+        "not a whole number",
+        GOOD.replace("max_iterations = 12", "max_iterations = 12.5"),
+        "optimization.max_iterations: expected a whole number, got 12.5",
+    ),
+    (
+        "unknown key, no near match",
+        GOOD.replace("max_iterations = 12", "iterations_max_count = 12"),
+        "optimization.iterations_max_count: unknown key (valid keys: volume_fraction, ",
+    ),
+    (
+        "selects no nodes",
+        GOOD.replace(
+            "region = { point = [20.0, 5.0] }",
+            "region = { sphere = { center = [10.5, 5.5], radius = 0.05 } }",
+        ),
+        "load_case[0].force[0].region: the region selects no nodes",
+    ),
+    (
+        "outside domain",
+        GOOD.replace("[20.0, 5.0]", "[80.0, 5.0]"),
+        "load_case[0].force[0].region: the region lies outside",
+    ),
     ("zero force", GOOD.replace("total = [0.0, -10.0]", "total = [0.0, 0.0]"), "zero total force"),
-    ("load in void", GOOD + '[[passive]]\nkind = "void"\nregion = { box = { min = [16, 2], max = [20, 8] } }\n',
-     "load_case[0].force[0].region: the load lies inside a void"),
-    ("overlap", GOOD + '[[passive]]\nkind = "void"\nregion = { box = { min = [5, 2], max = [9, 8] } }\n'
-     '[[passive]]\nkind = "solid"\nregion = { box = { min = [7, 2], max = [12, 8] } }\n', "solid and void regions overlap"),
-    ("build direction", GOOD + '[build]\ndirection = "+z"\n', "build.direction: must be one of '+x', '-x', '+y', '-y'"),
-    ("rigid body", GOOD.replace('region = { face = "x-min" }', 'region = { point = [0.0, 0.0] }\nfix = ["y"]'),
-     "support: the supports leave the part free to move: translation along x; rotation about z"),
+    (
+        "load in void",
+        GOOD + '[[passive]]\nkind = "void"\nregion = { box = { min = [16, 2], max = [20, 8] } }\n',
+        "load_case[0].force[0].region: the load lies inside a void",
+    ),
+    (
+        "overlap",
+        GOOD + '[[passive]]\nkind = "void"\nregion = { box = { min = [5, 2], max = [9, 8] } }\n'
+        '[[passive]]\nkind = "solid"\nregion = { box = { min = [7, 2], max = [12, 8] } }\n',
+        "solid and void regions overlap",
+    ),
+    (
+        "build direction",
+        GOOD + '[build]\ndirection = "+z"\n',
+        "build.direction: must be one of '+x', '-x', '+y', '-y'",
+    ),
+    (
+        "rigid body",
+        GOOD.replace('region = { face = "x-min" }', 'region = { point = [0.0, 0.0] }\nfix = ["y"]'),
+        "support: the supports leave the part free to move: translation along x; rotation about z",
+    ),
 ]
 
 
@@ -84,21 +137,34 @@ def test_input_errors_exit_2_with_key_and_no_traceback(label, text, fragment, tm
 
 
 def test_small_filter_radius_warns(tmp_path, capsys):
-    code, err = run_check(tmp_path, GOOD.replace("volume_fraction = 0.4", "volume_fraction = 0.4\nfilter_radius = 0.5"),
-                          capsys)
+    code, err = run_check(
+        tmp_path,
+        GOOD.replace("volume_fraction = 0.4", "volume_fraction = 0.4\nfilter_radius = 0.5"),
+        capsys,
+    )
     assert code == 0 and "optimization.filter_radius" in err and "below one element" in err
 
 
-FREE_2D = [({"face": "x-min"}, ["x"], ["translation along y"]),
-           ({"point": [0.0, 0.0]}, ["x", "y"], ["rotation about z"]),
-           ({"face": "y-min"}, ["y"], ["translation along x"])]
-FREE_3D = [({"face": "x-min"}, ["x"], ["translation along y", "translation along z", "rotation about x"]),
-           ({"point": [0.0, 0.0, 0.0]}, ["x", "y", "z"], ["rotation about x", "rotation about y", "rotation about z"]),
-           ({"box": {"min": [0, 0, 0], "max": [0, 4, 0]}}, ["x", "y", "z"], ["rotation about y"]),
-           ({"face": "z-min"}, ["z"], ["translation along x", "translation along y", "rotation about z"])]
+FREE_2D = [
+    ({"face": "x-min"}, ["x"], ["translation along y"]),
+    ({"point": [0.0, 0.0]}, ["x", "y"], ["rotation about z"]),
+    ({"face": "y-min"}, ["y"], ["translation along x"]),
+]
+FREE_3D = [
+    ({"face": "x-min"}, ["x"], ["translation along y", "translation along z", "rotation about x"]),
+    (
+        {"point": [0.0, 0.0, 0.0]},
+        ["x", "y", "z"],
+        ["rotation about x", "rotation about y", "rotation about z"],
+    ),
+    ({"box": {"min": [0, 0, 0], "max": [0, 4, 0]}}, ["x", "y", "z"], ["rotation about y"]),
+    ({"face": "z-min"}, ["z"], ["translation along x", "translation along y", "rotation about z"]),
+]
 
 
-@pytest.mark.parametrize("dim,region,fix,free", [(2, *c) for c in FREE_2D] + [(3, *c) for c in FREE_3D])
+@pytest.mark.parametrize(
+    "dim,region,fix,free", [(2, *c) for c in FREE_2D] + [(3, *c) for c in FREE_3D]
+)
 def test_rigid_body_modes_are_named(dim, region, fix, free):
     d = beam_problem(dim, [8.0, 4.0] if dim == 2 else [8.0, 4.0, 4.0], 1.0)
     d["support"] = [{"region": region, "fix": fix}]
@@ -109,7 +175,9 @@ def test_rigid_body_modes_are_named(dim, region, fix, free):
 
 
 def small():
-    d = beam_problem(2, [24.0, 12.0], 1.0, max_iterations=40, beta_interval=6, checkpoint_interval=5)
+    d = beam_problem(
+        2, [24.0, 12.0], 1.0, max_iterations=40, beta_interval=6, checkpoint_interval=5
+    )
     return problem_from_dict(d)
 
 
@@ -126,21 +194,28 @@ def test_resume_reaches_the_uninterrupted_design(tmp_path):
     resumed = optimize(small(), checkpoint=ckpt, resume=True)
     assert len(resumed.history) == len(full.history)
     assert np.max(np.abs(resumed.density - full.density)) < 1e-8
-    assert resumed.summary["compliance_Nmm"] == pytest.approx(full.summary["compliance_Nmm"], rel=1e-10)
+    assert resumed.summary["compliance_Nmm"] == pytest.approx(
+        full.summary["compliance_Nmm"], rel=1e-10
+    )
 
 
 def test_resume_refuses_a_changed_problem(tmp_path):
     ckpt = tmp_path / "checkpoint.npz"
     optimize(small(), checkpoint=ckpt)
-    changed = problem_from_dict(beam_problem(2, [24.0, 12.0], 1.0, max_iterations=40, volume_fraction=0.3))
+    changed = problem_from_dict(
+        beam_problem(2, [24.0, 12.0], 1.0, max_iterations=40, volume_fraction=0.3)
+    )
     with pytest.raises(ProblemError, match="different problem"):
         optimize(changed, checkpoint=ckpt, resume=True)
 
 
 def test_cli_resume_after_interrupt(tmp_path, capsys, monkeypatch):
     f = tmp_path / "p.toml"
-    f.write_text(GOOD.replace("max_iterations = 12", "max_iterations = 12\ncheckpoint_interval = 2"))
+    f.write_text(
+        GOOD.replace("max_iterations = 12", "max_iterations = 12\ncheckpoint_interval = 2")
+    )
     out = tmp_path / "run"
+
     def interrupt(row):
         if row["iteration"] == 5:
             raise KeyboardInterrupt  # as Ctrl-C would, in the middle of the run
@@ -199,20 +274,64 @@ def test_run_refuses_a_problem_larger_than_free_memory(tmp_path, capsys, monkeyp
     assert main(["run", str(f), "--out", str(tmp_path / "r"), "--force", "--quiet"]) == 0
 
 
-leaf = st.one_of(st.none(), st.booleans(), st.integers(-3, 30), st.floats(allow_nan=True),
-                 st.text(max_size=5), st.lists(st.integers(-2, 25), max_size=4),
-                 st.dictionaries(st.sampled_from(["box", "point", "face", "min", "max"]),
-                                 st.integers(0, 5), max_size=2))
-tables = st.dictionaries(st.sampled_from(["size", "element_size", "thickness", "preset", "youngs_modulus",
-                                          "poissons_ratio", "density", "volume_fraction", "direction",
-                                          "region", "fix", "total", "kind", "force", "weight"]),
-                         leaf, max_size=5)
+leaf = st.one_of(
+    st.none(),
+    st.booleans(),
+    st.integers(-3, 30),
+    st.floats(allow_nan=True),
+    st.text(max_size=5),
+    st.lists(st.integers(-2, 25), max_size=4),
+    st.dictionaries(
+        st.sampled_from(["box", "point", "face", "min", "max"]), st.integers(0, 5), max_size=2
+    ),
+)
+tables = st.dictionaries(
+    st.sampled_from(
+        [
+            "size",
+            "element_size",
+            "thickness",
+            "preset",
+            "youngs_modulus",
+            "poissons_ratio",
+            "density",
+            "volume_fraction",
+            "direction",
+            "region",
+            "fix",
+            "total",
+            "kind",
+            "force",
+            "weight",
+        ]
+    ),
+    leaf,
+    max_size=5,
+)
 
 
-@settings(max_examples=200, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
-@given(st.dictionaries(st.sampled_from(["name", "domain", "material", "optimization", "build",
-                                        "support", "load_case", "passive", "extra"]),
-                       st.one_of(leaf, tables, st.lists(tables, max_size=2)), max_size=8))
+@settings(
+    max_examples=200, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow]
+)
+@given(
+    st.dictionaries(
+        st.sampled_from(
+            [
+                "name",
+                "domain",
+                "material",
+                "optimization",
+                "build",
+                "support",
+                "load_case",
+                "passive",
+                "extra",
+            ]
+        ),
+        st.one_of(leaf, tables, st.lists(tables, max_size=2)),
+        max_size=8,
+    )
+)
 def test_random_problem_dictionaries_load_or_raise_problem_error(data):
     try:
         p = problem_from_dict(data)

@@ -1,10 +1,11 @@
 """Finite-element model against beam theory and bar extension."""
+
 import numpy as np
 import pytest
+from conftest import beam_problem
 
 from topo.fem import Model
 from topo.problem import problem_from_dict
-from conftest import beam_problem
 
 
 def tip_deflection(dim, L, H, h, E=1000.0, nu=0.3):
@@ -21,10 +22,13 @@ def tip_deflection(dim, L, H, h, E=1000.0, nu=0.3):
     return -u[tip, 1].mean(), reference, a
 
 
-@pytest.mark.parametrize("dim,L,H,coarse,fine,tol", [
-    (2, 100.0, 10.0, 1.0, 0.5, 0.01),
-    (3, 60.0, 6.0, 1.0, 0.75, 0.03),
-])
+@pytest.mark.parametrize(
+    "dim,L,H,coarse,fine,tol",
+    [
+        (2, 100.0, 10.0, 1.0, 0.5, 0.01),
+        (3, 60.0, 6.0, 1.0, 0.75, 0.03),
+    ],
+)
 def test_cantilever_against_timoshenko(dim, L, H, coarse, fine, tol):
     # The clamped end (all dofs fixed, no free contraction) and the bilinear
     # elements' bending stiffness both make the model slightly stiffer than beam
@@ -45,13 +49,22 @@ def test_bar_extension_equals_PL_over_EA(dim):
     # and with one element across, even nodal shares are the consistent load.
     L, h, E, P = 12.0, 1.5, 2000.0, 30.0
     size = [L, h] if dim == 2 else [L, h, h]
-    d = {"domain": {"size": size, "element_size": h},
-         "material": {"youngs_modulus": E, "poissons_ratio": 0.3, "density": 1.0},
-         "optimization": {"volume_fraction": 1.0},
-         "support": [{"region": {"face": "x-min"}, "fix": ["x"]},
-                     {"region": {"point": [0.0] * dim}, "fix": ["y", "z"][: dim - 1]}],
-         "load_case": [{"force": [{"region": {"face": "x-max"},
-                                   "total": [P, 0.0] + ([0.0] if dim == 3 else [])}]}]}
+    d = {
+        "domain": {"size": size, "element_size": h},
+        "material": {"youngs_modulus": E, "poissons_ratio": 0.3, "density": 1.0},
+        "optimization": {"volume_fraction": 1.0},
+        "support": [
+            {"region": {"face": "x-min"}, "fix": ["x"]},
+            {"region": {"point": [0.0] * dim}, "fix": ["y", "z"][: dim - 1]},
+        ],
+        "load_case": [
+            {
+                "force": [
+                    {"region": {"face": "x-max"}, "total": [P, 0.0] + ([0.0] if dim == 3 else [])}
+                ]
+            }
+        ],
+    }
     if dim == 3:  # stop the rotation about x without stopping the contraction
         d["support"].append({"region": {"point": [0.0, 0.0, h]}, "fix": ["y"]})
     else:
@@ -68,15 +81,18 @@ def test_bar_extension_equals_PL_over_EA(dim):
 
 def test_all_load_cases_in_one_solve_match_separate_solves():
     d = beam_problem(2, [10.0, 4.0], 1.0)
-    d["load_case"].append({"name": "side", "force": [{"region": {"point": [10.0, 4.0]},
-                                                      "total": [3.0, 1.0]}]})
+    d["load_case"].append(
+        {"name": "side", "force": [{"region": {"point": [10.0, 4.0]}, "total": [3.0, 1.0]}]}
+    )
     m = Model(problem_from_dict(d))
     rho = np.random.default_rng(0).uniform(0.2, 1.0, m.grid.n_elements)
     both = m.analyze(rho)
     for c in range(2):
         single = dict(d, load_case=[d["load_case"][c]])
         one = Model(problem_from_dict(single)).analyze(rho)
-        assert np.allclose(both.displacements[:, c], one.displacements[:, 0], rtol=1e-10, atol=1e-14)
+        assert np.allclose(
+            both.displacements[:, c], one.displacements[:, 0], rtol=1e-10, atol=1e-14
+        )
 
 
 @pytest.mark.parametrize("dim", [2, 3])

@@ -1,5 +1,6 @@
 """Design meshes against closed-form geometry and independent libraries (trimesh
 for watertightness, volume and file reading; meshio for the VTU round trip)."""
+
 import json
 from pathlib import Path
 
@@ -33,7 +34,9 @@ def test_box_field_gives_the_box():
     assert np.allclose(t.bounds, [[6.0, 4.5, 0.0], [36.0, 28.5, 18.0]])
     # marching cubes chamfers the 12 edges by half an element: within 2 % here
     assert t.volume == pytest.approx(30 * 24 * 18, rel=0.02)
-    assert m.volume == pytest.approx(t.volume, rel=1e-9) and m.area == pytest.approx(t.area, rel=1e-9)
+    assert m.volume == pytest.approx(t.volume, rel=1e-9) and m.area == pytest.approx(
+        t.area, rel=1e-9
+    )
 
 
 @pytest.mark.parametrize("smooth_field", [True, False])
@@ -117,7 +120,9 @@ def test_fields_vtu_reads_back_with_meshio(demo_run):
     for i, case in enumerate(result.problem.load_cases):
         u = v.point_data[f"displacement_{case.name}"]
         assert np.allclose(u[:, :2].ravel(), result.analysis.displacements[:, i])
-        assert np.allclose(v.cell_data[f"von_mises_{case.name}"][0], result.analysis.von_mises[:, i])
+        assert np.allclose(
+            v.cell_data[f"von_mises_{case.name}"][0], result.analysis.von_mises[:, i]
+        )
     assert len(v.points) == result.model.grid.n_nodes
 
 

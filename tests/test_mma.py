@@ -1,11 +1,12 @@
 """MMA, mass budgets and worst-case load cases."""
+
 import numpy as np
 import pytest
+from test_design import mbb
 
 from topo.design import optimize
 from topo.optimizers import MMA
 from topo.problem import ProblemError, problem_from_dict
-from test_design import mbb
 
 
 def test_mma_solves_svanbergs_cantilever_example():
@@ -16,7 +17,9 @@ def test_mma_solves_svanbergs_cantilever_example():
     x = np.full(5, 5.0)
     mma = MMA(5, 1, np.ones(5), np.full(5, 10.0), move=0.5)
     for _ in range(60):
-        x = mma.update(x, np.full(5, 0.0624), np.array([(c / x**3).sum() - 1]), (-3 * c / x**4)[None, :])
+        x = mma.update(
+            x, np.full(5, 0.0624), np.array([(c / x**3).sum() - 1]), (-3 * c / x**4)[None, :]
+        )
     assert 0.0624 * x.sum() == pytest.approx(1.340, abs=1e-3)
     assert np.allclose(x, [6.016, 5.309, 4.494, 3.502, 2.153], atol=2e-3)
     assert (c / x**3).sum() <= 1 + 1e-6
@@ -43,7 +46,9 @@ def test_mass_limit_equals_the_matching_volume_fraction(optimizer):
     # about 1e-5 and sees the constraint scaled differently (mass vs. fraction)
     tol = 1e-6 if optimizer == "oc" else 2e-3
     assert by_mass.summary["mass_kg"] == pytest.approx(by_fraction.summary["mass_kg"], rel=tol)
-    assert by_mass.summary["compliance_Nmm"] == pytest.approx(by_fraction.summary["compliance_Nmm"], rel=tol)
+    assert by_mass.summary["compliance_Nmm"] == pytest.approx(
+        by_fraction.summary["compliance_Nmm"], rel=tol
+    )
 
 
 def test_mass_limit_below_the_passive_solids_is_refused():
@@ -62,15 +67,32 @@ def symmetric_two_cases(objective, optimizer="mma"):
     # A plate clamped on its left edge with two load cases mirror images of each
     # other about the mid-height line, the second weighted more: the weighted
     # design favours case 2, the worst-case design balances them.
-    return {"name": "two-cases", "domain": {"size": [40.0, 20.0], "element_size": 1.0, "thickness": 1.0},
-            "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
-            "optimization": {"volume_fraction": 0.3, "optimizer": optimizer, "objective": objective,
-                             "projection": False, "filter_radius": 2.0, "max_iterations": 150},
-            "support": [{"region": {"face": "x-min"}}],
-            "load_case": [{"name": "up", "weight": 1.0,
-                           "force": [{"region": {"point": [40.0, 15.0]}, "total": [0.0, 1.0]}]},
-                          {"name": "down", "weight": 3.0,
-                           "force": [{"region": {"point": [40.0, 5.0]}, "total": [0.0, -1.0]}]}]}
+    return {
+        "name": "two-cases",
+        "domain": {"size": [40.0, 20.0], "element_size": 1.0, "thickness": 1.0},
+        "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
+        "optimization": {
+            "volume_fraction": 0.3,
+            "optimizer": optimizer,
+            "objective": objective,
+            "projection": False,
+            "filter_radius": 2.0,
+            "max_iterations": 150,
+        },
+        "support": [{"region": {"face": "x-min"}}],
+        "load_case": [
+            {
+                "name": "up",
+                "weight": 1.0,
+                "force": [{"region": {"point": [40.0, 15.0]}, "total": [0.0, 1.0]}],
+            },
+            {
+                "name": "down",
+                "weight": 3.0,
+                "force": [{"region": {"point": [40.0, 5.0]}, "total": [0.0, -1.0]}],
+            },
+        ],
+    }
 
 
 def test_worst_case_balances_symmetric_load_cases():
@@ -122,7 +144,7 @@ def test_factory_builds_the_optimizer_the_settings_name():
     from topo.optimizers import BoundFormulation, MMAStep, OptimalityCriteria, make_optimizer
 
     active = np.ones(6, bool)
-    settings = lambda name: SimpleNamespace(optimizer=name, move_limit=0.2)  # noqa: E731
+    settings = lambda name: SimpleNamespace(optimizer=name, move_limit=0.2)
     assert isinstance(make_optimizer(settings("oc"), active), OptimalityCriteria)
     mma = make_optimizer(settings("mma"), active, n_constraints=2)
     assert isinstance(mma, MMAStep) and mma.mma.m == 2 and not mma.mma.globally_convergent

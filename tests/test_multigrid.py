@@ -1,7 +1,9 @@
 """Multigrid-preconditioned CG against the direct solver and closed-form properties."""
+
 import numpy as np
 import pytest
 import scipy.sparse as sp
+from conftest import beam_problem
 
 from topo.elements import element_stiffness
 from topo.fem import Model
@@ -9,7 +11,6 @@ from topo.grid import Grid
 from topo.multigrid import RTOL, Hierarchy, MultigridCG, prolongation
 from topo.problem import problem_from_dict
 from topo.stencil import StencilAssembly
-from conftest import beam_problem
 
 
 def small_coarse_grid(grid, ke, fixed, rtol=RTOL):
@@ -44,7 +45,7 @@ def test_prolongation_interpolates_linear_fields_exactly(shape):
     mesh = np.meshgrid(*coarse_pos, indexing="ij")
     coarse_nodes = np.stack([m.ravel() for m in mesh], axis=1).astype(float)
     g = np.random.default_rng(0).normal(size=(dim, dim))
-    field = lambda x: x @ g.T + 0.3  # noqa: E731
+    field = lambda x: x @ g.T + 0.3
     u_fine = (p @ field(coarse_nodes).ravel()).reshape(-1, dim)
     assert np.allclose(u_fine, field(fine_nodes))
 
@@ -122,8 +123,12 @@ def test_hierarchy_from_moduli_matches_the_sparse_hierarchy(size):
 @pytest.mark.parametrize("contrast_field", ["random", "blocks"])
 def test_iterative_and_direct_agree_with_high_contrast(contrast_field, rtol):
     d = beam_problem(3, [16.0, 8.0, 8.0], 1.0)
-    d["load_case"].append({"name": "twist", "force": [{"region": {"point": [16.0, 8.0, 8.0]},
-                                                       "total": [0.0, 1.0, 0.5]}]})
+    d["load_case"].append(
+        {
+            "name": "twist",
+            "force": [{"region": {"point": [16.0, 8.0, 8.0]}, "total": [0.0, 1.0, 0.5]}],
+        }
+    )
     rng = np.random.default_rng(3)
     n = 16 * 8 * 8
     if contrast_field == "random":
@@ -135,7 +140,9 @@ def test_iterative_and_direct_agree_with_high_contrast(contrast_field, rtol):
         rho[:, :, 0:1] = 1.0
         rho = rho.ravel()
     direct = Model(problem_from_dict(d, {"optimization.solver": "direct"})).analyze(rho)
-    model = Model(problem_from_dict(d), system_factory=lambda g, ke, f: small_coarse_grid(g, ke, f, rtol))
+    model = Model(
+        problem_from_dict(d), system_factory=lambda g, ke, f: small_coarse_grid(g, ke, f, rtol)
+    )
     iterative = model.analyze(rho)
     assert model.system.hierarchy.levels >= 3 and model.system.iterations > 1
     err = np.linalg.norm(iterative.displacements - direct.displacements, axis=0)

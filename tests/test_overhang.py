@@ -1,13 +1,20 @@
 """Overhang (additive-manufacturing) filter and the printability check."""
+
 import numpy as np
 import pytest
+from conftest import beam_problem
 
 from topo.design import check, optimize
-from topo.printability import (directions, from_build_frame, to_build_frame,
-                               unsupported_by_direction, unsupported_fraction, unsupported_mask)
+from topo.printability import (
+    directions,
+    from_build_frame,
+    to_build_frame,
+    unsupported_by_direction,
+    unsupported_fraction,
+    unsupported_mask,
+)
 from topo.problem import problem_from_dict
 from topo.transforms import OverhangFilter
-from conftest import beam_problem
 
 CASES = [((7, 6), d) for d in directions(2)] + [((5, 4, 6), d) for d in directions(3)]
 
@@ -39,7 +46,7 @@ def pyramid_2d(n=12):
     """A 45° pyramid standing on the plate (y = 0), building +y: self-supporting."""
     rho = np.zeros((n, n // 2))
     for j in range(n // 2):
-        rho[j: n - j, j] = 1.0
+        rho[j : n - j, j] = 1.0
     return rho
 
 
@@ -52,7 +59,7 @@ def test_self_supporting_field_passes_within_the_smoothing_error():
     # 3D: a stepped pyramid on the z = 0 plate
     cube = np.zeros((9, 9, 4))
     for k in range(4):
-        cube[k: 9 - k, k: 9 - k, k] = 1.0
+        cube[k : 9 - k, k : 9 - k, k] = 1.0
     out = OverhangFilter(cube.shape, "+z").forward(cube.ravel()).reshape(cube.shape)
     assert np.all(np.abs(out - cube) <= 0.01)
 
@@ -84,12 +91,14 @@ def test_any_input_thresholded_after_the_filter_passes_the_check(shape, directio
 
 def test_check_on_hand_made_2d_field():
     # Building +y; rows are y layers. Columns x = 0..4.
-    layers = np.array([
-        [1, 0, 0, 0, 0],   # plate layer: always supported
-        [0, 1, 0, 0, 1],   # x=1 rests diagonally on x=0 (45°): ok; x=4 has nothing below
-        [0, 0, 0, 1, 0],   # x=3: below it x=2,3,4 of layer 1 → x=4 solid: ok
-        [1, 0, 0, 0, 0],   # x=0: below x=0,1 of layer 2 are void: unsupported
-    ])
+    layers = np.array(
+        [
+            [1, 0, 0, 0, 0],  # plate layer: always supported
+            [0, 1, 0, 0, 1],  # x=1 rests diagonally on x=0 (45°): ok; x=4 has nothing below
+            [0, 0, 0, 1, 0],  # x=3: below it x=2,3,4 of layer 1 → x=4 solid: ok
+            [1, 0, 0, 0, 0],  # x=0: below x=0,1 of layer 2 are void: unsupported
+        ]
+    )
     rho = layers.T.astype(float)  # to [i, j] = [x, y]
     mask = unsupported_mask(rho >= 0.5, "+y")
     assert set(zip(*np.nonzero(mask))) == {(4, 1), (0, 3)}
@@ -120,9 +129,13 @@ def test_check_on_hand_made_3d_field_diagonal_is_not_support():
 
 
 def small_bracket(direction="+y", enforce=True):
-    d = beam_problem(2, [40.0, 20.0], 1.0, max_iterations=80, beta_interval=10, volume_fraction=0.35)
+    d = beam_problem(
+        2, [40.0, 20.0], 1.0, max_iterations=80, beta_interval=10, volume_fraction=0.35
+    )
     d["support"] = [{"region": {"face": "x-min"}}]
-    d["load_case"] = [{"name": "tip", "force": [{"region": {"point": [40.0, 10.0]}, "total": [0.0, -1.0]}]}]
+    d["load_case"] = [
+        {"name": "tip", "force": [{"region": {"point": [40.0, 10.0]}, "total": [0.0, -1.0]}]}
+    ]
     d["build"] = {"direction": direction, "overhang_filter": enforce}
     return problem_from_dict(d)
 
@@ -141,9 +154,11 @@ def test_optimised_design_with_the_filter_is_printable():
 def test_check_reports_solid_region_that_cannot_be_supported():
     d = beam_problem(2, [20.0, 10.0], 1.0)
     d["build"] = {"direction": "+y"}
-    d["passive"] = [{"name": "shelf", "kind": "void", "region": {"box": {"min": [0, 3], "max": [20, 5]}}},
-                    {"name": "boss", "kind": "solid", "region": {"box": {"min": [8, 6], "max": [12, 9]}}},
-                    {"name": "foot", "kind": "solid", "region": {"box": {"min": [8, 0], "max": [12, 2]}}}]
+    d["passive"] = [
+        {"name": "shelf", "kind": "void", "region": {"box": {"min": [0, 3], "max": [20, 5]}}},
+        {"name": "boss", "kind": "solid", "region": {"box": {"min": [8, 6], "max": [12, 9]}}},
+        {"name": "foot", "kind": "solid", "region": {"box": {"min": [8, 0], "max": [12, 2]}}},
+    ]
     rep = check(problem_from_dict(d))
     assert [r["name"] for r in rep["unsupportable_solid_regions"]] == ["boss"]
     assert rep["unsupportable_solid_regions"][0]["unsupportable_elements"] == 12

@@ -1,19 +1,19 @@
 """The printed part and its sign-off figures: deflection probes against beam theory
 and finite differences, support needs against hand counts, load paths and
 enclosed cavities against independent constructions."""
+
 import numpy as np
 import pytest
+from conftest import beam_problem
 from scipy import ndimage
 
-from conftest import beam_problem
 from topo.deflection import Probe, deflection_gradient, deflections, unit_direction
 from topo.fem import Model
 from topo.integrity import enclosed_cavities, load_path
 from topo.printability import support_needed, unsupported_mask
 from topo.printed import printed_density, relative_gap
-from topo.problem import problem_from_dict
+from topo.problem import Face, problem_from_dict
 from topo.regions import select_nodes
-from topo.problem import Face
 
 
 def _tip_probe(model, limit=None):
@@ -85,8 +85,11 @@ def test_unsupported_mask_agrees_with_a_geometric_45_degree_rule(rng):
         if k == 0:
             assert not bad[i, j, k]
             continue
-        near = [(i + di, j + dj) for di, dj in [(0, 0), (1, 0), (-1, 0), (0, 1), (0, -1)]
-                if 0 <= i + di < 7 and 0 <= j + dj < 6]
+        near = [
+            (i + di, j + dj)
+            for di, dj in [(0, 0), (1, 0), (-1, 0), (0, 1), (0, -1)]
+            if 0 <= i + di < 7 and 0 <= j + dj < 6
+        ]
         assert bad[i, j, k] == (not any(s[a, b, k - 1] for a, b in near))
 
 
@@ -125,8 +128,10 @@ def test_enclosed_cavities_against_scipy_fill_holes():
 
 def test_printed_density_keeps_passive_solids_whole_and_voids_empty():
     d = beam_problem(2, [20.0, 5.0], 1.0)
-    d["passive"] = [{"kind": "solid", "region": {"box": {"min": [15, 0], "max": [20, 5]}}},
-                    {"kind": "void", "region": {"box": {"min": [5, 0], "max": [7, 5]}}}]
+    d["passive"] = [
+        {"kind": "solid", "region": {"box": {"min": [15, 0], "max": [20, 5]}}},
+        {"kind": "void", "region": {"box": {"min": [5, 0], "max": [7, 5]}}},
+    ]
     model = Model(problem_from_dict(d))
     grey = np.full(model.grid.shape, 0.49)
     grey[:3] = 0.5

@@ -1,5 +1,6 @@
 """Each region form selects exactly the expected nodes and elements on a small grid.
 Expected sets are written out by hand from the geometry."""
+
 import numpy as np
 
 from topo.grid import Grid
@@ -37,8 +38,9 @@ def test_point_picks_nearest_node_and_containing_element():
 def test_disc_in_2d():
     # radius 1 around (2, 1.5), node tolerance 0.5: nodes within 1.5 of the centre
     c = Cylinder((2.0, 1.5), "z", 1.0, float("inf"))
-    expected = nodes2(*[(i, j) for i in range(5) for j in range(4)
-                        if np.hypot(i - 2, j - 1.5) <= 1.5])
+    expected = nodes2(
+        *[(i, j) for i in range(5) for j in range(4) if np.hypot(i - 2, j - 1.5) <= 1.5]
+    )
     assert list(select_nodes(c, G2)) == expected
     # element centres within 1.0: (1.5, 1.5) and (2.5, 1.5) at 0.5
     assert list(select_elements(c, G2)) == [1 * 3 + 1, 2 * 3 + 1]

@@ -1,21 +1,27 @@
 """The responses the optimizer sees: values, g = v/L − 1, and x-gradients checked
 against central finite differences through the whole chain (projection on, so the
 material budget is nonlinear in x)."""
+
 import numpy as np
 import pytest
+from conftest import beam_problem
 
 from topo.design import build_chain
 from topo.fem import Model
 from topo.problem import problem_from_dict
 from topo.responses import Responses
-from conftest import beam_problem
 
 
 def two_cases(**opt):
     d = beam_problem(2, [8.0, 4.0], 1.0, projection=True, filter_radius=1.5, **opt)
     d["material"]["yield_strength"] = 100.0
-    d["load_case"].append({"name": "side", "weight": 0.5, "force": [
-        {"region": {"point": [8.0, 4.0]}, "total": [1.0, 0.3]}]})
+    d["load_case"].append(
+        {
+            "name": "side",
+            "weight": 0.5,
+            "force": [{"region": {"point": [8.0, 4.0]}, "total": [1.0, 0.3]}],
+        }
+    )
     return d
 
 
@@ -34,14 +40,22 @@ def at(model, chain, responses, x):
     return ev
 
 
-@pytest.mark.parametrize("opt", [{}, {"optimizer": "mma", "stress_limit": 5.0},
-                                 {"optimizer": "mma", "objective": "worst_case"}])
+@pytest.mark.parametrize(
+    "opt",
+    [
+        {},
+        {"optimizer": "mma", "stress_limit": 5.0},
+        {"optimizer": "mma", "objective": "worst_case"},
+    ],
+)
 def test_every_response_gradient_matches_finite_differences(opt, rng):
     model, chain, responses = setup(two_cases(**opt))
     x = rng.uniform(0.2, 0.9, model.grid.n_elements)
     ev = at(model, chain, responses, x)
     terms = [r for r in [ev.objective, *ev.bounds, *ev.constraints] if r.gradient is not None]
-    assert [r.name for r in ev.constraints] == ["material"] + (["stress"] if "stress_limit" in opt else [])
+    assert [r.name for r in ev.constraints] == ["material"] + (
+        ["stress"] if "stress_limit" in opt else []
+    )
     assert len(ev.bounds) == (2 if opt.get("objective") == "worst_case" else 0)
 
     def values(xx):
@@ -50,9 +64,13 @@ def test_every_response_gradient_matches_finite_differences(opt, rng):
         a = model.analyze(rho, stresses=False)
         objective, bounds = responses.objective.evaluate(rho, a, gradient=False)
         constraints = [t.evaluate(rho, a, gradient=False) for t in responses.constraints]
-        return [r.value for r, t in zip([objective, *bounds, *constraints],
-                                        [ev.objective, *ev.bounds, *ev.constraints])
-                if t.gradient is not None]
+        return [
+            r.value
+            for r, t in zip(
+                [objective, *bounds, *constraints], [ev.objective, *ev.bounds, *ev.constraints]
+            )
+            if t.gradient is not None
+        ]
 
     eps = 1e-6
     for _ in range(2):

@@ -1,16 +1,17 @@
 """Linear systems: the back ends agree with each other and with a dense solve, and
 every implementation keeps the same contract."""
+
 import warnings
 
 import numpy as np
 import pytest
+from conftest import beam_problem
 
 from topo import cholesky
 from topo.fem import Model
 from topo.multigrid import MultigridCG
 from topo.problem import problem_from_dict
 from topo.solvers import DirectSystem, make_system
-from conftest import beam_problem
 
 
 def dense_reference(m, e):
@@ -52,8 +53,10 @@ def test_cholmod_superlu_and_dense_agree(monkeypatch):
 def systems():
     """Every implementation, with tight tolerances: CHOLMOD (when present),
     SuperLU, and multigrid-CG with a coarse grid small enough for three levels."""
-    out = [("superlu", lambda g, ke, f: DirectSystem(g, ke, f, prefer_cholmod=False)),
-           ("multigrid-cg", lambda g, ke, f: MultigridCG(g, ke, f, rtol=1e-12, coarse_dofs=100))]
+    out = [
+        ("superlu", lambda g, ke, f: DirectSystem(g, ke, f, prefer_cholmod=False)),
+        ("multigrid-cg", lambda g, ke, f: MultigridCG(g, ke, f, rtol=1e-12, coarse_dofs=100)),
+    ]
     if cholesky.cholmod_available():
         out.append(("cholmod", DirectSystem))
     return out
@@ -62,8 +65,12 @@ def systems():
 @pytest.mark.parametrize("name,factory", systems(), ids=[n for n, _ in systems()])
 def test_every_linear_system_keeps_the_contract(name, factory):
     d = beam_problem(3, [8.0, 4.0, 4.0], 1.0)
-    d["load_case"].append({"name": "side", "force": [{"region": {"point": [8.0, 4.0, 4.0]},
-                                                      "total": [0.0, 1.0, 0.5]}]})
+    d["load_case"].append(
+        {
+            "name": "side",
+            "force": [{"region": {"point": [8.0, 4.0, 4.0]}, "total": [0.0, 1.0, 0.5]}],
+        }
+    )
     m = Model(problem_from_dict(d))
     rng = np.random.default_rng(5)
     e = m.moduli(rng.uniform(0.05, 1.0, m.grid.n_elements))

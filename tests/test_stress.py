@@ -1,21 +1,31 @@
 """Stress: relaxed von Mises, p-norm aggregate and its sensitivity, the hole in a
 plate against Kirsch, and a stress-limited design."""
+
 import numpy as np
 import pytest
+from conftest import beam_problem
 
 from topo.design import analyze, optimize
 from topo.elements import centre_strain_displacement, elasticity_matrix
 from topo.fem import Model
 from topo.problem import problem_from_dict
 from topo.stress import StressMeasure
-from conftest import beam_problem
 
 
 @pytest.mark.parametrize("dim", [2, 3])
 def test_aggregate_sensitivity_matches_finite_differences(dim):
     d = beam_problem(dim, [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0], 1.0)
-    d["load_case"].append({"name": "side", "force": [{"region": {"point": [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0]},
-                                                      "total": [1.0, 0.5] + ([0.2] if dim == 3 else [])}]})
+    d["load_case"].append(
+        {
+            "name": "side",
+            "force": [
+                {
+                    "region": {"point": [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0]},
+                    "total": [1.0, 0.5] + ([0.2] if dim == 3 else []),
+                }
+            ],
+        }
+    )
     m = Model(problem_from_dict(d))
     sm = StressMeasure(m)
     rng = np.random.default_rng(0)
@@ -47,16 +57,24 @@ def test_hole_in_a_wide_plate_shows_the_kirsch_concentration():
     # (Timoshenko & Goodier, Theory of Elasticity, §35); the finite width raises the
     # edge value to about 3.03σ0 (Peterson's stress concentration factors, from memory).
     L, a, h, s0 = 100.0, 10.0, 0.5, 10.0
-    d = {"name": "hole", "domain": {"size": [L, L], "element_size": h, "thickness": 1.0},
-         "material": {"youngs_modulus": 70000.0, "poissons_ratio": 0.3, "density": 2700.0},
-         "optimization": {"volume_fraction": 1.0},
-         "support": [{"region": {"face": "x-min"}, "fix": ["x"]}, {"region": {"face": "y-min"}, "fix": ["y"]}],
-         "load_case": [{"force": [{"region": {"face": "x-max"}, "total": [s0 * L, 0.0]}]}],
-         "passive": [{"kind": "void", "region": {"cylinder": {"center": [0.0, 0.0], "radius": a}}}]}
+    d = {
+        "name": "hole",
+        "domain": {"size": [L, L], "element_size": h, "thickness": 1.0},
+        "material": {"youngs_modulus": 70000.0, "poissons_ratio": 0.3, "density": 2700.0},
+        "optimization": {"volume_fraction": 1.0},
+        "support": [
+            {"region": {"face": "x-min"}, "fix": ["x"]},
+            {"region": {"face": "y-min"}, "fix": ["y"]},
+        ],
+        "load_case": [{"force": [{"region": {"face": "x-max"}, "total": [s0 * L, 0.0]}]}],
+        "passive": [{"kind": "void", "region": {"cylinder": {"center": [0.0, 0.0], "radius": a}}}],
+    }
     r = analyze(problem_from_dict(d))
     rho = r.density
     ue = r.analysis.displacements[r.model.grid.element_dofs][:, :, 0]
-    sx = (ue @ (elasticity_matrix(2, 70000.0, 0.3) @ centre_strain_displacement(2, h)).T)[:, 0].reshape(rho.shape)
+    sx = (ue @ (elasticity_matrix(2, 70000.0, 0.3) @ centre_strain_displacement(2, h)).T)[
+        :, 0
+    ].reshape(rho.shape)
     # Mesh effects, measured: element-centre stresses sit h/2 off the edge and the
     # bilinear elements under-read the steep gradient there by about 7 % (2.64σ0
     # against Kirsch's 2.83σ0 at that radius); the staircase outline of the hole
@@ -75,13 +93,33 @@ def test_hole_in_a_wide_plate_shows_the_kirsch_concentration():
 
 def l_bracket(**opt):
     """L-shaped plate: the re-entrant corner is the classic stress benchmark shape."""
-    return {"name": "l-bracket", "domain": {"size": [40.0, 40.0], "element_size": 1.0, "thickness": 1.0},
-            "material": {"youngs_modulus": 1000.0, "poissons_ratio": 0.3, "density": 1.0, "yield_strength": 3.0},
-            "optimization": {"volume_fraction": 0.4, "optimizer": "mma", "projection": False,
-                             "filter_radius": 1.5, "max_iterations": 150, **opt},
-            "support": [{"region": {"box": {"min": [0, 40], "max": [16, 40]}}}],
-            "passive": [{"kind": "void", "region": {"box": {"min": [16, 16], "max": [40, 40]}}}],
-            "load_case": [{"force": [{"region": {"box": {"min": [40, 10], "max": [40, 16]}}, "total": [0.0, -1.0]}]}]}
+    return {
+        "name": "l-bracket",
+        "domain": {"size": [40.0, 40.0], "element_size": 1.0, "thickness": 1.0},
+        "material": {
+            "youngs_modulus": 1000.0,
+            "poissons_ratio": 0.3,
+            "density": 1.0,
+            "yield_strength": 3.0,
+        },
+        "optimization": {
+            "volume_fraction": 0.4,
+            "optimizer": "mma",
+            "projection": False,
+            "filter_radius": 1.5,
+            "max_iterations": 150,
+            **opt,
+        },
+        "support": [{"region": {"box": {"min": [0, 40], "max": [16, 40]}}}],
+        "passive": [{"kind": "void", "region": {"box": {"min": [16, 16], "max": [40, 40]}}}],
+        "load_case": [
+            {
+                "force": [
+                    {"region": {"box": {"min": [40, 10], "max": [40, 16]}}, "total": [0.0, -1.0]}
+                ]
+            }
+        ],
+    }
 
 
 def test_stress_limited_design_meets_its_limit():

@@ -1,12 +1,13 @@
 """Parameter sweeps: folders, rows, trends, Dask and resume."""
+
 import csv
 
 import pytest
+from conftest import beam_problem
 
 from topo import problem_from_dict, sweep
 from topo.cli import main
 from topo.sweep import pareto
-from conftest import beam_problem
 
 
 def small():
@@ -22,15 +23,24 @@ def test_two_by_two_sweep_rows_folders_and_trend(tmp_path):
     rows = sweep(small(), VARY, jobs=2, out=tmp_path)
     assert len(rows) == 4 and all(r["ran"] for r in rows)
     folders = sorted(p.name for p in tmp_path.iterdir() if p.is_dir())
-    assert folders == sorted(["volume_fraction-0.3_filter_radius-1.5", "volume_fraction-0.3_filter_radius-2.5",
-                              "volume_fraction-0.5_filter_radius-1.5", "volume_fraction-0.5_filter_radius-2.5"])
+    assert folders == sorted(
+        [
+            "volume_fraction-0.3_filter_radius-1.5",
+            "volume_fraction-0.3_filter_radius-2.5",
+            "volume_fraction-0.5_filter_radius-1.5",
+            "volume_fraction-0.5_filter_radius-2.5",
+        ]
+    )
     for r in rows:
         assert (tmp_path / r["folder"].split("/")[-1] / "design.stl").exists()
     # More material, stiffer: at a fixed filter radius compliance falls as the
     # volume fraction rises (and the mass grows with it).
     for radius in (1.5, 2.5):
         lo, hi = [r for r in rows if r["optimization.filter_radius"] == radius]
-        assert lo["optimization.volume_fraction"] == 0.3 and hi["compliance_Nmm"] < lo["compliance_Nmm"]
+        assert (
+            lo["optimization.volume_fraction"] == 0.3
+            and hi["compliance_Nmm"] < lo["compliance_Nmm"]
+        )
         assert hi["mass_kg"] > lo["mass_kg"]
     with open(tmp_path / "sweep.csv") as fh:
         table = list(csv.DictReader(fh))
@@ -52,8 +62,9 @@ def test_dask_local_cluster_gives_the_same_rows(tmp_path):
     distributed = pytest.importorskip("dask.distributed")
     vary = {"optimization.volume_fraction": [0.3, 0.5]}
     local = sweep(small(), vary, jobs=1, out=tmp_path / "local")
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                                  dashboard_address=None) as cluster:
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+    ) as cluster:
         remote = sweep(small(), vary, out=tmp_path / "dask", scheduler=cluster.scheduler_address)
     for a, b in zip(local, remote):
         assert b["compliance_Nmm"] == pytest.approx(a["compliance_Nmm"], rel=1e-8)
@@ -61,8 +72,12 @@ def test_dask_local_cluster_gives_the_same_rows(tmp_path):
 
 
 def test_pareto_marks_runs_not_dominated():
-    rows = [{"mass_kg": 1.0, "compliance_Nmm": 10.0}, {"mass_kg": 2.0, "compliance_Nmm": 5.0},
-            {"mass_kg": 2.5, "compliance_Nmm": 6.0}, {"mass_kg": 0.5, "compliance_Nmm": 20.0}]
+    rows = [
+        {"mass_kg": 1.0, "compliance_Nmm": 10.0},
+        {"mass_kg": 2.0, "compliance_Nmm": 5.0},
+        {"mass_kg": 2.5, "compliance_Nmm": 6.0},
+        {"mass_kg": 0.5, "compliance_Nmm": 20.0},
+    ]
     assert pareto(rows) == [True, True, False, True]
 
 
@@ -86,8 +101,31 @@ region = { face = "x-min" }
   region = { point = [16.0, 4.0] }
   total = [0.0, -1.0]
 """)
-    assert main(["sweep", str(f), "--vary", "optimization.volume_fraction=0.3,0.4",
-                 "--out", str(tmp_path / "s")]) == 0
+    assert (
+        main(
+            [
+                "sweep",
+                str(f),
+                "--vary",
+                "optimization.volume_fraction=0.3,0.4",
+                "--out",
+                str(tmp_path / "s"),
+            ]
+        )
+        == 0
+    )
     text = capsys.readouterr().out
     assert "[2/2]" in text and "2 run(s) made" in text
-    assert main(["sweep", str(f), "--vary", "optimization.volume_fracton=0.3", "--out", str(tmp_path / "s")]) == 2
+    assert (
+        main(
+            [
+                "sweep",
+                str(f),
+                "--vary",
+                "optimization.volume_fracton=0.3",
+                "--out",
+                str(tmp_path / "s"),
+            ]
+        )
+        == 2
+    )

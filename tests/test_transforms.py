@@ -1,5 +1,6 @@
 """Density transforms: backward against central finite differences, and the filter
 against an independent dense construction of its weight matrix."""
+
 import numpy as np
 import pytest
 
@@ -52,7 +53,9 @@ def test_chain_backward_with_passive_regions(rng):
     void = np.zeros(n, bool)
     solid[:5] = True
     void[-7:] = True
-    chain = Chain([DensityFilter(shape, 2.0), HeavisideProjection(4.0, 0.4), PassiveOverride(solid, void)])
+    chain = Chain(
+        [DensityFilter(shape, 2.0), HeavisideProjection(4.0, 0.4), PassiveOverride(solid, void)]
+    )
     x = rng.uniform(size=n)
     fd_check(chain, x, rng)
     y = chain.forward(x)

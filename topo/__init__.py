@@ -6,15 +6,34 @@ the applicable codes and licensed engineering practice.
 >>> import topo
 >>> p = topo.load_problem  # load_problem(path, overrides) → Problem
 """
+
 from .bench import run_benchmarks
-from .design import (Result, analyze, check, estimate_resources, load_run, load_run_problem,
-                     optimize)
+from .design import Result, analyze, check, estimate_resources, load_run, load_run_problem, optimize
 from .export import MESH_FORMATS, Exported, export
 from .problem import Problem, ProblemError, load_problem, parse_override, problem_from_dict
 from .report import CAUTION, run_summary, summarize
 from .sweep import sweep
 
-__all__ = ["CAUTION", "MESH_FORMATS", "Exported", "Problem", "ProblemError", "Result", "analyze", "check",
-           "estimate_resources", "export", "load_problem", "load_run", "load_run_problem", "optimize",
-           "parse_override", "problem_from_dict", "run_benchmarks", "run_summary", "summarize", "sweep"]
+__all__ = [
+    "CAUTION",
+    "MESH_FORMATS",
+    "Exported",
+    "Problem",
+    "ProblemError",
+    "Result",
+    "analyze",
+    "check",
+    "estimate_resources",
+    "export",
+    "load_problem",
+    "load_run",
+    "load_run_problem",
+    "optimize",
+    "parse_override",
+    "problem_from_dict",
+    "run_benchmarks",
+    "run_summary",
+    "summarize",
+    "sweep",
+]
 __version__ = "0.1.0"

@@ -4,6 +4,7 @@ made in the same process. Benchmarks are never timed tests.
 Each case runs in a forked child process so that its peak memory (ru_maxrss) is
 its own.
 """
+
 from __future__ import annotations
 
 import json
@@ -24,27 +25,51 @@ PHASES = ("assembly", "solve", "sensitivities", "transforms", "update")
 
 def mbb_2d(nx: int = 300, ny: int = 100) -> dict:
     """Half MBB beam, unit data (as in the 88-line paper), density filter only."""
-    return {"name": f"mbb-{nx}x{ny}",
-            "domain": {"size": [float(nx), float(ny)], "element_size": 1.0, "thickness": 1.0},
-            "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
-            "optimization": {"volume_fraction": 0.5, "filter_radius": 3.0, "projection": False,
-                             "solver": "direct", "tolerance": 1e-9},
-            "support": [{"region": {"face": "x-min"}, "fix": ["x"]},
-                        {"region": {"point": [float(nx), 0.0]}, "fix": ["y"]}],
-            "load_case": [{"force": [{"region": {"point": [0.0, float(ny)]}, "total": [0.0, -1.0]}]}]}
+    return {
+        "name": f"mbb-{nx}x{ny}",
+        "domain": {"size": [float(nx), float(ny)], "element_size": 1.0, "thickness": 1.0},
+        "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
+        "optimization": {
+            "volume_fraction": 0.5,
+            "filter_radius": 3.0,
+            "projection": False,
+            "solver": "direct",
+            "tolerance": 1e-9,
+        },
+        "support": [
+            {"region": {"face": "x-min"}, "fix": ["x"]},
+            {"region": {"point": [float(nx), 0.0]}, "fix": ["y"]},
+        ],
+        "load_case": [{"force": [{"region": {"point": [0.0, float(ny)]}, "total": [0.0, -1.0]}]}],
+    }
 
 
 def cantilever_3d(nx: int, ny: int, nz: int, solver: str = "auto") -> dict:
     """Cantilever clamped at x = 0, line load down along the lower edge at x = L."""
     L, W, H = float(nx), float(ny), float(nz)
-    return {"name": f"cantilever-{nx}x{ny}x{nz}-{solver}",
-            "domain": {"size": [L, W, H], "element_size": 1.0},
-            "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
-            "optimization": {"volume_fraction": 0.12, "filter_radius": 1.5, "projection": False,
-                             "solver": solver, "tolerance": 1e-9},
-            "support": [{"region": {"face": "x-min"}}],
-            "load_case": [{"force": [{"region": {"box": {"min": [L, 0.0, 0.0], "max": [L, W, 0.0]}},
-                                      "total": [0.0, 0.0, -1.0]}]}]}
+    return {
+        "name": f"cantilever-{nx}x{ny}x{nz}-{solver}",
+        "domain": {"size": [L, W, H], "element_size": 1.0},
+        "material": {"youngs_modulus": 1.0, "poissons_ratio": 0.3, "density": 1.0},
+        "optimization": {
+            "volume_fraction": 0.12,
+            "filter_radius": 1.5,
+            "projection": False,
+            "solver": solver,
+            "tolerance": 1e-9,
+        },
+        "support": [{"region": {"face": "x-min"}}],
+        "load_case": [
+            {
+                "force": [
+                    {
+                        "region": {"box": {"min": [L, 0.0, 0.0], "max": [L, W, 0.0]}},
+                        "total": [0.0, 0.0, -1.0],
+                    }
+                ]
+            }
+        ],
+    }
 
 
 def _run(problem_dict: dict, iterations: int, after_iteration=None) -> dict:
@@ -75,12 +100,18 @@ def _run(problem_dict: dict, iterations: int, after_iteration=None) -> dict:
     per = {p: steady[p] / m for p in PHASES}
     per_iteration = (loop - result.history[0]["seconds"]) / m
     per["other"] = max(per_iteration - sum(per.values()), 0.0)
-    return {"result": result, "iterations": n, "per_iteration_s": per_iteration, "phases_s": per,
-            "first_iteration_s": result.history[0]["seconds"],
-            "setup_s": wall - loop - between[0], "solver": result.model.system.name,
-            # a direct solver takes no iterations (None): counted as 0
-            "solver_iterations": float(np.mean([h["solver_iterations"] or 0 for h in result.history])),
-            "compliance": [h["objective"] for h in result.history]}
+    return {
+        "result": result,
+        "iterations": n,
+        "per_iteration_s": per_iteration,
+        "phases_s": per,
+        "first_iteration_s": result.history[0]["seconds"],
+        "setup_s": wall - loop - between[0],
+        "solver": result.model.system.name,
+        # a direct solver takes no iterations (None): counted as 0
+        "solver_iterations": float(np.mean([h["solver_iterations"] or 0 for h in result.history])),
+        "compliance": [h["objective"] for h in result.history],
+    }
 
 
 class _PairedFactorisation:
@@ -138,9 +169,13 @@ def case_compare(shape: tuple[int, int, int], iterations: int) -> dict:
     for r in (iterative, direct):
         r.pop("result")
         r.pop("compliance")
-    return {"iterative": iterative, "direct": direct,
-            "ratio_direct_to_iterative": direct["per_iteration_s"] / iterative["per_iteration_s"],
-            "compliance_relative_difference": abs(ci - cd) / cd, "iterations": iterations}
+    return {
+        "iterative": iterative,
+        "direct": direct,
+        "ratio_direct_to_iterative": direct["per_iteration_s"] / iterative["per_iteration_s"],
+        "compliance_relative_difference": abs(ci - cd) / cd,
+        "iterations": iterations,
+    }
 
 
 def _child(fn, args, queue) -> None:
@@ -165,13 +200,17 @@ def case_scale(shape: tuple[int, int, int], iterations: int) -> dict:
 
 # Run only when named with --case: each takes from ten minutes to over half an
 # hour on two cores (the long comparison is dominated by its direct run).
-ON_REQUEST = {"scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100)),
-              "compare-3d-60x30x30-long": (case_compare, ((60, 30, 30), 50))}
+ON_REQUEST = {
+    "scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100)),
+    "compare-3d-60x30x30-long": (case_compare, ((60, 30, 30), 50)),
+}
 
 
 def cases(quick: bool) -> dict:
-    plan = {"mbb-2d-300x100": (case_mbb, (quick,)),
-            "cantilever-3d-48x24x24": (case_cantilever, ((48, 24, 24), quick))}
+    plan = {
+        "mbb-2d-300x100": (case_mbb, (quick,)),
+        "cantilever-3d-48x24x24": (case_cantilever, ((48, 24, 24), quick)),
+    }
     if not quick:
         plan["cantilever-3d-96x48x48"] = (case_cantilever, ((96, 48, 48), quick))
         plan["compare-3d-60x30x30"] = (case_compare, ((60, 30, 30), 10))
@@ -181,8 +220,15 @@ def cases(quick: bool) -> dict:
 def run_benchmarks(quick: bool = False, only: list[str] | None = None, echo=print) -> dict:
     """Run the standard cases (each in its own process) and return their figures."""
     ctx = mp.get_context("fork")
-    report = {"machine": {"python": platform.python_version(), "cpus": mp.cpu_count(),
-                          "platform": platform.platform()}, "quick": quick, "cases": {}}
+    report = {
+        "machine": {
+            "python": platform.python_version(),
+            "cpus": mp.cpu_count(),
+            "platform": platform.platform(),
+        },
+        "quick": quick,
+        "cases": {},
+    }
     plan = cases(quick)
     plan.update({k: v for k, v in ON_REQUEST.items() if only and k in only})
     for name, (fn, args) in plan.items():
@@ -211,19 +257,30 @@ def format_case(name: str, r: dict) -> str:
         lines = [f"{name}: {r['iterations']} iterations each"]
         for kind in ("iterative", "direct"):
             s = r[kind]
-            lines.append(f"  {kind:9s} {s['solver']}: {s['per_iteration_s']:.2f} s/iteration "
-                         f"({_phases(s)}); solver iterations {s['solver_iterations']:.1f}")
-        lines.append(f"  direct / iterative time per iteration: {r['ratio_direct_to_iterative']:.1f}×; "
-                     f"compliance differs by {100 * r['compliance_relative_difference']:.3f} %; "
-                     f"peak memory {r['peak_memory_MB']:.0f} MB")
+            lines.append(
+                f"  {kind:9s} {s['solver']}: {s['per_iteration_s']:.2f} s/iteration "
+                f"({_phases(s)}); solver iterations {s['solver_iterations']:.1f}"
+            )
+        lines.append(
+            f"  direct / iterative time per iteration: {r['ratio_direct_to_iterative']:.1f}×; "
+            f"compliance differs by {100 * r['compliance_relative_difference']:.3f} %; "
+            f"peak memory {r['peak_memory_MB']:.0f} MB"
+        )
         return "\n".join(lines)
-    line = (f"{name}: {r['solver']}, {r['iterations']} iterations"
-            + (f" in {r['wall_s']:.0f} s wall" if "wall_s" in r else "") + f", {r['per_iteration_s']:.3f} s/iteration "
-            f"({_phases(r)}); solver iterations {r['solver_iterations']:.1f}; "
-            f"first iteration {r['first_iteration_s']:.2f} s; setup {r['setup_s']:.1f} s; peak memory {r['peak_memory_MB']:.0f} MB")
+    line = (
+        f"{name}: {r['solver']}, {r['iterations']} iterations"
+        + (f" in {r['wall_s']:.0f} s wall" if "wall_s" in r else "")
+        + f", {r['per_iteration_s']:.3f} s/iteration "
+        f"({_phases(r)}); solver iterations {r['solver_iterations']:.1f}; "
+        f"first iteration {r['first_iteration_s']:.2f} s; setup {r['setup_s']:.1f} s; "
+        f"peak memory {r['peak_memory_MB']:.0f} MB"
+    )
     if "reference" in r:
         ref = r["reference"]
-        line += (f"\n  medians, paired in time: iteration {ref['median_iteration_s']:.3f} s, one CHOLMOD "
-                 f"factorisation + solve {ref['cholmod_factor_and_solve_s']:.3f} s; "
-                 f"iteration / (factorisation + solve) = {r['ratio_iteration_to_factor_solve']:.2f}")
+        line += (
+            f"\n  medians, paired in time: iteration {ref['median_iteration_s']:.3f} s, "
+            "one CHOLMOD "
+            f"factorisation + solve {ref['cholmod_factor_and_solve_s']:.3f} s; "
+            f"iteration / (factorisation + solve) = {r['ratio_iteration_to_factor_solve']:.2f}"
+        )
     return line

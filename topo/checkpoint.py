@@ -3,6 +3,7 @@ and on interruption, and read back on resume so that the run continues to the de
 an uninterrupted run would reach: design variables, iteration, β and its age, the
 history, the state of each named part (optimizer, responses, the linear system's
 warm start) and the problem the run belongs to."""
+
 from __future__ import annotations
 
 import io
@@ -40,13 +41,20 @@ class Checkpoint:
 
         if not self.path:
             return
-        parts = {f"{p}_{k}": np.asarray(v) for p, part in self.parts.items()
-                 for k, v in part.state().items()}
+        parts = {
+            f"{p}_{k}": np.asarray(v)
+            for p, part in self.parts.items()
+            for k, v in part.state().items()
+        }
         buf = io.BytesIO()
-        np.savez(buf, x=state.x, **parts,
-                 scalars=np.array([state.iteration, state.beta, state.since_beta], dtype=float),
-                 history=np.array(json.dumps(state.history)),
-                 problem=np.array(json.dumps(self.problem.raw)))
+        np.savez(
+            buf,
+            x=state.x,
+            **parts,
+            scalars=np.array([state.iteration, state.beta, state.since_beta], dtype=float),
+            history=np.array(json.dumps(state.history)),
+            problem=np.array(json.dumps(self.problem.raw)),
+        )
         atomic_write(self.path, buf.getvalue())
 
     def load(self) -> LoopState:
@@ -54,11 +62,16 @@ class Checkpoint:
             raise FileNotFoundError(f"no checkpoint to resume from at {self.path}")
         data = np.load(self.path)
         if json.loads(str(data["problem"])) != json.loads(json.dumps(self.problem.raw)):
-            raise ProblemError(str(self.path), "", "the checkpoint belongs to a different problem "
-                               "(the problem file or an override changed since)")
+            raise ProblemError(
+                str(self.path),
+                "",
+                "the checkpoint belongs to a different problem "
+                "(the problem file or an override changed since)",
+            )
         it, beta, since = data["scalars"]
-        state = LoopState(data["x"].copy(), int(it), float(beta), int(since),
-                          json.loads(str(data["history"])))
+        state = LoopState(
+            data["x"].copy(), int(it), float(beta), int(since), json.loads(str(data["history"]))
+        )
         for p, part in self.parts.items():
-            part.restore({k[len(p) + 1:]: data[k] for k in data.files if k.startswith(f"{p}_")})
+            part.restore({k[len(p) + 1 :]: data[k] for k in data.files if k.startswith(f"{p}_")})
         return state

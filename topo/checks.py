@@ -6,6 +6,7 @@ against), the value, the limit and a sentence that says what was checked. The
 rows go into summary.json, the console and sweep.csv; `topo run --strict` exits 3
 when any row fails, and a sweep keeps failing designs off its trade-off front.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -16,6 +17,7 @@ PASS, FAIL, NA = "PASS", "FAIL", "N/A"
 @dataclass
 class SignOffFigures:
     """What the checks read, gathered by report.py."""
+
     load_path_connected: bool
     cut_off_loads: list[str]
     loose_pieces: int
@@ -41,8 +43,14 @@ def _row(name: str, ok: bool | None, value, limit, detail: str) -> dict:
 
 def load_path(f: SignOffFigures) -> dict:
     if f.load_path_connected:
-        return _row("load_path", True, 0, 0, "every load region joins a support through printed "
-                    "elements (face-connected), and no piece is loose")
+        return _row(
+            "load_path",
+            True,
+            0,
+            0,
+            "every load region joins a support through printed "
+            "elements (face-connected), and no piece is loose",
+        )
     parts = []
     if f.cut_off_loads:
         parts.append(f"load region(s) {', '.join(f.cut_off_loads)} reach no support")
@@ -57,35 +65,66 @@ def interfaces_whole(f: SignOffFigures) -> dict:
     short = [i for i in f.interfaces if i["solid_share"] < 1.0]
     worst = min(i["solid_share"] for i in f.interfaces)
     if not short:
-        return _row("interfaces_whole", True, worst, 1.0, "every passive solid region is solid in "
-                    "the optimiser's design as in the printed part")
+        return _row(
+            "interfaces_whole",
+            True,
+            worst,
+            1.0,
+            "every passive solid region is solid in the optimiser's design as in the printed part",
+        )
     names = ", ".join(f"{i['name']} ({100 * i['solid_share']:.1f} %)" for i in short)
-    return _row("interfaces_whole", False, worst, 1.0, f"the optimiser's design leaves part of {names} "
-                "below ρ = 0.5; the printed part has them whole, so its figures differ from the "
-                "optimiser's and those regions may need support")
+    return _row(
+        "interfaces_whole",
+        False,
+        worst,
+        1.0,
+        f"the optimiser's design leaves part of {names} "
+        "below ρ = 0.5; the printed part has them whole, so its figures differ from the "
+        "optimiser's and those regions may need support",
+    )
 
 
 def compliance_gap(f: SignOffFigures) -> dict:
     gaps = {k: v for k, v in f.compliance_gaps.items() if v is not None}
     if not gaps:
-        return _row("compliance_gap", False, None, f.compliance_gap_limit,
-                    "no finite compliance of the printed part")
+        return _row(
+            "compliance_gap",
+            False,
+            None,
+            f.compliance_gap_limit,
+            "no finite compliance of the printed part",
+        )
     case, worst = max(gaps.items(), key=lambda kv: abs(kv[1]))
     ok = abs(worst) <= f.compliance_gap_limit
-    return _row("compliance_gap", ok, worst, f.compliance_gap_limit,
-                f"largest relative difference of printed and optimiser compliance: {100 * worst:+.2f} % "
-                f"(load case {case})")
+    return _row(
+        "compliance_gap",
+        ok,
+        worst,
+        f.compliance_gap_limit,
+        f"largest relative difference of printed and optimiser compliance: {100 * worst:+.2f} % "
+        f"(load case {case})",
+    )
 
 
 def safety_factor(f: SignOffFigures) -> dict:
     if f.safety_factor is None:
-        return _row("safety_factor", None, None, f.required_safety_factor,
-                    "no yield strength given, or no printed material")
+        return _row(
+            "safety_factor",
+            None,
+            None,
+            f.required_safety_factor,
+            "no yield strength given, or no printed material",
+        )
     ok = f.safety_factor >= f.required_safety_factor
-    return _row("safety_factor", ok, f.safety_factor, f.required_safety_factor,
-                "yield strength over the peak von Mises stress of the printed part at element "
-                "centres; weak at holes, fillets, supports and point loads, where the grid's stepped "
-                "surface under- or over-states the peak: verify with a body-fitted analysis")
+    return _row(
+        "safety_factor",
+        ok,
+        f.safety_factor,
+        f.required_safety_factor,
+        "yield strength over the peak von Mises stress of the printed part at element "
+        "centres; weak at holes, fillets, supports and point loads, where the grid's stepped "
+        "surface under- or over-states the peak: verify with a body-fitted analysis",
+    )
 
 
 def stress_limit(f: SignOffFigures) -> dict:
@@ -93,15 +132,25 @@ def stress_limit(f: SignOffFigures) -> dict:
         return _row("stress_limit", None, None, None, "no stress_limit given")
     value = f.max_von_mises_MPa
     ok = value is not None and value <= f.stress_limit_MPa
-    return _row("stress_limit", ok, value, f.stress_limit_MPa,
-                "peak von Mises stress of the printed part against optimization.stress_limit")
+    return _row(
+        "stress_limit",
+        ok,
+        value,
+        f.stress_limit_MPa,
+        "peak von Mises stress of the printed part against optimization.stress_limit",
+    )
 
 
 def mass_limit(f: SignOffFigures) -> dict:
     if f.mass_limit_kg is None:
         return _row("mass_limit", None, f.mass_kg, None, "no mass_limit given")
-    return _row("mass_limit", f.mass_kg <= f.mass_limit_kg * (1 + 1e-9), f.mass_kg, f.mass_limit_kg,
-                "mass of the printed part against optimization.mass_limit")
+    return _row(
+        "mass_limit",
+        f.mass_kg <= f.mass_limit_kg * (1 + 1e-9),
+        f.mass_kg,
+        f.mass_limit_kg,
+        "mass of the printed part against optimization.mass_limit",
+    )
 
 
 def deflection_limits(f: SignOffFigures) -> dict:
@@ -110,31 +159,55 @@ def deflection_limits(f: SignOffFigures) -> dict:
         return _row("deflection_limits", None, None, None, "no deflection limits given")
     ratios = [(abs(d["value_mm"]) / d["limit_mm"], d) for d in limited]
     ratio, worst = max(ratios, key=lambda r: r[0])
-    return _row("deflection_limits", ratio <= 1.0 + 1e-9, worst["value_mm"], worst["limit_mm"],
-                f"governing: {worst['name']} in load case {worst['load_case']}, "
-                f"{100 * ratio:.1f} % of its limit (printed part)")
+    return _row(
+        "deflection_limits",
+        ratio <= 1.0 + 1e-9,
+        worst["value_mm"],
+        worst["limit_mm"],
+        f"governing: {worst['name']} in load case {worst['load_case']}, "
+        f"{100 * ratio:.1f} % of its limit (printed part)",
+    )
 
 
 def unsupported(f: SignOffFigures) -> dict:
     if f.unsupported_fraction is None:
         return _row("unsupported_fraction", None, None, None, "no build direction given")
     ok = f.unsupported_fraction <= f.unsupported_limit + 1e-12
-    return _row("unsupported_fraction", ok, f.unsupported_fraction, f.unsupported_limit,
-                "share of printed elements with no printed element in their 45° support region "
-                "below (they need support structures)")
+    return _row(
+        "unsupported_fraction",
+        ok,
+        f.unsupported_fraction,
+        f.unsupported_limit,
+        "share of printed elements with no printed element in their 45° support region "
+        "below (they need support structures)",
+    )
 
 
 def no_cavities(f: SignOffFigures) -> dict:
     if not f.cavities:
         return _row("enclosed_cavities", True, 0, 0, "no enclosed void: all powder can be removed")
     total = sum(c["volume_mm3"] for c in f.cavities)
-    return _row("enclosed_cavities", False, len(f.cavities), 0,
-                f"{len(f.cavities)} enclosed void(s), {total:.4g} mm³ of powder that cannot be "
-                f"removed; first at {[round(v, 1) for v in f.cavities[0]['centre_mm']]} mm")
+    return _row(
+        "enclosed_cavities",
+        False,
+        len(f.cavities),
+        0,
+        f"{len(f.cavities)} enclosed void(s), {total:.4g} mm³ of powder that cannot be "
+        f"removed; first at {[round(v, 1) for v in f.cavities[0]['centre_mm']]} mm",
+    )
 
 
-CHECKS = (load_path, interfaces_whole, compliance_gap, safety_factor, stress_limit, mass_limit,
-          deflection_limits, unsupported, no_cavities)
+CHECKS = (
+    load_path,
+    interfaces_whole,
+    compliance_gap,
+    safety_factor,
+    stress_limit,
+    mass_limit,
+    deflection_limits,
+    unsupported,
+    no_cavities,
+)
 
 
 def run_checks(f: SignOffFigures) -> list[dict]:

@@ -5,6 +5,7 @@ only refactorises numerically afterwards, as long as the sparsity pattern stays
 the same; without it, or if CHOLMOD finds the matrix not positive definite,
 scipy's SuperLU serves.
 """
+
 from __future__ import annotations
 
 import warnings
@@ -37,9 +38,12 @@ class SparseCholesky:
         global _warned
         self.use_cholmod = prefer_cholmod and cholmod_available()
         if prefer_cholmod and not cholmod_available() and not _warned:
-            warnings.warn("CHOLMOD (scikit-sparse) cannot be imported; using scipy's SuperLU, "
-                          "which is slower. Install libsuitesparse-dev and scikit-sparse 0.4.x.",
-                          RuntimeWarning, stacklevel=3)
+            warnings.warn(
+                "CHOLMOD (scikit-sparse) cannot be imported; using scipy's SuperLU, "
+                "which is slower. Install libsuitesparse-dev and scikit-sparse 0.4.x.",
+                RuntimeWarning,
+                stacklevel=3,
+            )
             _warned = True
         self._factor = None
         self._lu = None
@@ -54,8 +58,12 @@ class SparseCholesky:
                 self._lu = None
                 return
             except _cholmod.CholmodNotPositiveDefiniteError:
-                warnings.warn("the stiffness matrix is not positive definite (CHOLMOD); "
-                              "falling back to a general sparse LU solve", RuntimeWarning, stacklevel=2)
+                warnings.warn(
+                    "the stiffness matrix is not positive definite (CHOLMOD); "
+                    "falling back to a general sparse LU solve",
+                    RuntimeWarning,
+                    stacklevel=2,
+                )
         self._lu = spla.splu(_full(k_lower), permc_spec="MMD_AT_PLUS_A")
 
     def solve(self, rhs: np.ndarray) -> np.ndarray:

@@ -1,6 +1,7 @@
 """Command line: thin subcommands over the public API; the lines printed come from
 report.py. No module state: a command names its output folder on the `Outputs` it is
 given, and main puts error.log there."""
+
 from __future__ import annotations
 
 import argparse
@@ -11,15 +12,30 @@ from pathlib import Path
 
 import numpy as np
 
-from . import (CAUTION, MESH_FORMATS, ProblemError, analyze, check, estimate_resources, export,
-               load_problem, load_run, load_run_problem, optimize, parse_override, report,
-               run_benchmarks, sweep)
+from . import (
+    CAUTION,
+    MESH_FORMATS,
+    ProblemError,
+    analyze,
+    check,
+    estimate_resources,
+    export,
+    load_problem,
+    load_run,
+    load_run_problem,
+    optimize,
+    parse_override,
+    report,
+    run_benchmarks,
+    sweep,
+)
 
 
 @dataclass
 class Outputs:
     """The output folder of the command in progress, once it is known (for error.log
     and the resume hint)."""
+
     folder: Path | None = None
 
 
@@ -59,19 +75,29 @@ def cmd_run(args, outputs: Outputs) -> int:
     est = estimate_resources(problem)
     _say([report.format_plan(problem, est)])
     if est["available_bytes"] and est["memory_bytes"] > est["available_bytes"] and not args.force:
-        hint = (f"; domain.element_size = {est['fitting_element_size']} mm would fit"
-                if est["fitting_element_size"] else "")
-        raise ProblemError(problem.source, "domain.element_size",
-                           f"the run needs about {est['memory_bytes'] / 2**30:.1f} GiB but "
-                           f"{est['available_bytes'] / 2**30:.1f} GiB are free{hint} "
-                           "(--force runs anyway)")
+        hint = (
+            f"; domain.element_size = {est['fitting_element_size']} mm would fit"
+            if est["fitting_element_size"]
+            else ""
+        )
+        raise ProblemError(
+            problem.source,
+            "domain.element_size",
+            f"the run needs about {est['memory_bytes'] / 2**30:.1f} GiB but "
+            f"{est['available_bytes'] / 2**30:.1f} GiB are free{hint} "
+            "(--force runs anyway)",
+        )
     out.mkdir(parents=True, exist_ok=True)
     outputs.folder = out
     checkpoint = out / "checkpoint.npz"
     if args.resume:
         print(f"resuming from {checkpoint}", flush=True)
-    result = optimize(problem, callback=None if args.quiet else _progress, checkpoint=checkpoint,
-                      resume=bool(args.resume))
+    result = optimize(
+        problem,
+        callback=None if args.quiet else _progress,
+        checkpoint=checkpoint,
+        resume=bool(args.resume),
+    )
     s = export(result, out, iso=args.iso, smooth=args.smooth, mesh_format=args.mesh_format).summary
     if checkpoint.exists():
         checkpoint.unlink()  # the run is complete; summary.json marks it
@@ -84,10 +110,21 @@ def cmd_run(args, outputs: Outputs) -> int:
 
 def cmd_export(args, outputs: Outputs) -> int:
     result = load_run(args.run_dir)
-    s = export(result, args.run_dir, only=["fields.vtu", "summary.json"], iso=args.iso,
-               smooth=args.smooth, mesh_format=args.mesh_format).summary
-    _say([report.format_mesh(s["mesh"], args.mesh_format),
-          f"re-exported design.{args.mesh_format}, fields.vtu and summary.json in {args.run_dir}/"])
+    s = export(
+        result,
+        args.run_dir,
+        only=["fields.vtu", "summary.json"],
+        iso=args.iso,
+        smooth=args.smooth,
+        mesh_format=args.mesh_format,
+    ).summary
+    _say(
+        [
+            report.format_mesh(s["mesh"], args.mesh_format),
+            f"re-exported design.{args.mesh_format}, fields.vtu and summary.json "
+            f"in {args.run_dir}/",
+        ]
+    )
     return 0
 
 
@@ -131,11 +168,19 @@ def cmd_sweep(args, outputs: Outputs) -> int:
     n = int(np.prod([len(v) for v in vary.values()]))
     where = f"on {args.scheduler}" if args.scheduler else f"with {args.jobs} local job(s)"
     print(f"{problem.name}: sweeping {', '.join(vary)} ({n} runs) {where}", flush=True)
-    rows = sweep(problem, vary, jobs=args.jobs, out=out, scheduler=args.scheduler,
-                 progress=lambda text: print(text, flush=True))
+    rows = sweep(
+        problem,
+        vary,
+        jobs=args.jobs,
+        out=out,
+        scheduler=args.scheduler,
+        progress=lambda text: print(text, flush=True),
+    )
     ran = sum(r["ran"] for r in rows)
-    print(f"{ran} run(s) made, {len(rows) - ran} already finished; table in {out}/sweep.csv, "
-          f"trade-off in {out}/sweep.png")
+    print(
+        f"{ran} run(s) made, {len(rows) - ran} already finished; table in {out}/sweep.csv, "
+        f"trade-off in {out}/sweep.png"
+    )
     print(CAUTION)
     return 0
 
@@ -150,21 +195,36 @@ def cmd_bench(args, outputs: Outputs) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
-    ap = argparse.ArgumentParser(prog="topo", description="Topology optimisation of metal "
-                                 "brackets for laser powder-bed fusion.", epilog=CAUTION)
+    ap = argparse.ArgumentParser(
+        prog="topo",
+        description="Topology optimisation of metal brackets for laser powder-bed fusion.",
+        epilog=CAUTION,
+    )
     sub = ap.add_subparsers(dest="command", required=True)
 
     def common(p):
         p.add_argument("file", help="problem file (TOML)")
-        p.add_argument("--set", action="append", metavar="KEY=VALUE",
-                       help="override a problem value, e.g. optimization.volume_fraction=0.25")
+        p.add_argument(
+            "--set",
+            action="append",
+            metavar="KEY=VALUE",
+            help="override a problem value, e.g. optimization.volume_fraction=0.25",
+        )
 
     p = sub.add_parser("run", help="optimise a problem and write every output file")
     p.add_argument("file", nargs="?", help="problem file (TOML)")
-    p.add_argument("--set", action="append", metavar="KEY=VALUE",
-                   help="override a problem value, e.g. optimization.volume_fraction=0.25")
-    p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted run from its checkpoint")
-    p.add_argument("--force", action="store_true", help="run even when the memory estimate exceeds free memory")
+    p.add_argument(
+        "--set",
+        action="append",
+        metavar="KEY=VALUE",
+        help="override a problem value, e.g. optimization.volume_fraction=0.25",
+    )
+    p.add_argument(
+        "--resume", metavar="RUN_DIR", help="continue an interrupted run from its checkpoint"
+    )
+    p.add_argument(
+        "--force", action="store_true", help="run even when the memory estimate exceeds free memory"
+    )
     p.add_argument("--out", help="output folder (default outputs/NAME)")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     mesh_options(p)
@@ -180,16 +240,25 @@ def build_parser() -> argparse.ArgumentParser:
     p.set_defaults(func=cmd_analyze)
     p = sub.add_parser("sweep", help="run the cartesian product of values of one or more keys")
     common(p)
-    p.add_argument("--vary", action="append", required=True, metavar="KEY=V1,V2,...",
-                   help="a dotted key and its values, e.g. optimization.volume_fraction=0.2,0.3")
+    p.add_argument(
+        "--vary",
+        action="append",
+        required=True,
+        metavar="KEY=V1,V2,...",
+        help="a dotted key and its values, e.g. optimization.volume_fraction=0.2,0.3",
+    )
     p.add_argument("--jobs", type=int, default=1, help="local worker processes (default 1)")
-    p.add_argument("--scheduler", help="address of a running Dask scheduler (needs dask.distributed)")
+    p.add_argument(
+        "--scheduler", help="address of a running Dask scheduler (needs dask.distributed)"
+    )
     p.add_argument("--out", help="sweep folder (default outputs/NAME-sweep)")
     p.set_defaults(func=cmd_sweep)
     p = sub.add_parser("bench", help="benchmark the standard cases (per-phase times, ratios)")
     p.add_argument("--quick", action="store_true", help="small cases only, for small machines")
     p.add_argument("--case", action="append", help="run only this case (repeatable)")
-    p.add_argument("--out", default="outputs/bench.json", help="JSON results (default outputs/bench.json)")
+    p.add_argument(
+        "--out", default="outputs/bench.json", help="JSON results (default outputs/bench.json)"
+    )
     p.set_defaults(func=cmd_bench)
     p = sub.add_parser("export", help="re-export the mesh and fields of a finished run")
     p.add_argument("run_dir", help="a run folder written by `topo run`")
@@ -200,10 +269,20 @@ def build_parser() -> argparse.ArgumentParser:
 
 def mesh_options(p, format_flag: str = "--mesh-format") -> None:
     p.add_argument("--iso", type=float, default=0.5, help="density of the surface (default 0.5)")
-    p.add_argument("--smooth", type=int, default=0, metavar="N",
-                   help="Taubin smoothing passes on the mesh (default 0)")
-    p.add_argument(format_flag, dest="mesh_format", choices=MESH_FORMATS, default="stl",
-                   help="mesh file format (default stl)")
+    p.add_argument(
+        "--smooth",
+        type=int,
+        default=0,
+        metavar="N",
+        help="Taubin smoothing passes on the mesh (default 0)",
+    )
+    p.add_argument(
+        format_flag,
+        dest="mesh_format",
+        choices=MESH_FORMATS,
+        default="stl",
+        help="mesh file format (default stl)",
+    )
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -218,9 +297,12 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except KeyboardInterrupt:
         out = outputs.folder
-        print("interrupted" + (f"; continue with: topo run --resume {out}" if out else ""), file=sys.stderr)
+        print(
+            "interrupted" + (f"; continue with: topo run --resume {out}" if out else ""),
+            file=sys.stderr,
+        )
         return 130
-    except Exception as exc:  # noqa: BLE001 - the one place that turns crashes into exit 1
+    except Exception as exc:  # the one place that turns crashes into exit 1
         import traceback
 
         out = Path(outputs.folder or "outputs")

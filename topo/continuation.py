@@ -5,6 +5,7 @@ earlier once the design change falls below the tolerance, until `beta_max`. The 
 counts as converged only with β at its maximum (or without projection), when the
 design change is below the tolerance or the objective has settled.
 """
+
 from __future__ import annotations
 
 SETTLED_WINDOW, SETTLED_RTOL = 10, 1e-4
@@ -21,21 +22,26 @@ def objective_settled(history: list[dict], since_beta: int) -> bool:
     return (max(recent) - min(recent)) <= SETTLED_RTOL * abs(recent[-1])
 
 
-def stop_reason(history: list[dict], since_beta: int, change: float, tolerance: float) -> str | None:
+def stop_reason(
+    history: list[dict], since_beta: int, change: float, tolerance: float
+) -> str | None:
     """Why a run at its final β has converged, or None."""
     if change < tolerance:
         return "design change below tolerance"
     if objective_settled(history, since_beta):
-        return (f"objective settled (relative change below {SETTLED_RTOL:g} over "
-                f"{SETTLED_WINDOW} iterations)")
+        return (
+            f"objective settled (relative change below {SETTLED_RTOL:g} over "
+            f"{SETTLED_WINDOW} iterations)"
+        )
     return None
 
 
 class Continuation:
     """Steps β of `projection` (None: no projection, nothing to continue)."""
 
-    def __init__(self, projection, beta_max: float, interval: int, tolerance: float,
-                 beta: float = 1.0):
+    def __init__(
+        self, projection, beta_max: float, interval: int, tolerance: float, beta: float = 1.0
+    ):
         self.projection, self.beta_max = projection, beta_max
         self.interval, self.tolerance = interval, tolerance
         if projection:

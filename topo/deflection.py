@@ -11,6 +11,7 @@ densities follows from the adjoint K λ = l (K symmetric; Bendsøe & Sigmund 200
 With a limit, the design loop constrains g = (δ/δ_lim)² − 1 ≤ 0, which bounds the
 deflection in both senses along d̂.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -52,7 +53,9 @@ def deflections(probe: Probe, displacements: np.ndarray) -> np.ndarray:
     return probe.functional(displacements.shape[0]) @ displacements
 
 
-def deflection_gradient(model, density: np.ndarray, analysis, probe: Probe, case: int) -> tuple[float, np.ndarray]:
+def deflection_gradient(
+    model, density: np.ndarray, analysis, probe: Probe, case: int
+) -> tuple[float, np.ndarray]:
     """δ for one load case and ∂δ/∂ρ (flat densities), by one adjoint solve with the
     matrix of the last analysis."""
     load = probe.functional(model.grid.n_dofs)

@@ -6,12 +6,13 @@ constraints (responses.py); β continuation and the stopping rules are in
 continuation.py, saving and resuming in checkpoint.py, the optimizer steps in
 optimizers.py.
 """
+
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 
@@ -29,6 +30,7 @@ from .transforms import Chain, DensityFilter, HeavisideProjection, OverhangFilte
 @dataclass
 class Result:
     """A finished design: every exporter reads this and nothing else."""
+
     problem: Problem
     model: Model
     density: np.ndarray  # physical ρ, grid shape
@@ -55,9 +57,14 @@ def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProject
     return Chain(steps), projection
 
 
-def optimize(problem: Problem, callback: Callable[[dict], None] | None = None,
-             timer: dict | None = None, checkpoint: str | Path | None = None,
-             resume: bool = False, optimizer: Callable | None = None) -> Result:
+def optimize(
+    problem: Problem,
+    callback: Callable[[dict], None] | None = None,
+    timer: dict | None = None,
+    checkpoint: str | Path | None = None,
+    resume: bool = False,
+    optimizer: Callable | None = None,
+) -> Result:
     """Run the design loop.
 
     callback: receives each history row as it is made.
@@ -73,8 +80,9 @@ def optimize(problem: Problem, callback: Callable[[dict], None] | None = None,
     design, `converged` false and the fault in `stop_reason`.
     """
     with blas_for_solver():
-        return _optimize(problem, callback, Timer(timer), checkpoint, resume,
-                         optimizer or make_optimizer)
+        return _optimize(
+            problem, callback, Timer(timer), checkpoint, resume, optimizer or make_optimizer
+        )
 
 
 def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make) -> Result:
@@ -84,13 +92,18 @@ def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make
     model = Model(problem)
     chain, projection = build_chain(problem, model)
     if not model.active.any():
-        raise ProblemError(problem.source, "passive", "no design elements: passive regions "
-                           "cover the whole domain")
+        raise ProblemError(
+            problem.source, "passive", "no design elements: passive regions cover the whole domain"
+        )
     responses = Responses(problem, model, chain)
     optimizer = make(opt, model.active, responses.n_bounds, len(responses.constraints))
-    saved = Checkpoint(checkpoint, problem, model, {"opt": optimizer, "resp": responses, "sys": model.system})
+    saved = Checkpoint(
+        checkpoint, problem, model, {"opt": optimizer, "resp": responses, "sys": model.system}
+    )
     state = saved.load() if resume else LoopState(_start_design(model, responses.material.start))
-    continuation = Continuation(projection, opt.beta_max, opt.beta_interval, opt.tolerance, state.beta)
+    continuation = Continuation(
+        projection, opt.beta_max, opt.beta_interval, opt.tolerance, state.beta
+    )
     stop, stop_reason = None, "iteration limit"
     try:
         for it in range(state.iteration + 1, opt.max_iterations + 1):
@@ -99,7 +112,9 @@ def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make
             if not (np.isfinite(ev.objective.value) and np.all(np.isfinite(x))):
                 raise FloatingPointError(f"non-finite objective or design at iteration {it}")
             change = float(np.max(np.abs(x - state.x)[model.active]))
-            row = _history_row(it, ev, rho, change, continuation.beta, time.perf_counter() - t0, model)
+            row = _history_row(
+                it, ev, rho, change, continuation.beta, time.perf_counter() - t0, model
+            )
             state.history.append(row)
             stop = continuation.after(state, change)
             state.x, state.iteration = x, it
@@ -121,13 +136,29 @@ def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make
     return result
 
 
-def _result(problem, model: Model, chain: Chain, state: LoopState, converged: bool,
-            stop_reason: str, start: float) -> Result:
+def _result(
+    problem,
+    model: Model,
+    chain: Chain,
+    state: LoopState,
+    converged: bool,
+    stop_reason: str,
+    start: float,
+) -> Result:
     """The last good design with a fresh analysis (stresses included)."""
     rho = chain.forward(state.x)
     shape = model.grid.shape
-    return Result(problem, model, rho.reshape(shape), state.x.reshape(shape), model.analyze(rho),
-                  state.history, converged, time.perf_counter() - start, stop_reason=stop_reason)
+    return Result(
+        problem,
+        model,
+        rho.reshape(shape),
+        state.x.reshape(shape),
+        model.analyze(rho),
+        state.history,
+        converged,
+        time.perf_counter() - start,
+        stop_reason=stop_reason,
+    )
 
 
 def _start_design(model: Model, fraction: float) -> np.ndarray:
@@ -136,8 +167,9 @@ def _start_design(model: Model, fraction: float) -> np.ndarray:
     return x0
 
 
-def _iterate(x, chain: Chain, model: Model, responses: Responses, optimizer, timer: Timer
-             ) -> tuple[np.ndarray, Evaluation, np.ndarray]:
+def _iterate(
+    x, chain: Chain, model: Model, responses: Responses, optimizer, timer: Timer
+) -> tuple[np.ndarray, Evaluation, np.ndarray]:
     """One design iteration: ρ, the responses there and the optimizer's next x."""
     with timer("transforms"):
         rho = chain.forward(x)
@@ -152,12 +184,20 @@ def _iterate(x, chain: Chain, model: Model, responses: Responses, optimizer, tim
         return rho, ev, optimizer.step(x, ev)
 
 
-def _history_row(it: int, ev: Evaluation, rho, change: float, beta, seconds: float,
-                 model: Model) -> dict:
-    return {"iteration": it, "objective": ev.objective.value,
-            "volume_fraction": float(rho[model.active].mean()),
-            "constraint": ev.constraints[0].g, "change": change, "beta": beta, "seconds": seconds,
-            "solver_iterations": model.system.iterations, "solver": model.system.name}
+def _history_row(
+    it: int, ev: Evaluation, rho, change: float, beta, seconds: float, model: Model
+) -> dict:
+    return {
+        "iteration": it,
+        "objective": ev.objective.value,
+        "volume_fraction": float(rho[model.active].mean()),
+        "constraint": ev.constraints[0].g,
+        "change": change,
+        "beta": beta,
+        "seconds": seconds,
+        "solver_iterations": model.system.iterations,
+        "solver": model.system.name,
+    }
 
 
 def analyze(problem: Problem, density: np.ndarray | None = None) -> Result:
@@ -175,8 +215,9 @@ def analyze(problem: Problem, density: np.ndarray | None = None) -> Result:
         if density.shape != shape:
             raise ValueError(f"design has shape {density.shape}, the problem's grid is {shape}")
         rho = np.clip(density.ravel(), 0.0, 1.0)
-    result = Result(problem, model, rho.reshape(shape), rho.reshape(shape), model.analyze(rho),
-                    [], True, 0.0)
+    result = Result(
+        problem, model, rho.reshape(shape), rho.reshape(shape), model.analyze(rho), [], True, 0.0
+    )
     result.runtime_s = time.perf_counter() - start
     result.summary = summarize(result, analysis_only=True)
     return result
@@ -218,9 +259,14 @@ def load_run_problem(run_dir, overrides: list[tuple[str, object]] | None = None)
     if (run / "problem.json").exists():
         raw, source = json.loads((run / "problem.json").read_text()), run / "problem.json"
     elif (run / "checkpoint.npz").exists():
-        raw, source = json.loads(str(np.load(run / "checkpoint.npz")["problem"])), run / "checkpoint.npz"
+        raw, source = (
+            json.loads(str(np.load(run / "checkpoint.npz")["problem"])),
+            run / "checkpoint.npz",
+        )
     else:
-        raise FileNotFoundError(f"{run}: neither problem.json nor checkpoint.npz; is this a topo run folder?")
+        raise FileNotFoundError(
+            f"{run}: neither problem.json nor checkpoint.npz; is this a topo run folder?"
+        )
     return problem_from_dict(raw, dict(overrides or []), source=str(source))
 
 

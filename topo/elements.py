@@ -5,6 +5,7 @@ elements on an undistorted cell (Zienkiewicz & Taylor, The Finite Element Method
 Vol. 1, ch. 6). Strains use engineering shear in Voigt order:
 2D [εx, εy, γxy]; 3D [εx, εy, εz, γyz, γxz, γxy].
 """
+
 from __future__ import annotations
 
 from functools import lru_cache
@@ -82,8 +83,9 @@ def _stiffness(dim: int, h: float, poissons_ratio: float, thickness: float) -> n
     return k
 
 
-def element_stiffness(dim: int, h: float, poissons_ratio: float,
-                      youngs_modulus: float = 1.0, thickness: float = 1.0) -> np.ndarray:
+def element_stiffness(
+    dim: int, h: float, poissons_ratio: float, youngs_modulus: float = 1.0, thickness: float = 1.0
+) -> np.ndarray:
     """Element stiffness matrix (8×8 Q4 with thickness, or 24×24 H8), N/mm."""
     return youngs_modulus * _stiffness(dim, float(h), float(poissons_ratio), float(thickness))
 
@@ -100,6 +102,10 @@ def von_mises(stress: np.ndarray) -> np.ndarray:
         sx, sy, txy = s[..., 0], s[..., 1], s[..., 2]
         return np.sqrt(np.maximum(sx**2 - sx * sy + sy**2 + 3 * txy**2, 0.0))
     sx, sy, sz, tyz, txz, txy = (s[..., i] for i in range(6))
-    return np.sqrt(np.maximum(
-        0.5 * ((sx - sy) ** 2 + (sy - sz) ** 2 + (sz - sx) ** 2)
-        + 3 * (tyz**2 + txz**2 + txy**2), 0.0))
+    return np.sqrt(
+        np.maximum(
+            0.5 * ((sx - sy) ** 2 + (sy - sz) ** 2 + (sz - sx) ** 2)
+            + 3 * (tyz**2 + txz**2 + txy**2),
+            0.0,
+        )
+    )

@@ -4,25 +4,23 @@ Every file is written atomically (files.py), and summary.json goes last, so a fo
 with a summary is a finished run. The writers only write: the figures come from
 report.py and the Result is not changed.
 """
+
 from __future__ import annotations
 
 import csv
 import io
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 
-import matplotlib
+from . import mesh as meshing
+from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
+from .regions import select_nodes
+from .report import design_surface, run_summary
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-
-from . import mesh as meshing  # noqa: E402
-from .files import atomic_write, strict_json, write_figure, write_meshio, write_text  # noqa: E402
-from .regions import select_nodes  # noqa: E402
-from .report import design_surface, run_summary  # noqa: E402
+plt = pyplot()
 
 MESH_FORMATS = ("stl", "obj", "ply")
 
@@ -62,8 +60,15 @@ def _mark_loads_and_supports(ax, result) -> None:
     grid = model.grid
     pts = grid.node_coords
     fixed_nodes = np.unique(model.fixed_dofs // grid.dim)
-    ax.plot(pts[fixed_nodes, 0], pts[fixed_nodes, 1], "^", ms=3, color="tab:blue",
-            label="supports", ls="none")
+    ax.plot(
+        pts[fixed_nodes, 0],
+        pts[fixed_nodes, 1],
+        "^",
+        ms=3,
+        color="tab:blue",
+        label="supports",
+        ls="none",
+    )
     span = max(grid.size)
     colors = plt.rcParams["axes.prop_cycle"].by_key()["color"][1:]
     for i, case in enumerate(problem.load_cases):
@@ -74,8 +79,12 @@ def _mark_loads_and_supports(ax, result) -> None:
             if np.linalg.norm(vec) == 0:
                 continue
             arrow = 0.15 * span * vec / np.linalg.norm(vec)
-            ax.annotate("", xy=centre, xytext=centre - arrow,
-                        arrowprops={"arrowstyle": "->", "color": colors[i % len(colors)], "lw": 2})
+            ax.annotate(
+                "",
+                xy=centre,
+                xytext=centre - arrow,
+                arrowprops={"arrowstyle": "->", "color": colors[i % len(colors)], "lw": 2},
+            )
             if j == 0:
                 ax.plot([], [], color=colors[i % len(colors)], label=f"load: {case.name}")
 
@@ -86,21 +95,41 @@ def write_design_png(result, path: Path) -> None:
     size = grid.size
     if rho.ndim == 2:
         fig, ax = plt.subplots(figsize=(7, 7 * size[1] / size[0] + 0.8))
-        ax.imshow(rho.T, origin="lower", extent=(0, size[0], 0, size[1]), cmap="gray_r",
-                  vmin=0, vmax=1, interpolation="nearest")
+        ax.imshow(
+            rho.T,
+            origin="lower",
+            extent=(0, size[0], 0, size[1]),
+            cmap="gray_r",
+            vmin=0,
+            vmax=1,
+            interpolation="nearest",
+        )
         _mark_loads_and_supports(ax, result)
         ax.set_xlabel("x (mm)")
         ax.set_ylabel("y (mm)")
-        ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=4, fontsize=8, frameon=False)
+        ax.legend(
+            loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=4, fontsize=8, frameon=False
+        )
         ax.set_title(f"{result.problem.name}: density")
     else:
         # Three orthographic views: the mean density along each viewing axis.
-        views = [("top (along z)", 2, 0, 1), ("front (along y)", 1, 0, 2), ("side (along x)", 0, 1, 2)]
+        views = [
+            ("top (along z)", 2, 0, 1),
+            ("front (along y)", 1, 0, 2),
+            ("side (along x)", 0, 1, 2),
+        ]
         fig, axes = plt.subplots(1, 3, figsize=(13, 4.2))
         for ax, (title, along, a, b) in zip(axes, views):
             img = rho.mean(axis=along)
-            ax.imshow(img.T, origin="lower", extent=(0, size[a], 0, size[b]), cmap="gray_r",
-                      vmin=0, vmax=1, interpolation="nearest")
+            ax.imshow(
+                img.T,
+                origin="lower",
+                extent=(0, size[a], 0, size[b]),
+                cmap="gray_r",
+                vmin=0,
+                vmax=1,
+                interpolation="nearest",
+            )
             ax.set_xlabel(f"{'xyz'[a]} (mm)")
             ax.set_ylabel(f"{'xyz'[b]} (mm)")
             ax.set_title(title)
@@ -144,7 +173,9 @@ def write_fields(result, path: Path) -> None:
         point_data[f"displacement_{_safe(case.name)}"] = u
         cell_data[f"von_mises_{_safe(case.name)}"] = [a.von_mises[:, i]]
     cell_data["von_mises_max"] = [a.von_mises.max(axis=1)]
-    m = meshio.Mesh(pts, [(cell_type, grid.element_nodes)], point_data=point_data, cell_data=cell_data)
+    m = meshio.Mesh(
+        pts, [(cell_type, grid.element_nodes)], point_data=point_data, cell_data=cell_data
+    )
     write_meshio(path, m, "vtu")
 
 
@@ -166,8 +197,15 @@ class Exported:
     summary: dict  # what summary.json holds (or would, when it was not asked for)
 
 
-def export(result, out_dir: str | Path, only: list[str] | None = None, iso: float = 0.5,
-           smooth: int = 0, mesh_format: str = "stl", mesh: bool = True) -> Exported:
+def export(
+    result,
+    out_dir: str | Path,
+    only: list[str] | None = None,
+    iso: float = 0.5,
+    smooth: int = 0,
+    mesh_format: str = "stl",
+    mesh: bool = True,
+) -> Exported:
     """Write every output file (or those named in `only`) into `out_dir`, and the
     design mesh (design.stl, .obj or .ply) unless `mesh` is false."""
     out = Path(out_dir)

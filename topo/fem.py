@@ -3,13 +3,14 @@ and the analysis of a design through a linear system (linear.py), which assemble
 K = Σ_e E_e k0 and solves. Modified SIMP (Sigmund 2007, Struct. Multidisc. Optim.
 33:401) gives E(ρ) = E0·(e_min + ρ^p (1 − e_min)).
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
 
 import numpy as np
 
-from .elements import centre_strain_displacement, element_stiffness, elasticity_matrix, von_mises
+from .elements import centre_strain_displacement, elasticity_matrix, element_stiffness, von_mises
 from .grid import Grid
 from .problem import Problem, ProblemError
 from .regions import outside_domain, select_elements, select_nodes
@@ -22,6 +23,7 @@ AXIS_INDEX = {"x": 0, "y": 1, "z": 2}
 @dataclass(frozen=True)
 class Selection:
     """What one region of the problem selected, for reports."""
+
     key: str  # key path in the problem file, e.g. support[0]
     role: str  # support | force | solid | void
     name: str
@@ -32,6 +34,7 @@ class Selection:
 @dataclass
 class Analysis:
     """Displacements and derived quantities of one design, every load case."""
+
     displacements: np.ndarray  # (n_dofs, n_cases) mm
     compliances: np.ndarray  # (n_cases,) N·mm, fᵀu
     energies: np.ndarray  # (n_elements, n_cases) u_eᵀ k0 u_e with the solid modulus
@@ -50,27 +53,36 @@ class Model:
         self.grid = grid = Grid(dom.shape, dom.element_size)
         self.dim = dim = grid.dim
         thickness = dom.thickness if dim == 2 else 1.0
-        self.ke = element_stiffness(dim, dom.element_size, mat.poissons_ratio,
-                                    mat.youngs_modulus, thickness)
+        self.ke = element_stiffness(
+            dim, dom.element_size, mat.poissons_ratio, mat.youngs_modulus, thickness
+        )
         self.selections: list[Selection] = []
         self._fixed = self._supports()
         self.solid, self.void = self._passives()
         self.loads = self._loads()
         self._check_restraint()
         self.free = np.flatnonzero(~self._fixed)
-        factory = system_factory or (lambda g, ke, fixed: make_system(problem.optimization.solver, g, ke, fixed))
+        factory = system_factory or (
+            lambda g, ke, fixed: make_system(problem.optimization.solver, g, ke, fixed)
+        )
         self.system = factory(grid, self.ke, self._fixed)
 
     # ------------------------------------------------------------------ problem → sets
     def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
         src = self.problem.source
         if outside_domain(region, self.grid):
-            raise ProblemError(src, f"{key}.region", f"the region lies outside the domain "
-                               f"(0..{list(self.grid.size)} mm)")
+            raise ProblemError(
+                src,
+                f"{key}.region",
+                f"the region lies outside the domain (0..{list(self.grid.size)} mm)",
+            )
         nodes = select_nodes(region, self.grid)
         if len(nodes) == 0:
-            raise ProblemError(src, f"{key}.region", "the region selects no nodes; "
-                               f"nodes lie every {self.grid.h} mm")
+            raise ProblemError(
+                src,
+                f"{key}.region",
+                f"the region selects no nodes; nodes lie every {self.grid.h} mm",
+            )
         self.selections.append(Selection(key, role, name, len(nodes), 0))
         return nodes
 
@@ -87,22 +99,32 @@ class Model:
 
         free = free_motions(self.grid.node_coords, np.flatnonzero(self._fixed))
         if free:
-            raise ProblemError(self.problem.source, "support", "the supports leave the part free to "
-                               f"move: {'; '.join(free)}. Fix more directions or add a support")
+            raise ProblemError(
+                self.problem.source,
+                "support",
+                "the supports leave the part free to "
+                f"move: {'; '.join(free)}. Fix more directions or add a support",
+            )
 
     def _loads(self) -> np.ndarray:
         f = np.zeros((self.grid.n_dofs, len(self.problem.load_cases)))
         # nodes every one of whose elements is in a void region carry no material
         void_nodes = np.ones(self.grid.n_nodes, dtype=bool)
-        np.logical_and.at(void_nodes, self.grid.element_nodes.ravel(),
-                          np.repeat(self.void, self.grid.element_nodes.shape[1]))
+        np.logical_and.at(
+            void_nodes,
+            self.grid.element_nodes.ravel(),
+            np.repeat(self.void, self.grid.element_nodes.shape[1]),
+        )
         for c, case in enumerate(self.problem.load_cases):
             for j, force in enumerate(case.forces):
                 key = f"load_case[{c}].force[{j}]"
                 nodes = self._nodes(force.region, key, "force", case.name)
                 if void_nodes[nodes].all():
-                    raise ProblemError(self.problem.source, f"{key}.region",
-                                       "the load lies inside a void (keep-out) region: no material carries it")
+                    raise ProblemError(
+                        self.problem.source,
+                        f"{key}.region",
+                        "the load lies inside a void (keep-out) region: no material carries it",
+                    )
                 for axis, total in enumerate(force.total):
                     np.add.at(f[:, c], self.dim * nodes + axis, total / len(nodes))
         return f
@@ -118,14 +140,19 @@ class Model:
                 raise ProblemError(src, f"{key}.region", "the region lies outside the domain")
             elems = select_elements(p.region, self.grid)
             if len(elems) == 0:
-                raise ProblemError(src, f"{key}.region", "the region selects no elements "
-                                   "(elements are selected by their centre)")
+                raise ProblemError(
+                    src,
+                    f"{key}.region",
+                    "the region selects no elements (elements are selected by their centre)",
+                )
             masks[p.kind][elems] = True
             self.passive_elements.append(elems)
             self.selections.append(Selection(key, p.kind, p.name, 0, len(elems)))
         both = masks["solid"] & masks["void"]
         if both.any():
-            raise ProblemError(src, "passive", f"solid and void regions overlap in {both.sum()} elements")
+            raise ProblemError(
+                src, "passive", f"solid and void regions overlap in {both.sum()} elements"
+            )
         return masks["solid"], masks["void"]
 
     @property
@@ -148,8 +175,9 @@ class Model:
         p = opt.penalty
         return p * density ** (p - 1) * (1.0 - opt.min_stiffness)
 
-    def analyze(self, density: np.ndarray, stresses: bool = True,
-                timer: Timer | None = None) -> Analysis:
+    def analyze(
+        self, density: np.ndarray, stresses: bool = True, timer: Timer | None = None
+    ) -> Analysis:
         """Solve every load case for the element densities (flat, C order).
         `stresses=False` skips the von Mises field (not needed inside the loop);
         `timer` accumulates seconds under 'assembly', 'solve' and 'sensitivities'."""

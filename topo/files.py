@@ -4,6 +4,7 @@ Every writer goes through a temporary name in the target folder and renames it i
 place, so a reader never sees a half-written file and an interrupted run leaves
 none behind.
 """
+
 from __future__ import annotations
 
 import io
@@ -63,7 +64,7 @@ def write_meshio(path: Path, mesh, fmt: str, **options) -> None:
 
 def figure_bytes(fig) -> bytes:
     """A matplotlib figure as PNG bytes; the figure is closed."""
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=120, bbox_inches="tight")
@@ -73,3 +74,13 @@ def figure_bytes(fig) -> bytes:
 
 def write_figure(path: Path, fig) -> None:
     atomic_write(path, figure_bytes(fig))
+
+
+def pyplot():
+    """matplotlib.pyplot on the non-interactive Agg back end (no display is needed)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt

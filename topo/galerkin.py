@@ -24,6 +24,7 @@ row of P, which lives on one coarse element) joins that coarse element's matrix.
 The operators equal the sparse triple products to round-off
 (tests/test_multigrid.py).
 """
+
 from __future__ import annotations
 
 import itertools
@@ -37,9 +38,9 @@ from .stencil import StencilAssembly
 # Weights of a fine element's two corners (rows) on its coarse element's two
 # corners (columns), along one axis, by position code: 0 first half, 1 second half
 # of a coarse element of two, 2 the single element of a short coarse element.
-_AXIS_WEIGHTS = np.array([[[1.0, 0.0], [0.5, 0.5]],
-                          [[0.5, 0.5], [0.0, 1.0]],
-                          [[1.0, 0.0], [0.0, 1.0]]])
+_AXIS_WEIGHTS = np.array(
+    [[[1.0, 0.0], [0.5, 0.5]], [[0.5, 0.5], [0.0, 1.0]], [[1.0, 0.0], [0.0, 1.0]]]
+)
 
 
 def _axis_codes(n: int) -> np.ndarray:
@@ -88,7 +89,9 @@ class ElementGalerkin:
             step = _Coarsening(shape)
             self._steps.append(step)
             coarse = Grid(step.coarse_shape, 1.0)
-            self._assemblies.append(StencilAssembly(coarse, None, np.zeros(coarse.n_dofs, dtype=bool)))
+            self._assemblies.append(
+                StencilAssembly(coarse, None, np.zeros(coarse.n_dofs, dtype=bool))
+            )
             shape = step.coarse_shape
         if levels:
             self._first_level_supports(grid, fixed)
@@ -105,7 +108,7 @@ class ElementGalerkin:
         node = np.stack(np.unravel_index(fixed_dofs // dim, grid.node_shape), axis=1)
         element = np.minimum(node // 2, coarse_shape - 1)
         local = node - 2 * element  # 0, 1 or 2 along each axis
-        short = (2 * element + 1 == np.array(grid.shape))  # the coarse element spans one fine element
+        short = 2 * element + 1 == np.array(grid.shape)  # the coarse element spans one fine element
         corners = grid.corners
         w = np.ones((len(fixed_dofs), len(corners)))
         for ax in range(dim):
@@ -119,9 +122,10 @@ class ElementGalerkin:
         fixed_part = p_rows[:, :, None] * p_rows[:, None, :]
         fixed_coarse = np.ravel_multi_index(tuple(element.T), step.coarse_shape)
         # one list of coarse elements with extra terms: touched ones and supports
-        self._extra_coarse, slots = np.unique(np.concatenate([step.parent[self._touched], fixed_coarse]),
-                                              return_inverse=True)
-        self._touched_slot, fixed_slot = slots[:len(self._touched)], slots[len(self._touched):]
+        self._extra_coarse, slots = np.unique(
+            np.concatenate([step.parent[self._touched], fixed_coarse]), return_inverse=True
+        )
+        self._touched_slot, fixed_slot = slots[: len(self._touched)], slots[len(self._touched) :]
         self._fixed_sum = np.zeros((len(self._extra_coarse), nde * nde))
         np.add.at(self._fixed_sum, fixed_slot, fixed_part.reshape(len(fixed_dofs), -1))
 

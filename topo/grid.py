@@ -4,6 +4,7 @@ Element (i, j[, k]) spans x ∈ [i·h, (i+1)·h] and so on. Elements and nodes a
 numbered in C order of their index tuples, so `density.reshape(shape)` is indexed
 [i, j, k]. Node n carries the degrees of freedom dim·n + c for component c.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -14,8 +15,9 @@ import numpy as np
 # Local node order of an element, as offsets from its lowest corner. Q4 runs
 # counter-clockwise in x-y; H8 is the bottom face (z=0) then the top face.
 Q4_CORNERS = np.array([(0, 0), (1, 0), (1, 1), (0, 1)])
-H8_CORNERS = np.array([(0, 0, 0), (1, 0, 0), (1, 1, 0), (0, 1, 0),
-                       (0, 0, 1), (1, 0, 1), (1, 1, 1), (0, 1, 1)])
+H8_CORNERS = np.array(
+    [(0, 0, 0), (1, 0, 0), (1, 1, 0), (0, 1, 0), (0, 0, 1), (1, 0, 1), (1, 1, 1), (0, 1, 1)]
+)
 
 
 @dataclass(frozen=True)
@@ -51,8 +53,10 @@ class Grid:
     def element_nodes(self) -> np.ndarray:
         """(n_elements, 4 or 8) node numbers of every element, local order above."""
         idx = np.indices(self.shape).reshape(self.dim, -1)  # (dim, ne), C order
-        cols = [np.ravel_multi_index(tuple(idx[a] + c[a] for a in range(self.dim)),
-                                     self.node_shape) for c in self.corners]
+        cols = [
+            np.ravel_multi_index(tuple(idx[a] + c[a] for a in range(self.dim)), self.node_shape)
+            for c in self.corners
+        ]
         return np.stack(cols, axis=1)
 
     @cached_property

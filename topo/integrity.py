@@ -5,6 +5,7 @@ Both work on the 0/1 element field of the printed part with face connectivity
 not counted as joined: the finite-element model would pass load through that
 single node or edge, but the printed part has no section there.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -29,8 +30,13 @@ def _elements_at_nodes(grid, nodes: np.ndarray) -> np.ndarray:
     return mark[grid.element_nodes].any(axis=1)
 
 
-def load_path(printed: np.ndarray, grid, supports: list[np.ndarray],
-              loads: list[tuple[str, np.ndarray]], element_volume: float) -> LoadPath:
+def load_path(
+    printed: np.ndarray,
+    grid,
+    supports: list[np.ndarray],
+    loads: list[tuple[str, np.ndarray]],
+    element_volume: float,
+) -> LoadPath:
     """printed: 0/1 field (grid shape); supports: node sets of the supports; loads:
     (name, node set) of every load region."""
     solid = np.asarray(printed) > 0.5
@@ -44,8 +50,9 @@ def load_path(printed: np.ndarray, grid, supports: list[np.ndarray],
     cut = [name for name, nodes in loads if not (reached(nodes) & supported)]
     loose = [k for k in range(1, n + 1) if k not in supported]
     sizes = ndimage.sum_labels(np.ones_like(flat), flat, loose) if loose else np.zeros(0)
-    return LoadPath(not cut and not loose, cut, int(n), len(loose),
-                    float(np.sum(sizes) * element_volume))
+    return LoadPath(
+        not cut and not loose, cut, int(n), len(loose), float(np.sum(sizes) * element_volume)
+    )
 
 
 @dataclass
@@ -76,7 +83,12 @@ def enclosed_cavities(printed: np.ndarray, h: float, element_volume: float) -> l
         if k in open_labels or where is None:
             continue
         cells = np.argwhere(labels == k)
-        out.append(Cavity(float(len(cells) * element_volume),
-                          [float(v) for v in (cells.mean(axis=0) + 0.5) * h],
-                          [float(s.start * h) for s in where], [float(s.stop * h) for s in where]))
+        out.append(
+            Cavity(
+                float(len(cells) * element_volume),
+                [float(v) for v in (cells.mean(axis=0) + 0.5) * h],
+                [float(s.start * h) for s in where],
+                [float(s.stop * h) for s in where],
+            )
+        )
     return out

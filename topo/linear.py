@@ -7,6 +7,7 @@ sides, the load cases first and adjoint loads after, and returns full-size
 solutions that are zero on the fixed dofs. Implementations: solvers.DirectSystem
 (sparse Cholesky) and multigrid.MultigridCG; solvers.make_system picks one.
 """
+
 from __future__ import annotations
 
 from abc import ABC, abstractmethod

@@ -6,6 +6,7 @@ strengths of printed alloys depend strongly on build orientation and heat treatm
 the figures are the usual specification minima or typical values, as marked.
 Units: MPa for moduli and strengths, kg/m³ for density.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass

@@ -6,6 +6,7 @@ closes. In 3D the samples sit at element centres and the iso-level 0.5 between a
 solid and a void element falls on their shared face, so a box of solid elements
 gives exactly its box. A 2D design is extruded through its thickness.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -61,7 +62,7 @@ class TriMesh:
         _, labels = connected_components(graph, directed=False)
         return labels[f[:, 0]]
 
-    def subset(self, keep_faces: np.ndarray) -> "TriMesh":
+    def subset(self, keep_faces: np.ndarray) -> TriMesh:
         faces = self.faces[keep_faces]
         used, inverse = np.unique(faces, return_inverse=True)
         return TriMesh(self.vertices[used], inverse.reshape(-1, 3))
@@ -80,8 +81,9 @@ def _march(field: np.ndarray, iso: float, spacing: tuple[float, ...]) -> TriMesh
     return TriMesh(verts - 0.5 * np.array(spacing), faces[:, ::-1].astype(np.int64))
 
 
-def isosurface(density: np.ndarray, h: float, iso: float = 0.5,
-               thickness: float | None = None, refine: int = 1) -> TriMesh:
+def isosurface(
+    density: np.ndarray, h: float, iso: float = 0.5, thickness: float | None = None, refine: int = 1
+) -> TriMesh:
     """Closed surface ρ = iso of an element field (grid shape), coordinates in mm.
 
     `refine` repeats each element into refine^dim samples first. Marching cubes cuts
@@ -111,7 +113,9 @@ def _extrude(rho: np.ndarray, h: float, iso: float, thickness: float) -> TriMesh
     layers = max(1, int(round(thickness / h)))
     dz = thickness / layers
     below = np.minimum(rho, 2 * iso - rho) - 1e-9
-    field = np.concatenate([below[..., None]] + [rho[..., None]] * layers + [below[..., None]], axis=2)
+    field = np.concatenate(
+        [below[..., None]] + [rho[..., None]] * layers + [below[..., None]], axis=2
+    )
     field = np.pad(field, ((1, 1), (1, 1), (0, 0)), constant_values=min(0.0, field.min()))
     return _march(field, iso, (h, h, dz))
 
@@ -132,8 +136,13 @@ def remove_debris(mesh: TriMesh, min_fraction: float = 0.01) -> tuple[TriMesh, i
     return mesh.subset(np.isin(labels, keep_labels)), int(dropped)
 
 
-def taubin_smooth(mesh: TriMesh, passes: int, lam: float = 0.5, mu: float = -0.53,
-                  pinned: np.ndarray | None = None) -> TriMesh:
+def taubin_smooth(
+    mesh: TriMesh,
+    passes: int,
+    lam: float = 0.5,
+    mu: float = -0.53,
+    pinned: np.ndarray | None = None,
+) -> TriMesh:
     """Taubin λ|μ smoothing (Taubin 1995, SIGGRAPH "A signal processing approach to
     fair surface design"), uniform umbrella weights: each pass a shrinking step λ
     then an inflating step μ < −λ, which leaves the volume nearly unchanged.
@@ -168,8 +177,9 @@ def boundary_pins(mesh: TriMesh, size: tuple[float, ...], tol: float = 1e-6) -> 
     return (np.abs(v) < tol) | (np.abs(v - upper) < tol)
 
 
-def downfacing_area(mesh: TriMesh, direction: str, plate: float, limit_deg: float = 45.0,
-                    tol: float = 1e-6) -> float:
+def downfacing_area(
+    mesh: TriMesh, direction: str, plate: float, limit_deg: float = 45.0, tol: float = 1e-6
+) -> float:
     """Area (mm²) of surface facing down more steeply than the overhang limit when
     grown along `direction`, not counting faces lying on the build plate."""
     normals, areas = mesh.face_normals()

@@ -9,6 +9,7 @@ on the coarsest grid, and one V-cycle as the preconditioner of conjugate
 gradients, warm-started from the last design's displacements. The constants below
 were chosen by measurement on the 2-core development machine (DEVELOPERS.md).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -74,8 +75,12 @@ class Hierarchy:
     """Grid levels over the full dof space of a grid of `shape` elements (supports
     live in the matrix as identity rows); operators refreshed per design."""
 
-    def __init__(self, shape: tuple[int, ...], coarse_dofs: int = COARSE_DOFS,
-                 smoothing: int = SMOOTHING_SWEEPS):
+    def __init__(
+        self,
+        shape: tuple[int, ...],
+        coarse_dofs: int = COARSE_DOFS,
+        smoothing: int = SMOOTHING_SWEEPS,
+    ):
         self.smoothing = smoothing
         self.transfers: list[sp.csr_matrix] = []
         level_shape = tuple(shape)
@@ -117,16 +122,22 @@ class Hierarchy:
         smoothed = self.products[:-1]
         inv_diag = [1.0 / op.diagonal() for op in self.operators[:-1]]
         warm = len(self.power_vectors) == len(smoothed)
-        estimates = [_lambda_max(op, d, self.power_vectors[i] if warm else None)
-                     for i, (op, d) in enumerate(zip(smoothed, inv_diag))]
-        self.smoother_weights = [(4.0 / (3.0 * lam)) * d[:, None] for (lam, _), d in zip(estimates, inv_diag)]
+        estimates = [
+            _lambda_max(op, d, self.power_vectors[i] if warm else None)
+            for i, (op, d) in enumerate(zip(smoothed, inv_diag))
+        ]
+        self.smoother_weights = [
+            (4.0 / (3.0 * lam)) * d[:, None] for (lam, _), d in zip(estimates, inv_diag)
+        ]
         self.power_vectors = [v for _, v in estimates]
         # Sparse products drop entries that come out zero, so their pattern can
         # change from one design to the next: a new symbolic analysis only then.
         lower = sp.tril(self.operators[-1]).tocsc()
         lower.sum_duplicates()  # the stencil layout repeats columns at the grid edge
         pattern = (lower.indptr, lower.indices)
-        if self.coarse is None or not all(np.array_equal(a, b) for a, b in zip(pattern, self._coarse_pattern)):
+        if self.coarse is None or not all(
+            np.array_equal(a, b) for a, b in zip(pattern, self._coarse_pattern)
+        ):
             self.coarse = SparseCholesky()
             self._coarse_pattern = (pattern[0].copy(), pattern[1].copy())
         self.coarse.factorize(lower)
@@ -147,8 +158,9 @@ class Hierarchy:
         return z
 
 
-def _lambda_max(a, inv_diag: np.ndarray, start: np.ndarray | None = None,
-                cold: int = 12, warm: int = 6) -> tuple[float, np.ndarray]:
+def _lambda_max(
+    a, inv_diag: np.ndarray, start: np.ndarray | None = None, cold: int = 12, warm: int = 6
+) -> tuple[float, np.ndarray]:
     """Largest eigenvalue of D⁻¹A by power iteration, raised 5 % as the iteration
     approaches from below, and the last iterate (normalised). Without `start` it
     runs `cold` steps from a fixed random vector (so runs are repeatable), with it
@@ -163,8 +175,14 @@ def _lambda_max(a, inv_diag: np.ndarray, start: np.ndarray | None = None,
     return 1.05 * lam, v
 
 
-def pcg(a, b: np.ndarray, precondition, x0: np.ndarray | None = None,
-        rtol: float = 1e-6, max_iter: int = 500) -> tuple[np.ndarray, int]:
+def pcg(
+    a,
+    b: np.ndarray,
+    precondition,
+    x0: np.ndarray | None = None,
+    rtol: float = 1e-6,
+    max_iter: int = 500,
+) -> tuple[np.ndarray, int]:
     """Preconditioned conjugate gradients on every column of b at once (each column
     with its own step lengths, a converged column frozen); stops when every
     ‖r‖/‖b‖ < rtol. Returns the solution and the iterations taken."""
@@ -204,8 +222,14 @@ class MultigridCG(LinearSystem):
     The state is that warm start and the smoothers' power-iteration vectors, so a
     run resumed from a checkpoint repeats the uninterrupted one exactly."""
 
-    def __init__(self, grid, ke: np.ndarray, fixed: np.ndarray, rtol: float = RTOL,
-                 coarse_dofs: int = COARSE_DOFS):
+    def __init__(
+        self,
+        grid,
+        ke: np.ndarray,
+        fixed: np.ndarray,
+        rtol: float = RTOL,
+        coarse_dofs: int = COARSE_DOFS,
+    ):
         self._fixed = fixed
         self._assembly = StencilAssembly(grid, ke, fixed)
         self.hierarchy = Hierarchy(grid.shape, coarse_dofs)
@@ -250,4 +274,6 @@ class MultigridCG(LinearSystem):
         check_state_keys(state, ("warm",) + tuple(f"power_{i}" for i in range(smoothed)))
         self._warm = np.array(state["warm"], dtype=float) if "warm" in state else None
         power = [state.get(f"power_{i}") for i in range(smoothed)]
-        self.hierarchy.power_vectors = [] if any(v is None for v in power) else [np.array(v) for v in power]
+        self.hierarchy.power_vectors = (
+            [] if any(v is None for v in power) else [np.array(v) for v in power]
+        )

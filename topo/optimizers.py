@@ -22,9 +22,10 @@ with respect to the full design vector x), and `state()` / `restore()` for
 checkpoints. `make_optimizer` builds the one the problem names: OC, MMA, GCMMA, or
 the bound formulation of the worst case on MMA.
 """
+
 from __future__ import annotations
 
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 
@@ -32,8 +33,9 @@ SHRINK, GROW, MIN_FRACTION = 0.7, 1.2, 0.05
 
 
 class OptimalityCriteria:
-    def __init__(self, active: np.ndarray, move: float = 0.2, damping: float = 0.5,
-                 adaptive: bool = True):
+    def __init__(
+        self, active: np.ndarray, move: float = 0.2, damping: float = 0.5, adaptive: bool = True
+    ):
         self.active = active
         self.move = move
         self.damping = damping
@@ -54,12 +56,19 @@ class OptimalityCriteria:
         if len(ev.constraints) != 1:
             raise ValueError("the optimality-criteria update handles the material budget only")
         (budget,) = ev.constraints
-        return self.update(x, ev.objective.gradient, budget.value, budget.gradient, budget.limit,
-                           budget.exact)
+        return self.update(
+            x, ev.objective.gradient, budget.value, budget.gradient, budget.limit, budget.exact
+        )
 
-    def update(self, x: np.ndarray, dc: np.ndarray, volume: float, dv: np.ndarray,
-               target: float, exact_volume: Callable[[np.ndarray], float] | None = None
-               ) -> np.ndarray:
+    def update(
+        self,
+        x: np.ndarray,
+        dc: np.ndarray,
+        volume: float,
+        dv: np.ndarray,
+        target: float,
+        exact_volume: Callable[[np.ndarray], float] | None = None,
+    ) -> np.ndarray:
         """One OC step. x, dc, dv are full vectors; only active entries change.
 
         volume: the current constraint value; exact_volume(x_full) → volume of a
@@ -82,17 +91,20 @@ class OptimalityCriteria:
             out[act] = xn
             return out
 
-        linear = lambda lam: volume + float(dva @ (step(lam) - xa)) - target  # noqa: E731
+        linear = lambda lam: volume + float(dva @ (step(lam) - xa)) - target
         lam = _bisect(linear, 1e-12, 1e12, rtol=1e-12)
         if exact_volume is not None:
-            exact = lambda l: exact_volume(full(step(l))) - target  # noqa: E731
+            exact = lambda lam_: exact_volume(full(step(lam_))) - target
             lam = _bracketed_root(exact, lam)
         xn = step(lam)
         if self.adaptive:
             delta = xn - xa
             flip = delta * self.last_step < 0
-            self.limits = np.where(flip, np.maximum(self.limits * SHRINK, MIN_FRACTION * self.move),
-                                   np.minimum(self.limits * GROW, self.move))
+            self.limits = np.where(
+                flip,
+                np.maximum(self.limits * SHRINK, MIN_FRACTION * self.move),
+                np.minimum(self.limits * GROW, self.move),
+            )
             self.last_step = delta
         return full(xn)
 
@@ -108,8 +120,9 @@ def _bisect(f: Callable[[float], float], lo: float, hi: float, rtol: float) -> f
     return np.sqrt(lo * hi)
 
 
-def _bracketed_root(f: Callable[[float], float], guess: float, atol: float = 1e-7,
-                    max_evals: int = 60) -> float:
+def _bracketed_root(
+    f: Callable[[float], float], guess: float, atol: float = 1e-7, max_evals: int = 60
+) -> float:
     """Root of a decreasing f near `guess`: bracket, then Illinois regula falsi in log λ."""
     a, b = guess / 1.5, guess * 1.5
     fa, fb = f(a), f(b)
@@ -161,9 +174,19 @@ class MMA:
     evaluation of the functions per inner iteration (`evaluate`).
     """
 
-    def __init__(self, n: int, m: int, xmin: np.ndarray, xmax: np.ndarray, move: float = 0.2,
-                 asy_init: float = 0.5, asy_incr: float = 1.2, asy_decr: float = 0.7,
-                 globally_convergent: bool = False, max_inner: int = 15):
+    def __init__(
+        self,
+        n: int,
+        m: int,
+        xmin: np.ndarray,
+        xmax: np.ndarray,
+        move: float = 0.2,
+        asy_init: float = 0.5,
+        asy_incr: float = 1.2,
+        asy_decr: float = 0.7,
+        globally_convergent: bool = False,
+        max_inner: int = 15,
+    ):
         self.n, self.m = n, m
         self.xmin, self.xmax = np.asarray(xmin, float), np.asarray(xmax, float)
         self.move, self.asy_init, self.asy_incr, self.asy_decr = move, asy_init, asy_incr, asy_decr
@@ -217,7 +240,9 @@ class MMA:
         """Solve the approximate subproblem; returns x̂ and the approximations' values
         there (objective first)."""
         span = self.xmax - self.xmin
-        alpha = np.maximum.reduce([self.low + 0.1 * (x - self.low), x - self.move * span, self.xmin])
+        alpha = np.maximum.reduce(
+            [self.low + 0.1 * (x - self.low), x - self.move * span, self.xmin]
+        )
         beta = np.minimum.reduce([self.upp - 0.1 * (self.upp - x), x + self.move * span, self.xmax])
         ux, xl = self.upp - x, x - self.low
         p0, q0 = self._approximation(x, df0, rho[0])
@@ -236,24 +261,41 @@ class MMA:
         def neg_dual(lam):
             xs, pl, ql = primal(lam)
             y = np.maximum(0.0, (lam - self.c) / self.d)
-            w = (pl / (self.upp - xs)).sum() + (ql / (xs - self.low)).sum() \
-                + (self.c * y + 0.5 * self.d * y**2 - lam * y).sum() - lam @ b
+            w = (
+                (pl / (self.upp - xs)).sum()
+                + (ql / (xs - self.low)).sum()
+                + (self.c * y + 0.5 * self.d * y**2 - lam * y).sum()
+                - lam @ b
+            )
             g_i = (P / (self.upp - xs)).sum(axis=1) + (Q / (xs - self.low)).sum(axis=1)
             grad = g_i - y - b
             return -w, -grad
 
         from scipy.optimize import minimize
 
-        res = minimize(neg_dual, self.lam, jac=True, method="L-BFGS-B",
-                       bounds=[(0.0, None)] * self.m, options={"maxiter": 500, "gtol": 1e-10})
+        res = minimize(
+            neg_dual,
+            self.lam,
+            jac=True,
+            method="L-BFGS-B",
+            bounds=[(0.0, None)] * self.m,
+            options={"maxiter": 500, "gtol": 1e-10},
+        )
         self.lam = np.maximum(res.x, 0.0)
         xs = primal(self.lam)[0]
         approx0 = (p0 / (self.upp - xs)).sum() + (q0 / (xs - self.low)).sum() + r0
         approx = (P / (self.upp - xs)).sum(axis=1) + (Q / (xs - self.low)).sum(axis=1) - b
         return xs, np.concatenate([[approx0], approx])
 
-    def update(self, x: np.ndarray, df0: np.ndarray, f: np.ndarray, df: np.ndarray,
-               f0: float = 0.0, evaluate=None) -> np.ndarray:
+    def update(
+        self,
+        x: np.ndarray,
+        df0: np.ndarray,
+        f: np.ndarray,
+        df: np.ndarray,
+        f0: float = 0.0,
+        evaluate=None,
+    ) -> np.ndarray:
         """x (n,), df0 (n,), constraint values f (m,), gradients df (m, n) → new x.
         GCMMA also needs the objective value f0 and evaluate(x̂) → (f0, f)."""
         self.iteration += 1
@@ -274,13 +316,21 @@ class MMA:
                 true0, true = evaluate(x_new)
                 values = np.concatenate([[true0], np.asarray(true, float)])
                 slack = values - approx
-                if np.all(slack <= 1e-9 * np.maximum(1.0, np.abs(values))) or inner == self.max_inner:
+                if (
+                    np.all(slack <= 1e-9 * np.maximum(1.0, np.abs(values)))
+                    or inner == self.max_inner
+                ):
                     break
                 self.inner_iterations += 1
                 # d(x̂) = Σ (u − l)(x̂ − x)² / ((u − x̂)(x̂ − l)(xmax − xmin))
-                dist = ((self.upp - self.low) * (x_new - x) ** 2 /
-                        ((self.upp - x_new) * (x_new - self.low) * np.maximum(span, 1e-12))).sum()
-                grow = np.where(slack > 0, np.minimum(1.1 * (rho + slack / max(dist, 1e-12)), 10 * rho), rho)
+                dist = (
+                    (self.upp - self.low)
+                    * (x_new - x) ** 2
+                    / ((self.upp - x_new) * (x_new - self.low) * np.maximum(span, 1e-12))
+                ).sum()
+                grow = np.where(
+                    slack > 0, np.minimum(1.1 * (rho + slack / max(dist, 1e-12)), 10 * rho), rho
+                )
                 rho = grow
         self.xold2, self.xold1 = self.xold1, x.copy()
         if self.xold2 is None:
@@ -298,8 +348,14 @@ def _constraint_arrays(constraints, active: np.ndarray) -> tuple[np.ndarray, np.
 class _MMAOnDesign:
     """MMA on the design elements, with the objective scaled by its first value."""
 
-    def __init__(self, active: np.ndarray, n_extra: int, m: int, move: float,
-                 globally_convergent: bool = False):
+    def __init__(
+        self,
+        active: np.ndarray,
+        n_extra: int,
+        m: int,
+        move: float,
+        globally_convergent: bool = False,
+    ):
         n = int(active.sum()) + n_extra
         lo, hi = np.zeros(n), np.ones(n)
         if n_extra:
@@ -323,8 +379,9 @@ class MMAStep(_MMAOnDesign):
     """min f/f₁ s.t. g_i ≤ 0 with f₁ = |∂f/∂x · x| at the first iteration; with
     `globally_convergent`, GCMMA, whose inner iterations call `ev.probe`."""
 
-    def __init__(self, active: np.ndarray, n_constraints: int, move: float,
-                 globally_convergent: bool = False):
+    def __init__(
+        self, active: np.ndarray, n_constraints: int, move: float, globally_convergent: bool = False
+    ):
         super().__init__(active, 0, n_constraints, move, globally_convergent)
 
     def step(self, x: np.ndarray, ev) -> np.ndarray:
@@ -334,14 +391,17 @@ class MMAStep(_MMAOnDesign):
         g, dg = _constraint_arrays(ev.constraints, act)
         probe = None
         if self.mma.globally_convergent:
+
             def probe(xa: np.ndarray) -> tuple[float, np.ndarray]:
                 full = x.copy()
                 full[act] = xa
                 value, values = ev.probe(full)
                 return value / self.scale, values
+
         out = x.copy()
-        out[act] = self.mma.update(x[act], objective.gradient[act] / self.scale, g, dg,
-                                   objective.value / self.scale, probe)
+        out[act] = self.mma.update(
+            x[act], objective.gradient[act] / self.scale, g, dg, objective.value / self.scale, probe
+        )
         return out
 
 
@@ -363,8 +423,10 @@ class BoundFormulation(_MMAOnDesign):
         df = np.zeros((len(c) + len(g), n + 1))
         for i, b in enumerate(ev.bounds):
             df[i, :n], df[i, -1] = b.gradient[act] / self.scale, -1.0
-        df[len(c):, :n] = dg
-        z = self.mma.update(np.append(x[act], self.t), df0, np.concatenate([c / self.scale - self.t, g]), df)
+        df[len(c) :, :n] = dg
+        z = self.mma.update(
+            np.append(x[act], self.t), df0, np.concatenate([c / self.scale - self.t, g]), df
+        )
         self.t = float(z[-1])
         out = x.copy()
         out[act] = z[:n]
@@ -378,6 +440,10 @@ def make_optimizer(settings, active: np.ndarray, n_bounds: int = 0, n_constraint
     if n_bounds:
         return BoundFormulation(active, n_bounds, n_constraints, settings.move_limit)
     if settings.optimizer in ("mma", "gcmma"):
-        return MMAStep(active, n_constraints, settings.move_limit,
-                       globally_convergent=settings.optimizer == "gcmma")
+        return MMAStep(
+            active,
+            n_constraints,
+            settings.move_limit,
+            globally_convergent=settings.optimizer == "gcmma",
+        )
     return OptimalityCriteria(active, settings.move_limit)

@@ -8,6 +8,7 @@ powder-bed fusion is 45° from the plate; on square/cubic elements that is exact
 element directly below and its face neighbours in that layer (3 cells in 2D, 5 in
 3D; Langelaar 2016/2017).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -92,8 +93,13 @@ def printable_envelope(void: np.ndarray, direction: str) -> np.ndarray:
     return from_build_frame(ok, direction)
 
 
-def support_needed(solid: np.ndarray, direction: str, h: float, depth: float | None = None,
-                   within: np.ndarray | None = None) -> tuple[float, float, int]:
+def support_needed(
+    solid: np.ndarray,
+    direction: str,
+    h: float,
+    depth: float | None = None,
+    within: np.ndarray | None = None,
+) -> tuple[float, float, int]:
     """Support structure a printed design needs when grown in `direction`.
 
     Every unsupported element (see `unsupported_mask`) needs support under its
@@ -117,3 +123,12 @@ def support_needed(solid: np.ndarray, direction: str, h: float, depth: float | N
         gap = np.where(s[i], 0, gap + 1)
     n = int(b.sum())
     return face * n, face * h * columns, n
+
+
+def unreachable(void: np.ndarray, direction: str, regions: dict[str, np.ndarray]) -> list[str]:
+    """Names of the regions (boolean element masks, grid shape or flat) of which no
+    element can be printed self-supporting from the plate in `direction`: void
+    (keep-out) regions block every 45° path to them. A load or support there can
+    never be joined to the part."""
+    ok = printable_envelope(void, direction).ravel()
+    return [name for name, mask in regions.items() if not ok[np.asarray(mask).ravel()].any()]

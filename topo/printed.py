@@ -9,6 +9,7 @@ figures are the headline ones; the optimiser's figures of the grey field stand
 beside them with the relative gap, so that a design whose grey figures flatter
 the part is seen at once.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -29,6 +30,7 @@ def printed_density(density: np.ndarray, model) -> np.ndarray:
 @dataclass
 class PrintedPart:
     """The printed design, its analysis, and how it differs from the optimiser's."""
+
     density: np.ndarray  # 0/1, grid shape
     analysis: object  # fem.Analysis of the printed design
     passive_added: int  # passive-solid elements the optimiser's design had below ρ = 0.5
@@ -42,8 +44,13 @@ def printed_part(model, density: np.ndarray) -> PrintedPart:
     grey = np.asarray(density, dtype=float).ravel() >= SOLID
     made = printed.ravel() > 0.5
     analysis = model.analyze(printed.ravel())
-    return PrintedPart(printed, analysis, int((model.solid & ~grey).sum()),
-                       int((made & ~grey).sum()), int((grey & ~made).sum()))
+    return PrintedPart(
+        printed,
+        analysis,
+        int((model.solid & ~grey).sum()),
+        int((made & ~grey).sum()),
+        int((grey & ~made).sum()),
+    )
 
 
 def finite_or_none(value) -> float | None:

@@ -13,17 +13,19 @@ keys applied to the parsed file before validation, e.g.
 >>> p.domain.shape
 (4, 2)
 """
+
 from __future__ import annotations
 
 import copy
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import tomllib
+
 from .materials import Material
-from .schema import AXES, DIRECTIONS, FACES, SECTIONS, Reader  # noqa: F401 (AXES … for importers)
+from .schema import SECTIONS, Reader
 
 MAX_ELEMENTS = 20_000_000  # far above what fits in memory on a workstation
 
@@ -38,6 +40,7 @@ class ProblemError(ValueError):
 
 
 # ----------------------------------------------------------------------------- data
+
 
 @dataclass(frozen=True)
 class Box:
@@ -167,6 +170,7 @@ class Problem:
 
 # ----------------------------------------------------------------------- file level
 
+
 def load_problem(path: str | Path, overrides: dict[str, Any] | None = None) -> Problem:
     """Read and validate a problem file, applying dotted-key overrides first."""
     path = Path(path)
@@ -183,8 +187,9 @@ def load_problem(path: str | Path, overrides: dict[str, Any] | None = None) -> P
     return problem_from_dict(data, overrides, source=source)
 
 
-def problem_from_dict(data: dict, overrides: dict[str, Any] | None = None,
-                      source: str = "<dict>") -> Problem:
+def problem_from_dict(
+    data: dict, overrides: dict[str, Any] | None = None, source: str = "<dict>"
+) -> Problem:
     """Validate an already-parsed problem dictionary (the TOML tables)."""
     if not isinstance(data, dict):
         raise ProblemError(source, "", "a problem must be a table of keys")
@@ -197,7 +202,9 @@ def problem_from_dict(data: dict, overrides: dict[str, Any] | None = None,
 def parse_override(text: str) -> tuple[str, Any]:
     """'a.b=VALUE' from the command line → (key, value); VALUE is read as TOML."""
     if "=" not in text:
-        raise ProblemError("--set", text, "expected KEY=VALUE, e.g. optimization.volume_fraction=0.25")
+        raise ProblemError(
+            "--set", text, "expected KEY=VALUE, e.g. optimization.volume_fraction=0.25"
+        )
     key, value = text.split("=", 1)
     key, value = key.strip(), value.strip()
     try:
@@ -216,7 +223,9 @@ def apply_override(data: dict, dotted: str, value: Any, source: str = "<override
         if isinstance(node, list):
             index = _list_index(node, part)
             if index is None:
-                raise ProblemError(source, where, f"no entry '{part}' (give an index 0..{len(node) - 1} or a name)")
+                raise ProblemError(
+                    source, where, f"no entry '{part}' (give an index 0..{len(node) - 1} or a name)"
+                )
             if last:
                 node[index] = value
             else:
@@ -242,6 +251,7 @@ def _list_index(items: list, part: str) -> int | None:
 
 # -------------------------------------------------------------------------- parsing
 
+
 class _Parser(Reader):
     """The sections of a problem file: the declared keys come from schema.SCHEMA;
     here are the rules that tie keys together and the building of the dataclasses."""
@@ -260,12 +270,30 @@ class _Parser(Reader):
         opt = self.optimization(top["optimization"], domain)
         dim = domain.dim
         build = self.build(top["build"], dim)
-        supports = tuple(self.support(s, f"support[{i}]", dim) for i, s in enumerate(top["support"]))
-        loads = tuple(self.load_case(c, f"load_case[{i}]", dim) for i, c in enumerate(top["load_case"]))
+        supports = tuple(
+            self.support(s, f"support[{i}]", dim) for i, s in enumerate(top["support"])
+        )
+        loads = tuple(
+            self.load_case(c, f"load_case[{i}]", dim) for i, c in enumerate(top["load_case"])
+        )
         self.unique([c.name for c in loads], "load_case")
-        passives = tuple(self.passive(p, f"passive[{i}]", dim) for i, p in enumerate(top["passive"]))
-        return Problem(top["name"], top["description"], domain, material, opt, build, supports, loads,
-                       passives, self.source, d, tuple(self.warnings))
+        passives = tuple(
+            self.passive(p, f"passive[{i}]", dim) for i, p in enumerate(top["passive"])
+        )
+        return Problem(
+            top["name"],
+            top["description"],
+            domain,
+            material,
+            opt,
+            build,
+            supports,
+            loads,
+            passives,
+            self.source,
+            d,
+            tuple(self.warnings),
+        )
 
     def unique(self, names: list[str], key: str) -> None:
         seen = set()
@@ -282,13 +310,19 @@ class _Parser(Reader):
         for i, s in enumerate(size):
             n = s / h
             if abs(n - round(n)) > 1e-6 * max(1.0, n) or round(n) < 1:
-                self.fail(f"domain.size[{i}]", f"{s} mm is not a whole number of {h} mm elements "
-                          f"({n:.3f}); use {max(1, round(n)) * h:g} mm or another element_size")
+                self.fail(
+                    f"domain.size[{i}]",
+                    f"{s} mm is not a whole number of {h} mm elements "
+                    f"({n:.3f}); use {max(1, round(n)) * h:g} mm or another element_size",
+                )
             shape.append(int(round(n)))
         total = math.prod(shape)
         if total > MAX_ELEMENTS:
-            self.fail("domain.element_size", f"{total:,} elements is more than topo handles "
-                      f"({MAX_ELEMENTS:,}); use a coarser element_size")
+            self.fail(
+                "domain.element_size",
+                f"{total:,} elements is more than topo handles "
+                f"({MAX_ELEMENTS:,}); use a coarser element_size",
+            )
         return Domain(size, h, got["thickness"], tuple(shape))
 
     def material(self, value) -> Material:
@@ -297,21 +331,33 @@ class _Parser(Reader):
         return Material(**got)
 
     def optimization(self, value, domain: Domain) -> Optimization:
-        got = self.read("optimization", value, "optimization", {"element_size": domain.element_size})
+        got = self.read(
+            "optimization", value, "optimization", {"element_size": domain.element_size}
+        )
         if (got["volume_fraction"] is None) == (got["mass_limit"] is None):
-            self.fail("optimization.volume_fraction", "give exactly one of volume_fraction (the share of "
-                      "the design domain to fill, in (0, 1]) and mass_limit (kg)")
+            self.fail(
+                "optimization.volume_fraction",
+                "give exactly one of volume_fraction (the share of "
+                "the design domain to fill, in (0, 1]) and mass_limit (kg)",
+            )
         if got["objective"] == "worst_case" and got["optimizer"] != "mma":
-            self.fail("optimization.objective", "worst_case needs optimizer = \"mma\" (the bound "
-                      "formulation has one constraint per load case)")
+            self.fail(
+                "optimization.objective",
+                'worst_case needs optimizer = "mma" (the bound '
+                "formulation has one constraint per load case)",
+            )
         if got["stress_limit"] is not None and got["optimizer"] == "oc":
-            self.fail("optimization.stress_limit", "a stress constraint needs optimizer = \"mma\" "
-                      "or \"gcmma\"")
+            self.fail(
+                "optimization.stress_limit",
+                'a stress constraint needs optimizer = "mma" or "gcmma"',
+            )
         h, radius = domain.element_size, got["filter_radius"]
         if radius < h:
-            self.warnings.append(f"{self.source}: optimization.filter_radius: {radius} mm is below one "
-                                 f"element ({h} mm): the filter does nothing and the design may show "
-                                 "checkerboards; use at least 1.5 elements")
+            self.warnings.append(
+                f"{self.source}: optimization.filter_radius: {radius} mm is below one "
+                f"element ({h} mm): the filter does nothing and the design may show "
+                "checkerboards; use at least 1.5 elements"
+            )
         return Optimization(**got)
 
     def build(self, value, dim: int) -> Build | None:
@@ -319,8 +365,11 @@ class _Parser(Reader):
             return None
         got = self.read("build", value, "build", {"dim": dim})
         if got["overhang_angle"] != 45.0:
-            self.fail("build.overhang_angle", f"only 45 degrees is supported (the self-supporting limit "
-                      f"on a square/cubic grid), got {got['overhang_angle']}")
+            self.fail(
+                "build.overhang_angle",
+                f"only 45 degrees is supported (the self-supporting limit "
+                f"on a square/cubic grid), got {got['overhang_angle']}",
+            )
         return Build(**got)
 
     def region(self, value, key: str, dim: int) -> Region:

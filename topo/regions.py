@@ -5,6 +5,7 @@ box edge placed on grid lines picks the nodes on it; elements are selected by th
 centre, without tolerance. A point selects the nearest node (or the element that
 contains it).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -61,13 +62,18 @@ def outside_domain(region: Region, grid: Grid) -> bool:
     size = np.array(grid.size)
     tol = 0.5 * grid.h
     if isinstance(region, Box):
-        return bool(np.any(np.array(region.max) < -tol) or np.any(np.array(region.min) > size + tol))
+        return bool(
+            np.any(np.array(region.max) < -tol) or np.any(np.array(region.min) > size + tol)
+        )
     if isinstance(region, Point):
         p = np.array(region.point)
         return bool(np.any(p < -tol) or np.any(p > size + tol))
     if isinstance(region, (Sphere, Cylinder)):
         c = np.array(region.center)
-        reach = region.radius + (0 if isinstance(region, Sphere) or grid.dim == 2
-                                 else max(region.radius, region.length / 2))
+        reach = region.radius + (
+            0
+            if isinstance(region, Sphere) or grid.dim == 2
+            else max(region.radius, region.length / 2)
+        )
         return bool(np.any(c + reach < -tol) or np.any(c - reach > size + tol))
     return False

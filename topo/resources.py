@@ -6,6 +6,7 @@ run of `topo bench --case scale-3d-100x50x50`: 2.2 GB peak, 15.8 CG iterations
 of about 0.09 s each and about 1.1 s of assembly and hierarchy update per design
 iteration); they are estimates to catch a problem that cannot fit, not promises.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -40,12 +41,19 @@ def estimate(problem: Problem) -> dict:
         # peak (keys, sort, inverse, the scatter matrix); element fields are small.
         memory = max(60 * entries, 12 * entries + solver_bytes + 400 * n_el)
     else:
-        nnz_k = 9 * dim * n_dofs if dim == 2 else 27 * dim * n_dofs  # neighbouring nodes × components
+        nnz_k = (
+            9 * dim * n_dofs if dim == 2 else 27 * dim * n_dofs
+        )  # neighbouring nodes × components
         seconds = (CG_ITERATIONS * CG_SECONDS_PER_ENTRY + REBUILD_SECONDS_PER_ENTRY) * nnz_k
         # CG keeps about ten work vectors per load case on top of the per-node storage
         memory = ITERATIVE_BYTES_PER_NODE * (n_dofs // dim) + 80 * n_dofs * len(problem.load_cases)
-    return {"solver": kind, "elements": n_el, "dofs": n_dofs,
-            "memory_bytes": int(memory), "seconds_per_iteration": float(seconds)}
+    return {
+        "solver": kind,
+        "elements": n_el,
+        "dofs": n_dofs,
+        "memory_bytes": int(memory),
+        "seconds_per_iteration": float(seconds),
+    }
 
 
 def available_memory() -> int | None:

@@ -11,10 +11,11 @@ change.
 The worst-case objective (bound formulation) reports max_l c_l and hands the
 optimizer one bound term per load case, c_l ≤ t, in `Evaluation.bounds`.
 """
+
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Callable
 
 import numpy as np
 
@@ -39,14 +40,16 @@ class Response:
 class Evaluation:
     """The responses at one design; `probe(x)` → (objective, g values) at a candidate
     design, one solve each (the inner iterations of GCMMA)."""
+
     objective: Response
     constraints: list[Response]
     bounds: list[Response] = field(default_factory=list)
     probe: Callable[[np.ndarray], tuple[float, np.ndarray]] | None = None
 
 
-def compliance_gradient(model, density: np.ndarray, analysis, weights: np.ndarray
-                        ) -> tuple[float, np.ndarray]:
+def compliance_gradient(
+    model, density: np.ndarray, analysis, weights: np.ndarray
+) -> tuple[float, np.ndarray]:
     """Weighted compliance and its derivative with respect to ρ (adjoint: λ = −u)."""
     c = float(weights @ analysis.compliances)
     # ∂c_l/∂ρ_e = −(∂E_e/∂ρ_e / E0) · u_eᵀ k0 u_e  (k0 with the solid modulus)
@@ -56,6 +59,7 @@ def compliance_gradient(model, density: np.ndarray, analysis, weights: np.ndarra
 
 class WeightedCompliance:
     """c = Σ w_l f_lᵀ u_l over the load cases."""
+
     name = "compliance"
 
     def __init__(self, model, weights: np.ndarray):
@@ -71,6 +75,7 @@ class WeightedCompliance:
 class WorstCaseCompliance:
     """max_l c_l, handed to the optimizer as one bound c_l ≤ t per load case
     (bound formulation, Bendsøe & Sigmund 2003, Topology Optimization, §2.5)."""
+
     name = "worst-case compliance"
 
     def __init__(self, model, case_names: list[str]):
@@ -79,8 +84,10 @@ class WorstCaseCompliance:
     def evaluate(self, rho, analysis, gradient: bool = True) -> tuple[Response, list]:
         worst = Response(self.name, float(analysis.compliances.max()))
         per_case = -self.model.moduli_derivative(rho)[:, None] * analysis.energies
-        bounds = [Response(f"compliance[{name}]", float(c), gradient=g)
-                  for name, c, g in zip(self.case_names, analysis.compliances, per_case.T)]
+        bounds = [
+            Response(f"compliance[{name}]", float(c), gradient=g)
+            for name, c, g in zip(self.case_names, analysis.compliances, per_case.T)
+        ]
         return worst, bounds
 
 
@@ -89,6 +96,7 @@ class MaterialBudget:
     mass_limit: w is each element's mass at full density, over all elements, so
     passive solids count (and so does any part of them the overhang layer removes).
     `start` is the starting density of the design elements."""
+
     name = "material"
 
     def __init__(self, problem: Problem, model, chain):
@@ -102,12 +110,17 @@ class MaterialBudget:
         element_mass = problem.domain.element_volume * 1e-9 * problem.material.density  # kg
         passive = element_mass * int(model.solid.sum())
         if passive >= opt.mass_limit:
-            raise ProblemError(problem.source, "optimization.mass_limit",
-                               f"{opt.mass_limit} kg is not more than the passive solid regions "
-                               f"alone ({passive:.4g} kg)")
+            raise ProblemError(
+                problem.source,
+                "optimization.mass_limit",
+                f"{opt.mass_limit} kg is not more than the passive solid regions "
+                f"alone ({passive:.4g} kg)",
+            )
         self.weights = np.full(model.grid.n_elements, element_mass)
         self.target = opt.mass_limit
-        self.start = float(np.clip((opt.mass_limit - passive) / (element_mass * n_active), 0.01, 1.0))
+        self.start = float(
+            np.clip((opt.mass_limit - passive) / (element_mass * n_active), 0.01, 1.0)
+        )
 
     def at(self, x: np.ndarray) -> float:
         return float(self.weights @ self.chain.forward(x))
@@ -115,9 +128,13 @@ class MaterialBudget:
     def evaluate(self, rho, analysis, gradient: bool = True) -> Response:
         # A projection or an overhang layer makes the budget nonlinear in x: OC
         # meets it exactly at every step through `exact`.
-        return Response(self.name, float(self.weights @ rho), self.target,
-                        self.weights if gradient else None,
-                        None if self.chain.linear else self.at)
+        return Response(
+            self.name,
+            float(self.weights @ rho),
+            self.target,
+            self.weights if gradient else None,
+            None if self.chain.linear else self.at,
+        )
 
 
 class StressLimit:
@@ -125,6 +142,7 @@ class StressLimit:
     adaptive correction c_k of Le et al. (2010, Struct. Multidisc. Optim. 41:605):
     the latest ratio of the true peak to the aggregate blended with the previous
     correction. Only the evaluation with gradient (the accepted design) updates c_k."""
+
     name = "stress"
 
     def __init__(self, model, limit: float, alpha: float = 0.5):
@@ -141,8 +159,11 @@ class StressLimit:
         ratio = peak / pn if pn > 0 else 1.0
         prev = self.correction
         self.correction = ratio if prev is None else self.alpha * ratio + (1 - self.alpha) * prev
-        return Response(self.name, self.correction * pn / self.limit,
-                        gradient=self.correction * dpn / self.limit)
+        return Response(
+            self.name,
+            self.correction * pn / self.limit,
+            gradient=self.correction * dpn / self.limit,
+        )
 
     def state(self) -> dict:
         return {"correction": np.array(np.nan if self.correction is None else self.correction)}
@@ -167,10 +188,14 @@ class Responses:
         if problem.optimization.objective == "worst_case":
             self.objective = WorstCaseCompliance(model, [c.name for c in problem.load_cases])
         else:
-            self.objective = WeightedCompliance(model, np.array([c.weight for c in problem.load_cases]))
+            self.objective = WeightedCompliance(
+                model, np.array([c.weight for c in problem.load_cases])
+            )
         self.constraints = constraint_terms(problem, model, chain)
         self.model, self.chain = model, chain
-        self.n_bounds = len(problem.load_cases) if problem.optimization.objective == "worst_case" else 0
+        self.n_bounds = (
+            len(problem.load_cases) if problem.optimization.objective == "worst_case" else 0
+        )
 
     @property
     def material(self) -> MaterialBudget:
@@ -194,15 +219,20 @@ class Responses:
         rho = self.chain.forward(x)
         analysis = self.model.analyze(rho, stresses=False)
         objective = self.objective.evaluate(rho, analysis, gradient=False)[0]
-        return objective.value, np.array([t.evaluate(rho, analysis, gradient=False).g
-                                          for t in self.constraints])
+        return objective.value, np.array(
+            [t.evaluate(rho, analysis, gradient=False).g for t in self.constraints]
+        )
 
     def state(self) -> dict:
-        return {f"{t.name}_{k}": v for t in self.constraints if hasattr(t, "state")
-                for k, v in t.state().items()}
+        return {
+            f"{t.name}_{k}": v
+            for t in self.constraints
+            if hasattr(t, "state")
+            for k, v in t.state().items()
+        }
 
     def restore(self, state: dict) -> None:
         for t in self.constraints:
             if hasattr(t, "restore"):
                 prefix = f"{t.name}_"
-                t.restore({k[len(prefix):]: v for k, v in state.items() if k.startswith(prefix)})
+                t.restore({k[len(prefix) :]: v for k, v in state.items() if k.startswith(prefix)})

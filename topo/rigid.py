@@ -5,13 +5,20 @@ translations and the rotation about z; 3D: three translations and three rotation
 vanishes on every fixed dof. The free ones are the null space of the rigid-body
 basis restricted to the fixed dofs (an SVD), named by the basis vector each lies on.
 """
+
 from __future__ import annotations
 
 import numpy as np
 
 NAMES_2D = ("translation along x", "translation along y", "rotation about z")
-NAMES_3D = ("translation along x", "translation along y", "translation along z",
-            "rotation about x", "rotation about y", "rotation about z")
+NAMES_3D = (
+    "translation along x",
+    "translation along y",
+    "translation along z",
+    "rotation about x",
+    "rotation about y",
+    "rotation about z",
+)
 
 
 def rigid_modes(coords: np.ndarray) -> np.ndarray:

@@ -6,12 +6,14 @@ the key reference in README.md (keyref.py writes it) and the settings that `topo
 check` lists with where each came from. A new key is one `Key(...)` line; a
 new table is one `Section(...)`. Rules that tie keys together stay in problem.py.
 """
+
 from __future__ import annotations
 
 import difflib
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any
 
 from .materials import PRESETS, find_preset
 
@@ -51,6 +53,7 @@ REQUIRED = _Required()
 class Rule:
     """A default worked out from other settings: `value(env)` gets the context (dim,
     element_size, where) and the keys of the same table read so far."""
+
     text: str
     value: Callable[[dict], Any]
 
@@ -104,6 +107,7 @@ def _from_preset(field: str, otherwise: Any = REQUIRED) -> Rule:
     def value(env):
         preset = find_preset(env["preset"]) if env.get("preset") is not None else None
         return getattr(preset, field) if preset else otherwise
+
     text = "from the preset" + ("" if otherwise is REQUIRED else f", else {show(otherwise)}")
     return Rule(text, value)
 
@@ -113,119 +117,356 @@ _ENTRY_NAME = Rule("its key path, e.g. passive[1]", lambda env: env["where"])
 _POSITIVE = "(0, inf)"
 
 SCHEMA: tuple[Section, ...] = (
-    Section("", "the problem file", (
-        Key("name", STRING, "output folder name", check=_plain_name,  # load_problem gives the file's stem
-            default=Rule("the file name without .toml", lambda env: "problem")),
-        Key("description", STRING, "free text for the reports", default=""),
-        Key("domain", TABLE, "the design domain"),
-        Key("material", TABLE, "the solid material"),
-        Key("optimization", TABLE, "the optimisation settings"),
-        Key("build", TABLE, "build direction for the overhang rule", default=None),
-        Key("support", TABLES, "fixed regions, at least one"),
-        Key("load_case", TABLES, "load cases, at least one"),
-        Key("passive", TABLES, "regions kept solid or void", default=()),
-    )),
-    Section("domain", "the design domain, a box from the origin", (
-        Key("size", VECTOR, "extent along x, y (2D) or x, y, z (3D); a whole number of elements",
-            "mm", bounds=_POSITIVE, hint="give [x, y] (2D) or [x, y, z] (3D) in mm"),
-        Key("element_size", NUMBER, "edge of the square (2D) or cubic (3D) elements", "mm", bounds=_POSITIVE),
-        Key("thickness", NUMBER, "plate thickness of a 2D (plane stress) problem", "mm", bounds=_POSITIVE,
-            dims=(2,), hint="2D problems are plane stress and need a thickness (mm)"),
-    )),
-    Section("material", "a preset or explicit values; explicit values override the preset", (
-        Key("preset", STRING, f"one of {', '.join(PRESETS)}", default=None, check=_preset_known),
-        Key("name", STRING, "name in the reports", default=Rule('the preset\'s, else "custom"',
-            lambda env: find_preset(env["preset"]).name if env.get("preset") else "custom")),
-        Key("youngs_modulus", NUMBER, "Young's modulus E", "MPa", _from_preset("youngs_modulus"),
-            _POSITIVE, hint=_GIVE),
-        Key("poissons_ratio", NUMBER, "Poisson's ratio ν", "", _from_preset("poissons_ratio"),
-            "(-1, 0.5)", hint=_GIVE),
-        Key("density", NUMBER, "mass density", "kg/m³", _from_preset("density"), _POSITIVE, hint=_GIVE),
-        Key("yield_strength", NUMBER, "yield strength for the safety factors", "MPa",
-            _from_preset("yield_strength", None), _POSITIVE),
-    )),
-    Section("optimization", "the optimisation settings", (
-        Key("volume_fraction", NUMBER, "share of the design domain to fill; give this or mass_limit",
-            default=None, bounds="(0, 1]"),
-        Key("mass_limit", NUMBER, "mass budget of the part, passive solids counted; or volume_fraction",
-            "kg", None, _POSITIVE),
-        Key("objective", STRING, "weighted sum of the load-case compliances, or the largest (mma)",
-            default="weighted", choices=("weighted", "worst_case")),
-        Key("penalty", NUMBER, "SIMP penalty exponent p", default=3.0, bounds="[1, 10]"),
-        Key("filter_radius", NUMBER, "density filter radius; sets the smallest member", "mm",
-            Rule("2.5 × element_size", lambda env: 2.5 * env["element_size"]), _POSITIVE),
-        Key("projection", BOOL, "Heaviside projection towards solid/void", default=True),
-        Key("projection_threshold", NUMBER, "threshold η of the projection", default=0.5,
-            bounds="[0.01, 0.99]"),
-        Key("beta_max", NUMBER, "final projection sharpness β (β doubles from 1)", default=32.0,
-            bounds="[1, 1024]"),
-        Key("beta_interval", INTEGER, "iterations between doublings of β", default=25, bounds="[1, inf)"),
-        Key("optimizer", STRING, "optimality criteria, MMA or globally convergent MMA", default="oc",
-            choices=("oc", "mma", "gcmma")),
-        Key("move_limit", NUMBER, "largest density change per iteration", default=0.2,
-            bounds="[0.001, 1]"),
-        Key("max_iterations", INTEGER, "iteration budget", default=200, bounds="[1, inf)"),
-        Key("tolerance", NUMBER, "stop when the largest design change (β at its maximum) is below",
-            default=0.01, bounds=_POSITIVE),
-        Key("min_stiffness", NUMBER, "E_min / E0 of modified SIMP", default=1e-9, bounds="[1e-12, 0.1]"),
-        Key("solver", STRING, "linear solver: CHOLMOD, multigrid-CG, or chosen by size", default="auto",
-            choices=("auto", "direct", "iterative")),
-        Key("checkpoint_interval", INTEGER, "iterations between checkpoint.npz saves", default=10,
-            bounds="[1, inf)"),
-        Key("stress_limit", NUMBER, "bound on the relaxed von Mises stress peak (mma or gcmma)", "MPa",
-            None, _POSITIVE),
-    )),
-    Section("build", "printing: the overhang rule (optional table)", (
-        Key("direction", STRING, "build direction (±x, ±y only in 2D)",
-            choices=lambda dim: DIRECTIONS if dim == 3 else DIRECTIONS[:4]),
-        Key("overhang_angle", NUMBER, "self-supporting angle from the plate; only 45 is supported",
-            "degrees", 45.0, "(0, 90)"),
-        Key("overhang_filter", BOOL, "enforce the overhang rule (false: only report it)", default=True),
-    )),
-    Section("support", "a fixed region", (
-        Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
-        Key("region", REGION, "the fixed nodes"),
-        Key("fix", LIST, "the fixed displacement components", default=Rule(
-            "all axes", lambda env: AXES[:env["dim"]]), choices=lambda dim: AXES[:dim]),
-    ), many=True),
-    Section("load_case", "forces applied together", (
-        Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
-        Key("weight", NUMBER, "weight in the weighted compliance", default=1.0, bounds=_POSITIVE),
-        Key("force", TABLES, "the forces, at least one",
-            hint="a load case needs at least one [[load_case.force]]"),
-    ), many=True),
-    Section("load_case.force", "a force shared evenly by the nodes of a region", (
-        Key("region", REGION, "the loaded nodes"),
-        Key("total", VECTOR, "total force on the region", "N"),
-    ), many=True),
-    Section("passive", "a region kept solid or void", (
-        Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
-        Key("kind", STRING, "solid or void", choices=("solid", "void")),
-        Key("region", REGION, "the elements"),
-    ), many=True),
-    Section("region", "exactly one of these forms, e.g. region = { face = \"x-min\" }", (
-        Key("box", TABLE, "axis-aligned box", default=None),
-        Key("cylinder", TABLE, "circle (2D) or cylinder (3D)", default=None),
-        Key("sphere", TABLE, "disc (2D) or ball (3D)", default=None),
-        Key("face", STRING, "a face of the domain", default=None, choices=lambda dim: FACES[:2 * dim]),
-        Key("point", VECTOR, "the node nearest this point", "mm", None),
-    )),
-    Section("region.box", "box corners", (
-        Key("min", VECTOR, "lower corner", "mm"),
-        Key("max", VECTOR, "upper corner", "mm"),
-    )),
-    Section("region.cylinder", "cylinder", (
-        Key("center", VECTOR, "centre", "mm"),
-        Key("axis", STRING, "axis (3D)", default=Rule("z in 2D; required in 3D",
-            lambda env: "z" if env["dim"] == 2 else REQUIRED), choices=lambda dim: AXES if dim == 3 else ("z",)),
-        Key("radius", NUMBER, "radius", "mm", bounds=_POSITIVE),
-        Key("length", NUMBER, "total length along the axis, centred (3D; ignored in 2D)", "mm",
-            Rule("required in 3D", lambda env: math.inf if env["dim"] == 2 else REQUIRED), _POSITIVE),
-    )),
-    Section("region.sphere", "sphere", (
-        Key("center", VECTOR, "centre", "mm"),
-        Key("radius", NUMBER, "radius", "mm", bounds=_POSITIVE),
-    )),
+    Section(
+        "",
+        "the problem file",
+        (
+            Key(
+                "name",
+                STRING,
+                "output folder name",
+                check=_plain_name,  # load_problem gives the file's stem
+                default=Rule("the file name without .toml", lambda env: "problem"),
+            ),
+            Key("description", STRING, "free text for the reports", default=""),
+            Key("domain", TABLE, "the design domain"),
+            Key("material", TABLE, "the solid material"),
+            Key("optimization", TABLE, "the optimisation settings"),
+            Key("build", TABLE, "build direction for the overhang rule", default=None),
+            Key("support", TABLES, "fixed regions, at least one"),
+            Key("load_case", TABLES, "load cases, at least one"),
+            Key("passive", TABLES, "regions kept solid or void", default=()),
+        ),
+    ),
+    Section(
+        "domain",
+        "the design domain, a box from the origin",
+        (
+            Key(
+                "size",
+                VECTOR,
+                "extent along x, y (2D) or x, y, z (3D); a whole number of elements",
+                "mm",
+                bounds=_POSITIVE,
+                hint="give [x, y] (2D) or [x, y, z] (3D) in mm",
+            ),
+            Key(
+                "element_size",
+                NUMBER,
+                "edge of the square (2D) or cubic (3D) elements",
+                "mm",
+                bounds=_POSITIVE,
+            ),
+            Key(
+                "thickness",
+                NUMBER,
+                "plate thickness of a 2D (plane stress) problem",
+                "mm",
+                bounds=_POSITIVE,
+                dims=(2,),
+                hint="2D problems are plane stress and need a thickness (mm)",
+            ),
+        ),
+    ),
+    Section(
+        "material",
+        "a preset or explicit values; explicit values override the preset",
+        (
+            Key(
+                "preset", STRING, f"one of {', '.join(PRESETS)}", default=None, check=_preset_known
+            ),
+            Key(
+                "name",
+                STRING,
+                "name in the reports",
+                default=Rule(
+                    'the preset\'s, else "custom"',
+                    lambda env: find_preset(env["preset"]).name if env.get("preset") else "custom",
+                ),
+            ),
+            Key(
+                "youngs_modulus",
+                NUMBER,
+                "Young's modulus E",
+                "MPa",
+                _from_preset("youngs_modulus"),
+                _POSITIVE,
+                hint=_GIVE,
+            ),
+            Key(
+                "poissons_ratio",
+                NUMBER,
+                "Poisson's ratio ν",
+                "",
+                _from_preset("poissons_ratio"),
+                "(-1, 0.5)",
+                hint=_GIVE,
+            ),
+            Key(
+                "density",
+                NUMBER,
+                "mass density",
+                "kg/m³",
+                _from_preset("density"),
+                _POSITIVE,
+                hint=_GIVE,
+            ),
+            Key(
+                "yield_strength",
+                NUMBER,
+                "yield strength for the safety factors",
+                "MPa",
+                _from_preset("yield_strength", None),
+                _POSITIVE,
+            ),
+        ),
+    ),
+    Section(
+        "optimization",
+        "the optimisation settings",
+        (
+            Key(
+                "volume_fraction",
+                NUMBER,
+                "share of the design domain to fill; give this or mass_limit",
+                default=None,
+                bounds="(0, 1]",
+            ),
+            Key(
+                "mass_limit",
+                NUMBER,
+                "mass budget of the part, passive solids counted; or volume_fraction",
+                "kg",
+                None,
+                _POSITIVE,
+            ),
+            Key(
+                "objective",
+                STRING,
+                "weighted sum of the load-case compliances, or the largest (mma)",
+                default="weighted",
+                choices=("weighted", "worst_case"),
+            ),
+            Key("penalty", NUMBER, "SIMP penalty exponent p", default=3.0, bounds="[1, 10]"),
+            Key(
+                "filter_radius",
+                NUMBER,
+                "density filter radius; sets the smallest member",
+                "mm",
+                Rule("2.5 × element_size", lambda env: 2.5 * env["element_size"]),
+                _POSITIVE,
+            ),
+            Key("projection", BOOL, "Heaviside projection towards solid/void", default=True),
+            Key(
+                "projection_threshold",
+                NUMBER,
+                "threshold η of the projection",
+                default=0.5,
+                bounds="[0.01, 0.99]",
+            ),
+            Key(
+                "beta_max",
+                NUMBER,
+                "final projection sharpness β (β doubles from 1)",
+                default=32.0,
+                bounds="[1, 1024]",
+            ),
+            Key(
+                "beta_interval",
+                INTEGER,
+                "iterations between doublings of β",
+                default=25,
+                bounds="[1, inf)",
+            ),
+            Key(
+                "optimizer",
+                STRING,
+                "optimality criteria, MMA or globally convergent MMA",
+                default="oc",
+                choices=("oc", "mma", "gcmma"),
+            ),
+            Key(
+                "move_limit",
+                NUMBER,
+                "largest density change per iteration",
+                default=0.2,
+                bounds="[0.001, 1]",
+            ),
+            Key("max_iterations", INTEGER, "iteration budget", default=200, bounds="[1, inf)"),
+            Key(
+                "tolerance",
+                NUMBER,
+                "stop when the largest design change (β at its maximum) is below",
+                default=0.01,
+                bounds=_POSITIVE,
+            ),
+            Key(
+                "min_stiffness",
+                NUMBER,
+                "E_min / E0 of modified SIMP",
+                default=1e-9,
+                bounds="[1e-12, 0.1]",
+            ),
+            Key(
+                "solver",
+                STRING,
+                "linear solver: CHOLMOD, multigrid-CG, or chosen by size",
+                default="auto",
+                choices=("auto", "direct", "iterative"),
+            ),
+            Key(
+                "checkpoint_interval",
+                INTEGER,
+                "iterations between checkpoint.npz saves",
+                default=10,
+                bounds="[1, inf)",
+            ),
+            Key(
+                "stress_limit",
+                NUMBER,
+                "bound on the relaxed von Mises stress peak (mma or gcmma)",
+                "MPa",
+                None,
+                _POSITIVE,
+            ),
+        ),
+    ),
+    Section(
+        "build",
+        "printing: the overhang rule (optional table)",
+        (
+            Key(
+                "direction",
+                STRING,
+                "build direction (±x, ±y only in 2D)",
+                choices=lambda dim: DIRECTIONS if dim == 3 else DIRECTIONS[:4],
+            ),
+            Key(
+                "overhang_angle",
+                NUMBER,
+                "self-supporting angle from the plate; only 45 is supported",
+                "degrees",
+                45.0,
+                "(0, 90)",
+            ),
+            Key(
+                "overhang_filter",
+                BOOL,
+                "enforce the overhang rule (false: only report it)",
+                default=True,
+            ),
+        ),
+    ),
+    Section(
+        "support",
+        "a fixed region",
+        (
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key("region", REGION, "the fixed nodes"),
+            Key(
+                "fix",
+                LIST,
+                "the fixed displacement components",
+                default=Rule("all axes", lambda env: AXES[: env["dim"]]),
+                choices=lambda dim: AXES[:dim],
+            ),
+        ),
+        many=True,
+    ),
+    Section(
+        "load_case",
+        "forces applied together",
+        (
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key(
+                "weight", NUMBER, "weight in the weighted compliance", default=1.0, bounds=_POSITIVE
+            ),
+            Key(
+                "force",
+                TABLES,
+                "the forces, at least one",
+                hint="a load case needs at least one [[load_case.force]]",
+            ),
+        ),
+        many=True,
+    ),
+    Section(
+        "load_case.force",
+        "a force shared evenly by the nodes of a region",
+        (
+            Key("region", REGION, "the loaded nodes"),
+            Key("total", VECTOR, "total force on the region", "N"),
+        ),
+        many=True,
+    ),
+    Section(
+        "passive",
+        "a region kept solid or void",
+        (
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key("kind", STRING, "solid or void", choices=("solid", "void")),
+            Key("region", REGION, "the elements"),
+        ),
+        many=True,
+    ),
+    Section(
+        "region",
+        'exactly one of these forms, e.g. region = { face = "x-min" }',
+        (
+            Key("box", TABLE, "axis-aligned box", default=None),
+            Key("cylinder", TABLE, "circle (2D) or cylinder (3D)", default=None),
+            Key("sphere", TABLE, "disc (2D) or ball (3D)", default=None),
+            Key(
+                "face",
+                STRING,
+                "a face of the domain",
+                default=None,
+                choices=lambda dim: FACES[: 2 * dim],
+            ),
+            Key("point", VECTOR, "the node nearest this point", "mm", None),
+        ),
+    ),
+    Section(
+        "region.box",
+        "box corners",
+        (
+            Key("min", VECTOR, "lower corner", "mm"),
+            Key("max", VECTOR, "upper corner", "mm"),
+        ),
+    ),
+    Section(
+        "region.cylinder",
+        "cylinder",
+        (
+            Key("center", VECTOR, "centre", "mm"),
+            Key(
+                "axis",
+                STRING,
+                "axis (3D)",
+                default=Rule(
+                    "z in 2D; required in 3D", lambda env: "z" if env["dim"] == 2 else REQUIRED
+                ),
+                choices=lambda dim: AXES if dim == 3 else ("z",),
+            ),
+            Key("radius", NUMBER, "radius", "mm", bounds=_POSITIVE),
+            Key(
+                "length",
+                NUMBER,
+                "total length along the axis, centred (3D; ignored in 2D)",
+                "mm",
+                Rule("required in 3D", lambda env: math.inf if env["dim"] == 2 else REQUIRED),
+                _POSITIVE,
+            ),
+        ),
+    ),
+    Section(
+        "region.sphere",
+        "sphere",
+        (
+            Key("center", VECTOR, "centre", "mm"),
+            Key("radius", NUMBER, "radius", "mm", bounds=_POSITIVE),
+        ),
+    ),
 )
 
 SECTIONS = {s.path: s for s in SCHEMA}
@@ -250,15 +491,21 @@ class Reader:
     def fail(self, key: str, message: str):
         raise NotImplementedError
 
-    def read(self, path: str, value, where: str, ctx: dict, names: tuple[str, ...] | None = None) -> dict:
+    def read(
+        self, path: str, value, where: str, ctx: dict, names: tuple[str, ...] | None = None
+    ) -> dict:
         """Every declared key of section `path` from the table `value`: checked, or defaulted."""
         section = SECTIONS[path]
         d = self.table(value, where, section.names)
         got: dict[str, Any] = {}
         for key in section.keys:
             if names is None or key.name in names:
-                got[key.name] = self.field(key, d, f"{where}.{key.name}" if where else key.name,
-                                           {**ctx, **got, "where": where})
+                got[key.name] = self.field(
+                    key,
+                    d,
+                    f"{where}.{key.name}" if where else key.name,
+                    {**ctx, **got, "where": where},
+                )
         return got
 
     def field(self, key: Key, d: dict, where: str, env: dict):
@@ -287,7 +534,10 @@ class Reader:
             self.fail(where, f"missing: one of {', '.join(SECTIONS['region'].names)}")
         choices = key.allowed(dim)
         hint = key.hint or (f"one of {', '.join(choices)}" if choices else "")
-        self.fail(where, f"missing: {hint}" if hint else f"missing ({key.unit})" if key.unit else "missing")
+        self.fail(
+            where,
+            f"missing: {hint}" if hint else f"missing ({key.unit})" if key.unit else "missing",
+        )
 
     def value(self, key: Key, value, where: str, dim: int | None):
         kind = key.kind
@@ -309,7 +559,9 @@ class Reader:
             choices = key.allowed(dim)
             if not isinstance(value, list) or not value:
                 self.fail(where, f"expected a list of values from {list(choices)}")
-            return tuple(dict.fromkeys(self.string(v, f"{where}[{i}]", choices) for i, v in enumerate(value)))
+            return tuple(
+                dict.fromkeys(self.string(v, f"{where}[{i}]", choices) for i, v in enumerate(value))
+            )
         if kind == TABLE:
             return self.table(value, where, None)
         if kind == TABLES:
@@ -328,7 +580,11 @@ class Reader:
         for k in value if allowed is not None else ():
             if k not in allowed:
                 hint = difflib.get_close_matches(k, allowed, n=1)
-                tip = f" (did you mean '{hint[0]}'?)" if hint else f" (valid keys: {', '.join(allowed)})"
+                tip = (
+                    f" (did you mean '{hint[0]}'?)"
+                    if hint
+                    else f" (valid keys: {', '.join(allowed)})"
+                )
                 self.fail(f"{where}.{k}" if where else k, f"unknown key{tip}")
         return value
 
@@ -357,13 +613,17 @@ class Reader:
         if choices is not None and value not in choices:
             hint = difflib.get_close_matches(value, choices, n=1)
             tip = f"; did you mean '{hint[0]}'?" if hint else ""
-            self.fail(where, f"must be one of {', '.join(repr(c) for c in choices)}, got {value!r}{tip}")
+            self.fail(
+                where, f"must be one of {', '.join(repr(c) for c in choices)}, got {value!r}{tip}"
+            )
         return value
 
     def vector(self, value, where: str, dim: int | None, bounds: str = "") -> tuple[float, ...]:
         lengths = (dim,) if dim else (2, 3)
         if not isinstance(value, list) or len(value) not in lengths:
-            self.fail(where, f"expected a list of {' or '.join(map(str, lengths))} numbers, got {value!r}")
+            self.fail(
+                where, f"expected a list of {' or '.join(map(str, lengths))} numbers, got {value!r}"
+            )
         return tuple(self.number(v, f"{where}[{i}]", bounds) for i, v in enumerate(value))
 
 
@@ -387,11 +647,12 @@ def settings(problem) -> list[dict]:
             source = "file" if key.name in given else "default"
             if source == "default" and isinstance(key.default, Rule):
                 source = f"default: {key.default.text}"
-            rows.append({"key": f"{path}.{key.name}", "value": value, "unit": key.unit, "source": source})
+            rows.append(
+                {"key": f"{path}.{key.name}", "value": value, "unit": key.unit, "source": source}
+            )
     return rows
 
 
 def format_setting(row: dict) -> str:
     unit = f" {row['unit']}" if row["unit"] and row["value"] is not None else ""
     return f"{row['key']} = {show(row['value'])}{unit} ({row['source']})"
-

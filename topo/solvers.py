@@ -5,6 +5,7 @@ gathers the lower triangle of its free-dof block and factorises it with CHOLMOD,
 reusing the symbolic analysis (cholesky.py; SuperLU without CHOLMOD).
 `make_system` builds the system `optimization.solver` names.
 """
+
 from __future__ import annotations
 
 from contextlib import contextmanager
@@ -31,8 +32,12 @@ def blas_for_solver():
         yield
         return
     controller = ThreadpoolController()
-    bundled = [lib for lib in controller.lib_controllers
-               if lib.internal_api == "openblas" and ("numpy.libs" in lib.filepath or "scipy.libs" in lib.filepath)]
+    bundled = [
+        lib
+        for lib in controller.lib_controllers
+        if lib.internal_api == "openblas"
+        and ("numpy.libs" in lib.filepath or "scipy.libs" in lib.filepath)
+    ]
     before = [lib.num_threads for lib in bundled]
     for lib in bundled:
         lib.set_num_threads(1)

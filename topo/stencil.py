@@ -22,6 +22,7 @@ Supports are imposed on the full dof space: rows and columns of fixed dofs are
 zeroed and their diagonal set to 1 (with zero load there), which keeps the grid
 structure that geometric multigrid relies on.
 """
+
 from __future__ import annotations
 
 import itertools
@@ -40,12 +41,16 @@ class StencilAssembly:
         corners = grid.corners
         nc = len(corners)
         # per corner a: the slot of every corner b
-        self.slots = [np.array([slot_of[tuple(corners[b] - corners[a])] for b in range(nc)])
-                      for a in range(nc)]
+        self.slots = [
+            np.array([slot_of[tuple(corners[b] - corners[a])] for b in range(nc)])
+            for a in range(nc)
+        ]
         n_nodes, n_slots = grid.n_nodes, len(self.offsets)
         idx = np.indices(tuple(nshape)).reshape(dim, -1).T  # (n_nodes, dim)
         nbr_idx = idx[:, None, :] + np.array(self.offsets)[None, :, :]
-        nbr = np.ravel_multi_index(tuple(np.clip(nbr_idx, 0, nshape - 1).transpose(2, 0, 1)), tuple(nshape))
+        nbr = np.ravel_multi_index(
+            tuple(np.clip(nbr_idx, 0, nshape - 1).transpose(2, 0, 1)), tuple(nshape)
+        )
         # CSR layout: row (node, ca) lists every slot in order, then cb. Slots whose
         # neighbour lies outside the grid are kept as explicit zeros (on the clipped
         # neighbour's column; matrix-vector products and sums add them harmlessly),
@@ -53,8 +58,10 @@ class StencilAssembly:
         self.n = n = n_nodes * dim
         width = n_slots * dim
         index_type = np.int32 if n * width < 2**31 else np.int64  # what scipy would pick
-        cols = (dim * nbr[:, None, :, None] + np.arange(dim)[None, None, None, :])
-        self.indices = np.broadcast_to(cols, (n_nodes, dim, n_slots, dim)).reshape(-1).astype(index_type)
+        cols = dim * nbr[:, None, :, None] + np.arange(dim)[None, None, None, :]
+        self.indices = (
+            np.broadcast_to(cols, (n_nodes, dim, n_slots, dim)).reshape(-1).astype(index_type)
+        )
         self.indptr = np.arange(0, n * width + 1, width, dtype=index_type)
         fixed_dofs = np.flatnonzero(fixed)
         # entries in rows or columns of fixed dofs are zeroed, their diagonal set to 1
@@ -68,7 +75,9 @@ class StencilAssembly:
             row = np.zeros((nc, dim, n_slots, dim))
             for a in range(nc):
                 for b in range(nc):
-                    row[a, :, self.slots[a][b], :] = ke[dim * a:dim * a + dim, dim * b:dim * b + dim]
+                    row[a, :, self.slots[a][b], :] = ke[
+                        dim * a : dim * a + dim, dim * b : dim * b + dim
+                    ]
             self._row_of_corner = row.reshape(nc, -1)
 
     def matrix(self, moduli: np.ndarray) -> sp.csr_matrix:
@@ -77,8 +86,13 @@ class StencilAssembly:
         padded = np.zeros(tuple(n + 2 for n in shape))
         padded[tuple(slice(1, -1) for _ in shape)] = moduli.reshape(shape)
         # E_a(n): the element with node n at corner a is n − corner_a
-        around = np.stack([padded[tuple(slice(1 - c, 2 - c + n) for c, n in zip(corner, shape))]
-                           for corner in self.grid.corners], axis=-1)
+        around = np.stack(
+            [
+                padded[tuple(slice(1 - c, 2 - c + n) for c, n in zip(corner, shape))]
+                for corner in self.grid.corners
+            ],
+            axis=-1,
+        )
         rows = around.reshape(-1, len(self.grid.corners)) @ self._row_of_corner
         return self._csr(rows.reshape(self.n, -1))
 
@@ -97,7 +111,9 @@ class StencilAssembly:
             for b, slot in enumerate(self.slots[a]):
                 for i in range(d):
                     for j in range(d):
-                        blocks[(slot, i, j) + nodes] += flat[(d * a + i) * nde + d * b + j].reshape(shape)
+                        blocks[(slot, i, j) + nodes] += flat[(d * a + i) * nde + d * b + j].reshape(
+                            shape
+                        )
         # to the CSR row layout (node, da, slot, db)
         rows = np.moveaxis(blocks.reshape(blocks.shape[0], d, d, -1), 3, 0).transpose(0, 2, 1, 3)
         return self._csr(rows.reshape(self.n, -1))
@@ -134,7 +150,7 @@ class FreeLowerTriangle:
         free = ~fixed
         keep = keep.reshape(n, -1) & free[:, None] & free[cols] & (cols >= np.arange(n)[:, None])
         take = np.flatnonzero(keep)
-        self.n_free = n_free = int(free.sum())
+        self.n_free = int(free.sum())
         index_type = np.int32 if len(take) < 2**31 else np.int64
         self._take = take  # np.intp: np.take is fastest with native indices
         self._indices = (np.cumsum(free) - 1)[cols.reshape(-1)[take]].astype(index_type)
@@ -142,5 +158,7 @@ class FreeLowerTriangle:
         self._indptr = np.concatenate([[0], np.cumsum(per_column)]).astype(index_type)
 
     def __call__(self, full: sp.csr_matrix) -> sp.csc_matrix:
-        return sp.csc_matrix((np.take(full.data, self._take), self._indices, self._indptr),
-                             shape=(self.n_free, self.n_free))
+        return sp.csc_matrix(
+            (np.take(full.data, self._take), self._indices, self._indptr),
+            shape=(self.n_free, self.n_free),
+        )

@@ -16,6 +16,7 @@ Sensitivity by the adjoint method: with w_el = ∂σ_PN/∂s_el and v = σ_vm,
 dσ_PN/dρ_e = Σ_l [ w_el q ρ_e^(q−1) v_el − E'(ρ_e) λ_l,eᵀ k0 u_l,e ],
 where K λ_l = Σ_e w_el ρ_e^q (D0 B)ᵀ M σ_el / v_el (M: σ_vm² = σᵀ M σ).
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -45,8 +46,9 @@ class StressMeasure:
     def __init__(self, model, q: float = RELAXATION_EXPONENT, p_norm: float = 8.0):
         self.model, self.q, self.p = model, q, p_norm
         mat, grid = model.problem.material, model.grid
-        self.c = elasticity_matrix(grid.dim, mat.youngs_modulus, mat.poissons_ratio) @ \
-            centre_strain_displacement(grid.dim, grid.h)  # σ = C u_e
+        self.c = elasticity_matrix(
+            grid.dim, mat.youngs_modulus, mat.poissons_ratio
+        ) @ centre_strain_displacement(grid.dim, grid.h)  # σ = C u_e
         self.m = von_mises_matrix(grid.dim)
 
     def _stresses(self, analysis) -> tuple[np.ndarray, np.ndarray]:

@@ -5,6 +5,7 @@ Calls only the public API. A run whose folder already holds a finished summary.j
 made from the same resolved problem is read back, not run again, so an interrupted
 sweep completes only what is missing.
 """
+
 from __future__ import annotations
 
 import csv
@@ -12,12 +13,13 @@ import io
 import itertools
 import json
 import os
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 
-from .files import write_figure, write_text
+from .files import pyplot, write_figure, write_text
 
 
 def combinations(vary: dict[str, list]) -> list[dict[str, Any]]:
@@ -48,8 +50,9 @@ def _limit_blas(threads: int) -> None:
         pass
 
 
-def run_one(raw: dict, source: str, params: dict[str, Any], out_dir: str,
-            blas_threads: int | None = None) -> dict:
+def run_one(
+    raw: dict, source: str, params: dict[str, Any], out_dir: str, blas_threads: int | None = None
+) -> dict:
     """Optimise one combination and write its folder; returns its sweep row."""
     from . import export, optimize, problem_from_dict
 
@@ -62,14 +65,26 @@ def run_one(raw: dict, source: str, params: dict[str, Any], out_dir: str,
 
 def row_of(params: dict, summary: dict, out_dir: str, ran: bool) -> dict:
     row = dict(params)
-    row.update({"mass_kg": summary["mass_kg"], "volume_fraction": summary["volume_fraction"],
-                "compliance_Nmm": summary["compliance_Nmm"]})
+    row.update(
+        {
+            "mass_kg": summary["mass_kg"],
+            "volume_fraction": summary["volume_fraction"],
+            "compliance_Nmm": summary["compliance_Nmm"],
+        }
+    )
     for case in summary["load_cases"]:
         row[f"compliance_{case['name']}_Nmm"] = case["compliance_Nmm"]
     row["max_displacement_mm"] = max(c["max_displacement_mm"] for c in summary["load_cases"])
-    row.update({"unsupported_fraction": summary["unsupported_fraction"],
-                "iterations": summary["iterations"], "converged": summary["converged"],
-                "runtime_s": summary["runtime_s"], "folder": str(out_dir), "ran": ran})
+    row.update(
+        {
+            "unsupported_fraction": summary["unsupported_fraction"],
+            "iterations": summary["iterations"],
+            "converged": summary["converged"],
+            "runtime_s": summary["runtime_s"],
+            "folder": str(out_dir),
+            "ran": ran,
+        }
+    )
     return row
 
 
@@ -88,15 +103,25 @@ def pareto(rows: list[dict]) -> list[bool]:
     """True for each run that no other run beats on both mass and compliance."""
     out = []
     for r in rows:
-        dominated = any(o is not r and o["mass_kg"] <= r["mass_kg"] and o["compliance_Nmm"] <= r["compliance_Nmm"]
-                        and (o["mass_kg"] < r["mass_kg"] or o["compliance_Nmm"] < r["compliance_Nmm"])
-                        for o in rows)
+        dominated = any(
+            o is not r
+            and o["mass_kg"] <= r["mass_kg"]
+            and o["compliance_Nmm"] <= r["compliance_Nmm"]
+            and (o["mass_kg"] < r["mass_kg"] or o["compliance_Nmm"] < r["compliance_Nmm"])
+            for o in rows
+        )
         out.append(not dominated)
     return out
 
 
-def sweep(problem, vary: dict[str, list], jobs: int = 1, out: str | Path | None = None,
-          scheduler: str | None = None, progress: Callable[[str], None] | None = None) -> list[dict]:
+def sweep(
+    problem,
+    vary: dict[str, list],
+    jobs: int = 1,
+    out: str | Path | None = None,
+    scheduler: str | None = None,
+    progress: Callable[[str], None] | None = None,
+) -> list[dict]:
     """Run every combination of `vary` (dotted key → values) of `problem` (a Problem
     or a problem file). Writes one folder per run, sweep.csv and sweep.png under
     `out` (default outputs/NAME-sweep) and returns the rows in combination order."""
@@ -128,25 +153,33 @@ def sweep(problem, vary: dict[str, list], jobs: int = 1, out: str | Path | None 
         nonlocal finished
         rows[i] = row
         finished += 1
-        say(f"[{finished}/{len(combos)}] {Path(row['folder']).name}: compliance {row['compliance_Nmm']:.5g} N·mm, "
-            f"mass {row['mass_kg']:.4g} kg, {row['iterations']} iterations, {row['runtime_s']:.1f} s")
+        say(
+            f"[{finished}/{len(combos)}] {Path(row['folder']).name}: "
+            f"compliance {row['compliance_Nmm']:.5g} N·mm, mass {row['mass_kg']:.4g} kg, "
+            f"{row['iterations']} iterations, {row['runtime_s']:.1f} s"
+        )
 
     if todo and scheduler:
         from dask.distributed import Client, as_completed
 
         with Client(scheduler) as client:
-            futures = {client.submit(run_one, raw, source, params, folder, 1, pure=False): i
-                       for i, params, folder in todo}
+            futures = {
+                client.submit(run_one, raw, source, params, folder, 1, pure=False): i
+                for i, params, folder in todo
+            }
             for fut in as_completed(futures):
                 record(futures[fut], fut.result())
     elif todo and jobs > 1:
         import multiprocessing as mp
-        from concurrent.futures import ProcessPoolExecutor, as_completed as done_first
+        from concurrent.futures import ProcessPoolExecutor
+        from concurrent.futures import as_completed as done_first
 
         threads = max(1, (os.cpu_count() or 1) // jobs)  # jobs × threads ≤ cores
         with ProcessPoolExecutor(jobs, mp_context=mp.get_context("spawn")) as pool:
-            futures = {pool.submit(run_one, raw, source, params, folder, threads): i
-                       for i, params, folder in todo}
+            futures = {
+                pool.submit(run_one, raw, source, params, folder, threads): i
+                for i, params, folder in todo
+            }
             for fut in done_first(futures):
                 record(futures[fut], fut.result())
     else:
@@ -168,10 +201,7 @@ def write_table(rows: list[dict], path: Path) -> None:
 
 
 def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    plt = pyplot()
 
     best = pareto(rows)
     fig, ax = plt.subplots(figsize=(6.4, 4.4))
@@ -182,8 +212,13 @@ def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
     order = np.argsort(mass[best])
     ax.plot(mass[best][order], comp[best][order], color="tab:red", lw=1)
     for r, m, c in zip(rows, mass, comp):
-        ax.annotate(", ".join(f"{k.split('.')[-1]}={r[k]}" for k in keys), (m, c), fontsize=7,
-                    textcoords="offset points", xytext=(4, 4))
+        ax.annotate(
+            ", ".join(f"{k.split('.')[-1]}={r[k]}" for k in keys),
+            (m, c),
+            fontsize=7,
+            textcoords="offset points",
+            xytext=(4, 4),
+        )
     ax.set_xlabel("mass (kg)")
     ax.set_ylabel("weighted compliance (N·mm)")
     ax.set_title("trade-off: stiffness against mass")

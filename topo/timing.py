@@ -7,6 +7,7 @@
 >>> list(seconds)
 ['solve']
 """
+
 from __future__ import annotations
 
 import time

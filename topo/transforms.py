@@ -5,6 +5,7 @@ rule through that one step, given the same input x). `Chain` runs them in order 
 back-propagates through the same list, so adding a manufacturing constraint means
 adding one transform. All arrays are flat element vectors in C order of the grid.
 """
+
 from __future__ import annotations
 
 import numpy as np
@@ -158,8 +159,14 @@ class OverhangFilter(Transform):
     number of elements.
     """
 
-    def __init__(self, shape: tuple[int, ...], direction: str, p: float = 40.0,
-                 eps: float = 1e-4, xi0: float = 0.5):
+    def __init__(
+        self,
+        shape: tuple[int, ...],
+        direction: str,
+        p: float = 40.0,
+        eps: float = 1e-4,
+        xi0: float = 0.5,
+    ):
         self.shape, self.direction = tuple(shape), direction
         self.p, self.eps = p, eps
         self.offsets = support_offsets(len(shape) - 1)

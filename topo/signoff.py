@@ -1,0 +1,166 @@
+"""Sign-off figures of a finished design: the printed part first, the optimiser's
+grey figures beside it, and the checks.
+
+`sign_off(result)` re-analyses the printed part (printed.py) and gathers, for it
+and for the grey field: mass, compliance, displacement magnitude, deflections at
+the problem's probes, peak von Mises stress and safety factor per load case; the
+support each passive solid region needs; whether every load reaches a support;
+enclosed cavities; and the PASS/FAIL rows of checks.py.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .checks import SignOffFigures, run_checks
+from .deflection import deflections
+from .integrity import enclosed_cavities, load_path
+from .printability import SOLID, support_needed, unsupported_fraction
+from .printed import finite_or_none, printed_part, relative_gap
+
+
+def part_figures(problem, model, rho: np.ndarray, analysis, probes, solid: np.ndarray) -> dict:
+    """Figures of one density field (flat) and its analysis. Stresses are those of
+    the solid material at element centres, over the elements of `solid` only (the
+    printed material); void and grey elements below ρ = 0.5 carry none."""
+    dom, mat = problem.domain, problem.material
+    weights = np.array([c.weight for c in problem.load_cases])
+    volume = dom.element_volume * float(np.clip(rho, 0.0, 1.0).sum())
+    cases = []
+    for i, case in enumerate(problem.load_cases):
+        peak = float(analysis.von_mises[solid, i].max()) if solid.any() else None
+        cases.append(
+            {
+                "name": case.name,
+                "weight": case.weight,
+                "compliance_Nmm": finite_or_none(analysis.compliances[i]),
+                "max_displacement_mm": finite_or_none(analysis.max_displacement[i]),
+                "max_von_mises_MPa": finite_or_none(peak),
+                "safety_factor": finite_or_none(mat.yield_strength / peak)
+                if mat.yield_strength and peak
+                else None,
+                "deflections_mm": {
+                    p.name: finite_or_none(deflections(p, analysis.displacements)[i])
+                    for p in probes
+                    if i in p.cases
+                },
+            }
+        )
+    peaks = [c["max_von_mises_MPa"] for c in cases if c["max_von_mises_MPa"] is not None]
+    peak = max(peaks) if peaks else None
+    active = model.active
+    return {
+        "mass_kg": volume * 1e-9 * mat.density,
+        "volume_mm3": volume,
+        "volume_fraction": float(np.clip(rho[active], 0, 1).mean()) if active.any() else None,
+        "compliance_Nmm": finite_or_none(weights @ analysis.compliances),
+        "max_von_mises_MPa": peak,
+        "safety_factor": finite_or_none(mat.yield_strength / peak)
+        if mat.yield_strength and peak
+        else None,
+        "load_cases": cases,
+    }
+
+
+def interface_support(problem, model, printed: np.ndarray, grey: np.ndarray) -> list[dict]:
+    """Per passive solid region: its share at ρ ≥ 0.5 in the optimiser's design, and
+    the support it needs in the printed part (down-facing area and support volume
+    down to the plate or the part below) when grown in the build direction."""
+    out = []
+    build = problem.build
+    for i, (p, elems) in enumerate(zip(problem.passives, model.passive_elements)):
+        if p.kind != "solid":
+            continue
+        row = {
+            "key": f"passive[{i}]",
+            "name": p.name,
+            "elements": int(len(elems)),
+            "solid_share": float((grey[elems] >= SOLID).mean()),
+            "downfacing_area_mm2": None,
+            "support_volume_mm3": None,
+        }
+        if build is not None:
+            within = np.zeros(model.grid.n_elements, dtype=bool)
+            within[elems] = True
+            area, volume, _ = support_needed(
+                printed > 0.5,
+                build.direction,
+                problem.domain.element_size,
+                problem.domain.thickness,
+                within.reshape(printed.shape),
+            )
+            row["downfacing_area_mm2"], row["support_volume_mm3"] = area, volume
+        out.append(row)
+    return out
+
+
+def sign_off(result, probes, requirements) -> dict:
+    """Everything summary.json says about the printed part. `requirements` carries
+    safety_factor, compliance_gap and unsupported_fraction (the [checks] table)."""
+    problem, model = result.problem, result.model
+    grey = result.density.ravel()
+    part = printed_part(model, result.density)
+    solid = part.density.ravel() > 0.5
+    printed = part_figures(problem, model, part.density.ravel(), part.analysis, probes, solid)
+    optimizer = part_figures(problem, model, grey, result.analysis, probes, grey >= SOLID)
+    for pc, gc in zip(printed["load_cases"], optimizer["load_cases"]):
+        pc["compliance_gap"] = relative_gap(pc["compliance_Nmm"], gc["compliance_Nmm"])
+    grid, dom = model.grid, problem.domain
+    path = load_path(part.density, grid, model.support_nodes, model.load_nodes, dom.element_volume)
+    cavities = [
+        c.__dict__ for c in enclosed_cavities(part.density, dom.element_size, dom.element_volume)
+    ]
+    interfaces = interface_support(problem, model, part.density, grey)
+    build = problem.build
+    unsupported = unsupported_fraction(part.density, build.direction) if build else None
+    deflection_rows = [
+        {
+            "name": p.name,
+            "load_case": problem.load_cases[i].name,
+            "value_mm": printed["load_cases"][i]["deflections_mm"][p.name],
+            "limit_mm": p.limit,
+        }
+        for p in probes
+        for i in p.cases
+    ]
+    opt = problem.optimization
+    figures = SignOffFigures(
+        load_path_connected=path.connected,
+        cut_off_loads=path.cut_off,
+        loose_pieces=path.loose_pieces,
+        interfaces=interfaces,
+        compliance_gaps={c["name"]: c["compliance_gap"] for c in printed["load_cases"]},
+        safety_factor=printed["safety_factor"],
+        required_safety_factor=requirements.safety_factor,
+        max_von_mises_MPa=printed["max_von_mises_MPa"],
+        stress_limit_MPa=opt.stress_limit,
+        mass_kg=printed["mass_kg"],
+        mass_limit_kg=opt.mass_limit,
+        deflections=deflection_rows,
+        unsupported_fraction=unsupported,
+        unsupported_limit=requirements.unsupported_fraction,
+        cavities=cavities,
+        compliance_gap_limit=requirements.compliance_gap,
+    )
+    return {
+        "printed": printed,
+        "optimizer": optimizer,
+        "compliance_gap": relative_gap(printed["compliance_Nmm"], optimizer["compliance_Nmm"]),
+        "printed_part": {
+            "elements": int(solid.sum()),
+            "passive_elements_added": part.passive_added,
+            "elements_added": part.added,
+            "elements_removed": part.removed,
+            "pieces": path.pieces,
+            "loose_pieces": path.loose_pieces,
+            "loose_volume_mm3": path.loose_volume_mm3,
+            "cut_off_loads": path.cut_off,
+        },
+        "interfaces": interfaces,
+        "deflections": deflection_rows,
+        "enclosed_cavities": cavities,
+        "unsupported_fraction": unsupported,
+        "checks": run_checks(figures),
+        "printed_analysis": part.analysis,
+        "printed_density": part.density,
+    }
