@@ -156,6 +156,8 @@ def full_problem():
         {"kind": "void", "region": {"cylinder": {"center": [14.0, 2.0], "radius": 1.0}}},
         {"kind": "solid", "region": {"sphere": {"center": [18.0, 2.0], "radius": 1.0}}},
     ]
+    d["deflection"] = [{"region": {"point": [20.0, 2.5]}, "direction": "-y", "limit": 1.0}]
+    d["checks"] = {"safety_factor": 1.5}
     return d
 
 
@@ -174,6 +176,8 @@ PLACES = {
         lambda p: p.load_cases[0].forces[0],
     ),
     "passive": ("passive.1.", "passive[1].", lambda p: p.passives[1]),
+    "deflection": ("deflection.0.", "deflection[0].", lambda p: p.deflections[0]),
+    "checks": ("checks.", "checks.", lambda p: p.checks),
     "region": ("support.0.region.", "support[0].region.", lambda p: p.supports[0].region),
     "region.box": (
         "passive.0.region.box.",

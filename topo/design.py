@@ -20,6 +20,7 @@ from .checkpoint import Checkpoint, LoopState
 from .continuation import Continuation
 from .fem import Analysis, Model
 from .optimizers import make_optimizer
+from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
 from .responses import Evaluation, Responses
 from .solvers import blas_for_solver
@@ -41,6 +42,11 @@ class Result:
     runtime_s: float = 0.0
     stop_reason: str = ""
     summary: dict = field(default_factory=dict)
+    printed: PrintedPart | None = None  # the thresholded design with interfaces whole
+
+    def __post_init__(self):
+        if self.printed is None:
+            self.printed = printed_part(self.model, self.density)
 
 
 def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProjection | None]:

@@ -57,10 +57,13 @@ class Model:
             dim, dom.element_size, mat.poissons_ratio, mat.youngs_modulus, thickness
         )
         self.selections: list[Selection] = []
+        self.support_nodes: list[np.ndarray] = []  # per [[support]], in file order
+        self.load_nodes: list[tuple[str, np.ndarray]] = []  # (case/force name, nodes) per force
         self._fixed = self._supports()
         self.solid, self.void = self._passives()
         self.loads = self._loads()
         self._check_restraint()
+        self.probes = self._probes()
         self.free = np.flatnonzero(~self._fixed)
         factory = system_factory or (
             lambda g, ke, fixed: make_system(problem.optimization.solver, g, ke, fixed)
@@ -90,6 +93,7 @@ class Model:
         fixed = np.zeros(self.grid.n_dofs, dtype=bool)
         for i, s in enumerate(self.problem.supports):
             nodes = self._nodes(s.region, f"support[{i}]", "support", s.name)
+            self.support_nodes.append(nodes)
             for axis in s.fix:
                 fixed[self.dim * nodes + AXIS_INDEX[axis]] = True
         return fixed
@@ -106,6 +110,18 @@ class Model:
                 f"move: {'; '.join(free)}. Fix more directions or add a support",
             )
 
+    def _probes(self) -> list:
+        """The problem's [[deflection]] points as probes (deflection.py)."""
+        from .deflection import Probe, unit_direction
+
+        names = [c.name for c in self.problem.load_cases]
+        out = []
+        for i, d in enumerate(self.problem.deflections):
+            nodes = self._nodes(d.region, f"deflection[{i}]", "deflection", d.name)
+            cases = tuple(range(len(names))) if d.load_case is None else (names.index(d.load_case),)
+            out.append(Probe(d.name, nodes, unit_direction(d.direction, self.dim), cases, d.limit))
+        return out
+
     def _loads(self) -> np.ndarray:
         f = np.zeros((self.grid.n_dofs, len(self.problem.load_cases)))
         # nodes every one of whose elements is in a void region carry no material
@@ -119,6 +135,7 @@ class Model:
             for j, force in enumerate(case.forces):
                 key = f"load_case[{c}].force[{j}]"
                 nodes = self._nodes(force.region, key, "force", case.name)
+                self.load_nodes.append((case.name if j == 0 else f"{case.name}[{j}]", nodes))
                 if void_nodes[nodes].all():
                     raise ProblemError(
                         self.problem.source,

@@ -149,6 +149,24 @@ class Passive:
 
 
 @dataclass(frozen=True)
+class DeflectionPoint:
+    name: str
+    region: Region
+    direction: str  # "+x" … "-z"
+    load_case: str | None  # None: every load case
+    limit: float | None  # mm, on |deflection|
+
+
+@dataclass(frozen=True)
+class Checks:
+    """Thresholds of the PASS/FAIL checks on the printed part."""
+
+    safety_factor: float = 1.0
+    compliance_gap: float = 0.05
+    unsupported_fraction: float = 0.0
+
+
+@dataclass(frozen=True)
 class Problem:
     name: str
     description: str
@@ -162,6 +180,8 @@ class Problem:
     source: str = "<dict>"
     raw: dict = field(default_factory=dict, compare=False, repr=False)
     warnings: tuple[str, ...] = ()
+    deflections: tuple[DeflectionPoint, ...] = ()
+    checks: Checks = Checks()
 
     @property
     def dim(self) -> int:
@@ -280,6 +300,13 @@ class _Parser(Reader):
         passives = tuple(
             self.passive(p, f"passive[{i}]", dim) for i, p in enumerate(top["passive"])
         )
+        names = [c.name for c in loads]
+        deflections = tuple(
+            self.deflection(p, f"deflection[{i}]", dim, names, opt.optimizer)
+            for i, p in enumerate(top["deflection"])
+        )
+        self.unique([p.name for p in deflections], "deflection")
+        checks = Checks(**self.read("checks", top["checks"] or {}, "checks", {}))
         return Problem(
             top["name"],
             top["description"],
@@ -293,6 +320,8 @@ class _Parser(Reader):
             self.source,
             d,
             tuple(self.warnings),
+            deflections,
+            checks,
         )
 
     def unique(self, names: list[str], key: str) -> None:
@@ -407,6 +436,25 @@ class _Parser(Reader):
         if all(not any(f.total) for f in forces):
             self.fail(f"{key}.force", "the load case has zero total force")
         return LoadCase(got["name"], got["weight"], tuple(forces))
+
+    def deflection(
+        self, d: dict, key: str, dim: int, cases: list[str], optimizer: str
+    ) -> DeflectionPoint:
+        got = self.read("deflection", d, key, {"dim": dim})
+        if got["load_case"] is not None and got["load_case"] not in cases:
+            self.fail(
+                f"{key}.load_case",
+                f"no load case {got['load_case']!r} (load cases: {', '.join(cases)})",
+            )
+        if got["limit"] is not None and optimizer == "oc":
+            self.warnings.append(
+                f'{self.source}: {key}.limit: with optimizer = "oc" a deflection limit is '
+                'checked on the printed part but not enforced; use "mma" to constrain it'
+            )
+        region = self.region(got["region"], f"{key}.region", dim)
+        return DeflectionPoint(
+            got["name"], region, got["direction"], got["load_case"], got["limit"]
+        )
 
     def passive(self, d: dict, key: str, dim: int) -> Passive:
         got = self.read("passive", d, key, {"dim": dim})

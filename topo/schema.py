@@ -136,6 +136,8 @@ SCHEMA: tuple[Section, ...] = (
             Key("support", TABLES, "fixed regions, at least one"),
             Key("load_case", TABLES, "load cases, at least one"),
             Key("passive", TABLES, "regions kept solid or void", default=()),
+            Key("deflection", TABLES, "deflections reported (and limited) at points", default=()),
+            Key("checks", TABLE, "thresholds of the sign-off checks", default=None),
         ),
     ),
     Section(
@@ -408,6 +410,63 @@ SCHEMA: tuple[Section, ...] = (
             Key("region", REGION, "the elements"),
         ),
         many=True,
+    ),
+    Section(
+        "deflection",
+        "a point (or a small region, averaged) whose movement along a direction is signed off",
+        (
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key("region", REGION, "the nodes whose mean displacement is taken, e.g. a point"),
+            Key(
+                "direction",
+                STRING,
+                "the direction the deflection is measured along",
+                choices=lambda dim: DIRECTIONS if dim == 3 else DIRECTIONS[:4],
+            ),
+            Key(
+                "load_case",
+                STRING,
+                "the load case it applies to (default: every load case)",
+                default=None,
+            ),
+            Key(
+                "limit",
+                NUMBER,
+                "largest allowed |deflection|; a constraint with optimizer mma or gcmma, "
+                "always a check",
+                "mm",
+                None,
+                _POSITIVE,
+            ),
+        ),
+        many=True,
+    ),
+    Section(
+        "checks",
+        "thresholds of the PASS/FAIL checks on the printed part (optional table)",
+        (
+            Key(
+                "safety_factor",
+                NUMBER,
+                "required yield strength over peak von Mises stress of the printed part",
+                default=1.0,
+                bounds=_POSITIVE,
+            ),
+            Key(
+                "compliance_gap",
+                NUMBER,
+                "largest allowed relative gap between printed and optimiser compliance",
+                default=0.05,
+                bounds="(0, 1]",
+            ),
+            Key(
+                "unsupported_fraction",
+                NUMBER,
+                "largest allowed share of printed elements that need support structures",
+                default=0.0,
+                bounds="[0, 1]",
+            ),
+        ),
     ),
     Section(
         "region",

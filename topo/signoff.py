@@ -16,7 +16,7 @@ from .checks import SignOffFigures, run_checks
 from .deflection import deflections
 from .integrity import enclosed_cavities, load_path
 from .printability import SOLID, support_needed, unsupported_fraction
-from .printed import finite_or_none, printed_part, relative_gap
+from .printed import finite_or_none, relative_gap
 
 
 def part_figures(problem, model, rho: np.ndarray, analysis, probes, solid: np.ndarray) -> dict:
@@ -94,12 +94,13 @@ def interface_support(problem, model, printed: np.ndarray, grey: np.ndarray) -> 
     return out
 
 
-def sign_off(result, probes, requirements) -> dict:
-    """Everything summary.json says about the printed part. `requirements` carries
-    safety_factor, compliance_gap and unsupported_fraction (the [checks] table)."""
+def sign_off(result) -> dict:
+    """Everything summary.json says about the printed part (result.printed), with
+    the optimiser's figures beside it and the checks against problem.checks."""
     problem, model = result.problem, result.model
+    probes, requirements = model.probes, problem.checks
     grey = result.density.ravel()
-    part = printed_part(model, result.density)
+    part = result.printed
     solid = part.density.ravel() > 0.5
     printed = part_figures(problem, model, part.density.ravel(), part.analysis, probes, solid)
     optimizer = part_figures(problem, model, grey, result.analysis, probes, grey >= SOLID)
@@ -161,6 +162,4 @@ def sign_off(result, probes, requirements) -> dict:
         "enclosed_cavities": cavities,
         "unsupported_fraction": unsupported,
         "checks": run_checks(figures),
-        "printed_analysis": part.analysis,
-        "printed_density": part.density,
     }
