@@ -28,8 +28,10 @@ def test_mma_solves_svanbergs_cantilever_example():
 def test_mma_reaches_the_oc_result_on_the_mbb_beam():
     oc = optimize(problem_from_dict(mbb()))
     mma = optimize(problem_from_dict(mbb(optimizer="mma")))
-    assert mma.summary["compliance_Nmm"] == pytest.approx(oc.summary["compliance_Nmm"], rel=0.02)
-    assert abs(mma.summary["volume_fraction"] - 0.5) < 1e-3
+    assert mma.summary["optimizer"]["compliance_Nmm"] == pytest.approx(
+        oc.summary["optimizer"]["compliance_Nmm"], rel=0.02
+    )
+    assert abs(mma.summary["optimizer"]["volume_fraction"] - 0.5) < 1e-3
 
 
 @pytest.mark.parametrize("optimizer", ["oc", "mma"])
@@ -40,14 +42,16 @@ def test_mass_limit_equals_the_matching_volume_fraction(optimizer):
     d["passive"] = [{"kind": "solid", "region": {"box": {"min": [50, 0], "max": [60, 6]}}}]
     by_fraction = optimize(problem_from_dict(d))
     d["optimization"].pop("volume_fraction")
-    d["optimization"]["mass_limit"] = by_fraction.summary["mass_kg"]
+    d["optimization"]["mass_limit"] = by_fraction.summary["optimizer"]["mass_kg"]
     by_mass = optimize(problem_from_dict(d))
     # OC meets the constraint exactly, so both runs are the same run; MMA meets it to
     # about 1e-5 and sees the constraint scaled differently (mass vs. fraction)
     tol = 1e-6 if optimizer == "oc" else 2e-3
-    assert by_mass.summary["mass_kg"] == pytest.approx(by_fraction.summary["mass_kg"], rel=tol)
-    assert by_mass.summary["compliance_Nmm"] == pytest.approx(
-        by_fraction.summary["compliance_Nmm"], rel=tol
+    assert by_mass.summary["optimizer"]["mass_kg"] == pytest.approx(
+        by_fraction.summary["optimizer"]["mass_kg"], rel=tol
+    )
+    assert by_mass.summary["optimizer"]["compliance_Nmm"] == pytest.approx(
+        by_fraction.summary["optimizer"]["compliance_Nmm"], rel=tol
     )
 
 
@@ -98,11 +102,11 @@ def symmetric_two_cases(objective, optimizer="mma"):
 def test_worst_case_balances_symmetric_load_cases():
     worst = optimize(problem_from_dict(symmetric_two_cases("worst_case")))
     weighted = optimize(problem_from_dict(symmetric_two_cases("weighted")))
-    cw = [c["compliance_Nmm"] for c in worst.summary["load_cases"]]
-    cs = [c["compliance_Nmm"] for c in weighted.summary["load_cases"]]
+    cw = [c["compliance_Nmm"] for c in worst.summary["optimizer"]["load_cases"]]
+    cs = [c["compliance_Nmm"] for c in weighted.summary["optimizer"]["load_cases"]]
     assert abs(cw[0] - cw[1]) / max(cw) < 0.01
     assert max(cw) <= max(cs) * (1 + 1e-3)
-    assert abs(worst.summary["volume_fraction"] - 0.3) < 1e-3
+    assert abs(worst.summary["optimizer"]["volume_fraction"] - 0.3) < 1e-3
 
 
 def test_worst_case_needs_mma():
@@ -134,8 +138,10 @@ def test_gcmma_solves_the_cantilever_example_with_conservative_inner_iterations(
 def test_gcmma_reaches_the_oc_result_on_the_mbb_beam():
     oc = optimize(problem_from_dict(mbb()))
     gc = optimize(problem_from_dict(mbb(optimizer="gcmma", max_iterations=150)))
-    assert gc.summary["compliance_Nmm"] == pytest.approx(oc.summary["compliance_Nmm"], rel=0.02)
-    assert abs(gc.summary["volume_fraction"] - 0.5) < 1e-3
+    assert gc.summary["optimizer"]["compliance_Nmm"] == pytest.approx(
+        oc.summary["optimizer"]["compliance_Nmm"], rel=0.02
+    )
+    assert abs(gc.summary["optimizer"]["volume_fraction"] - 0.5) < 1e-3
 
 
 def test_factory_builds_the_optimizer_the_settings_name():

@@ -15,16 +15,32 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import ndimage
 
 from .printability import SOLID
 
 
+# Pieces smaller than this share of the largest piece are floating debris, dropped
+# from the printed part as from the design mesh (mesh.remove_debris).
+DEBRIS_FRACTION = 0.01
+
+
 def printed_density(density: np.ndarray, model) -> np.ndarray:
     """0/1 field of the printed part, grid shape: ρ ≥ 0.5, passive solids whole,
-    void regions empty."""
+    void regions empty, floating debris dropped (face-connected pieces under
+    DEBRIS_FRACTION of the largest that hold no passive solid)."""
+    shape = np.shape(density)
     flat = np.asarray(density, dtype=float).ravel()
     solid = ((flat >= SOLID) | model.solid) & ~model.void
-    return solid.astype(float).reshape(np.shape(density))
+    labels, n = ndimage.label(solid.reshape(shape))
+    if n > 1:
+        labels = labels.ravel()
+        sizes = np.bincount(labels)[1:]
+        keep = (sizes >= DEBRIS_FRACTION * sizes.max()) | (
+            np.bincount(labels, weights=model.solid, minlength=n + 1)[1:] > 0
+        )
+        solid &= np.concatenate([[False], keep])[labels]
+    return solid.astype(float).reshape(shape)
 
 
 @dataclass

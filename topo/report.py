@@ -8,54 +8,58 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import mesh as meshing
-from .printability import SOLID, printable_envelope, unsupported_by_direction
+from .checks import failed
+from .printability import printable_envelope, unsupported_by_direction
+from .printed import finite_or_none, relative_gap
 from .schema import format_setting, settings
+from .signoff import sign_off
 from .stress import relax
 
 CAUTION = (
     "Concept design only. Verify by qualified analysis and physical testing "
     "under the applicable codes and licensed engineering practice before use."
 )
-STRESS_NOTE = (
-    "max_von_mises_MPa: von Mises stress of the solid material at element centres, "
-    "elements with density >= 0.5; peak_relaxed_stress_MPa: the largest density^0.5 "
-    "times that stress over all elements (what a stress_limit constrains); safety "
-    "factors are yield strength over max_von_mises_MPa. Peaks at point loads, supports "
-    "and re-entrant corners depend on the mesh."
+PRINTED_NOTE = (
+    "the printed part: elements at density >= 0.5 (the level of the design mesh) plus every "
+    "passive solid region whole, minus the void regions, re-analysed for every load case; "
+    "the optimiser's figures of the grey density field are under 'optimizer'"
 )
+NOTES = {
+    "max_displacement_mm": "the largest nodal displacement magnitude (not along any direction)",
+    "deflections": "mean displacement of the named nodes along the stated direction",
+    "max_von_mises_MPa": (
+        "von Mises stress at element centres of the printed part; peaks at holes, fillets, "
+        "point loads, supports and re-entrant corners depend on the grid and are not "
+        "converged: verify with a body-fitted analysis before sign-off"
+    ),
+    "safety_factor": "yield strength over max_von_mises_MPa",
+    "optimizer.peak_relaxed_stress_MPa": (
+        "largest density^0.5 times the solid-material stress over all elements of the grey "
+        "field (what a stress_limit constrains)"
+    ),
+    "compliance_gap": "(printed - optimiser) / optimiser weighted compliance",
+}
 
 
 def summarize(result, analysis_only: bool = False) -> dict:
-    """The figures of a Result (run_summary adds those of its design mesh). Every
-    number is finite, so the summary is strict JSON."""
-    problem, model, a = result.problem, result.model, result.analysis
-    rho = result.density.ravel()
+    """The figures of a Result (run_summary adds those of its design mesh). The
+    headline figures are those of the printed part (result.printed); the
+    optimiser's figures of the grey field stand under "optimizer" and beside each
+    load case. Every number is finite or null, so the summary is strict JSON."""
+    problem, model = result.problem, result.model
     dom, mat = problem.domain, problem.material
-    active = model.active
-    solid = rho >= SOLID
-    weights = np.array([c.weight for c in problem.load_cases])
-    vm = np.where(solid[:, None], a.von_mises, 0.0)
-    # the measure a stress_limit constrains; ρ^q of a round-off negative density is NaN
-    relaxed = relax(np.maximum(rho, 0.0), a.von_mises)
-    yield_strength = mat.yield_strength
-    cases = []
-    for i, case in enumerate(problem.load_cases):
-        peak_i = float(vm[:, i].max()) if solid.any() else None
-        cases.append(
-            {
-                "name": case.name,
-                "weight": case.weight,
-                "compliance_Nmm": float(a.compliances[i]),
-                "max_displacement_mm": float(a.max_displacement[i]),
-                "max_von_mises_MPa": peak_i,
-                "peak_relaxed_stress_MPa": float(relaxed[:, i].max()),
-                "safety_factor": (yield_strength / peak_i) if yield_strength and peak_i else None,
-            }
-        )
-    peak = max((c["max_von_mises_MPa"] or 0.0) for c in cases) if solid.any() else None
-    volume_mm3 = dom.element_volume * float(rho.sum())
-    by_direction = unsupported_by_direction(result.density)
-    summary = {
+    rho = np.clip(result.density.ravel(), 0.0, 1.0)  # round-off negatives: ρ^q is NaN
+    figures = sign_off(result)
+    printed, grey = figures["printed"], figures["optimizer"]
+    relaxed = relax(rho, result.analysis.von_mises)  # the measure a stress_limit constrains
+    grey["peak_relaxed_stress_MPa"] = finite_or_none(relaxed.max())
+    for case, grey_case in zip(printed["load_cases"], grey["load_cases"]):
+        case["optimizer"] = {
+            k: grey_case[k] for k in ("compliance_Nmm", "max_displacement_mm", "max_von_mises_MPa")
+        }
+    printed_density = result.printed.density
+    by_direction = unsupported_by_direction(printed_density)
+    return {
         "name": problem.name,
         "description": problem.description,
         "dimension": problem.dim,
@@ -70,32 +74,37 @@ def summarize(result, analysis_only: bool = False) -> dict:
             "density_kg_m3": mat.density,
             "yield_strength_MPa": mat.yield_strength,
         },
-        "volume_fraction": float(rho[active].mean()) if active.any() else None,
+        "figures_of": PRINTED_NOTE,
+        "volume_fraction": printed["volume_fraction"],
         "volume_fraction_target": None if analysis_only else problem.optimization.volume_fraction,
-        "domain_solid_fraction": float(solid.mean()),
-        "volume_mm3": volume_mm3,
-        "mass_kg": volume_mm3 * 1e-9 * mat.density,
-        "solid_mass_kg": dom.element_volume * float(solid.sum()) * 1e-9 * mat.density,
-        "compliance_Nmm": float(weights @ a.compliances),
-        "load_cases": cases,
-        "max_von_mises_MPa": peak,
-        "safety_factor": (yield_strength / peak) if yield_strength and peak else None,
+        "volume_mm3": printed["volume_mm3"],
+        "mass_kg": printed["mass_kg"],
+        "compliance_Nmm": printed["compliance_Nmm"],
+        "load_cases": printed["load_cases"],
+        "max_von_mises_MPa": printed["max_von_mises_MPa"],
+        "safety_factor": printed["safety_factor"],
+        "required_safety_factor": problem.checks.safety_factor,
+        "deflections": figures["deflections"],
+        "optimizer": grey,
+        "compliance_gap": figures["compliance_gap"],
+        "printed_part": figures["printed_part"],
+        "interfaces": figures["interfaces"],
+        "enclosed_cavities": figures["enclosed_cavities"],
         "stress_limit_MPa": problem.optimization.stress_limit,
-        "peak_relaxed_stress_MPa": float(relaxed.max()),
-        "stress_note": STRESS_NOTE,
+        "notes": NOTES,
         "iterations": len(result.history),
         "converged": bool(result.converged),
         "stop_reason": result.stop_reason,
         "runtime_s": round(result.runtime_s, 3),
         "solver": model.system.name,
         "build_direction": problem.build.direction if problem.build else None,
-        "passive_regions": _passive_report(result, solid),
         "overhang_filter": bool(problem.build and problem.build.overhang_filter),
-        "unsupported_fraction": by_direction[problem.build.direction] if problem.build else None,
+        "unsupported_fraction": figures["unsupported_fraction"],
         "unsupported_by_direction": by_direction,
+        "checks": figures["checks"],
+        "checks_failed": failed(figures["checks"]),
         "caution": CAUTION,
     }
-    return summary
 
 
 def run_summary(result, surface: DesignSurface | None = None) -> dict:
@@ -104,7 +113,10 @@ def run_summary(result, surface: DesignSurface | None = None) -> dict:
     `surface`, its design mesh. The Result is left as it is."""
     base = dict(result.summary) if result.summary else summarize(result)
     if surface is not None:
-        base["mesh"] = mesh_figures(surface, result.problem)
+        mesh = mesh_figures(surface, result.problem)
+        # cross-check of the printed mass: the smooth surface cuts the voxel corners
+        mesh["volume_gap_to_printed"] = relative_gap(mesh["volume_mm3"], base["volume_mm3"])
+        base["mesh"] = mesh
     return base
 
 
@@ -164,23 +176,6 @@ def mesh_figures(surface: DesignSurface, problem) -> dict:
         info["downfacing_overhang_area_mm2"] = down
         info["downfacing_overhang_fraction"] = down / area if area > 0 else None
     return info
-
-
-def _passive_report(result, solid: np.ndarray) -> list[dict]:
-    """How much of each passive region the final design keeps solid. The overhang
-    layer acts on passive solids too, so an unsupported part of one is not printed."""
-    out = []
-    for i, (p, elems) in enumerate(zip(result.problem.passives, result.model.passive_elements)):
-        out.append(
-            {
-                "key": f"passive[{i}]",
-                "name": p.name,
-                "kind": p.kind,
-                "elements": int(len(elems)),
-                "solid_share": float(solid[elems].mean()),
-            }
-        )
-    return out
 
 
 def _unsupportable(model) -> list[dict]:
@@ -277,15 +272,46 @@ def format_progress(row: dict) -> list[str]:
     return lines
 
 
+def _num(value, fmt: str = ".4g", unit: str = "") -> str:
+    return "n/a" if value is None else f"{value:{fmt}}{unit}"
+
+
 def format_cases(summary: dict) -> list[str]:
+    """Per load case: the printed part's figures, the optimiser's compliance beside them."""
     lines = []
     for case in summary["load_cases"]:
-        vm = case["max_von_mises_MPa"]
-        lines.append(
-            f"  load case {case['name']}: compliance {case['compliance_Nmm']:.6g} N·mm, "
-            f"max displacement {case['max_displacement_mm']:.4g} mm"
-            + (f", max von Mises {vm:.4g} MPa" if vm is not None else "")
+        gap = case.get("compliance_gap")
+        grey = case.get("optimizer", {}).get("compliance_Nmm")
+        beside = (
+            f" (optimiser {_num(grey, '.6g')}, {100 * gap:+.1f} %)"
+            if gap is not None and grey is not None
+            else ""
         )
+        lines.append(
+            f"  load case {case['name']}: compliance {_num(case['compliance_Nmm'], '.6g')} N·mm"
+            f"{beside}, largest displacement {_num(case['max_displacement_mm'])} mm (magnitude), "
+            f"max von Mises {_num(case['max_von_mises_MPa'])} MPa, "
+            f"safety factor {_num(case['safety_factor'], '.3g')}"
+        )
+        for name, value in case.get("deflections_mm", {}).items():
+            lines.append(f"    deflection {name}: {_num(value)} mm")
+    return lines
+
+
+def format_checks(summary: dict) -> list[str]:
+    """The PASS/FAIL table and a closing verdict."""
+    rows = summary["checks"]
+    lines = ["checks (printed part):"]
+    for r in rows:
+        value = "" if r["value"] is None else f" {_num(r['value'])}"
+        limit = "" if r["limit"] is None else f" (limit {_num(r['limit'])})"
+        lines.append(f"  {r['status']:<4}  {r['name']:<20}{value}{limit}: {r['detail']}")
+    bad = summary["checks_failed"]
+    lines.append(
+        f"{len(bad)} of {len(rows)} checks FAILED: {', '.join(bad)}; do not hand this design on"
+        if bad
+        else "all checks passed (no check replaces a qualified verification)"
+    )
     return lines
 
 
@@ -300,42 +326,53 @@ def format_mesh(m: dict, fmt: str) -> str:
 
 
 def format_run(s: dict, mesh_format: str) -> list[str]:
-    """The outcome of a run from its summary.json."""
+    """The outcome of a run from its summary.json: the printed part first."""
+    grey = s["optimizer"]
+    gap = s["compliance_gap"]
     lines = [
         f"{'converged' if s['converged'] else 'stopped'} after {s['iterations']} iterations "
         f"in {s['runtime_s']:.1f} s (solver {s['solver']}): {s['stop_reason']}",
-        f"  compliance {s['compliance_Nmm']:.6g} N·mm, volume fraction {s['volume_fraction']:.4f}, "
-        f"mass {s['mass_kg']:.4g} kg",
+        "printed part (density >= 0.5, interfaces whole), re-analysed:",
+        f"  mass {_num(s['mass_kg'])} kg, volume fraction {_num(s['volume_fraction'], '.4f')}, "
+        f"compliance {_num(s['compliance_Nmm'], '.6g')} N·mm; optimiser's grey design: "
+        f"mass {_num(grey['mass_kg'])} kg, compliance {_num(grey['compliance_Nmm'], '.6g')} N·mm"
+        + (f" ({100 * gap:+.1f} %)" if gap is not None else ""),
     ]
     lines += format_cases(s)
     if s["build_direction"]:
         lines.append(
-            f"  unsupported fraction {s['unsupported_fraction']:.4f} "
+            f"  unsupported fraction {_num(s['unsupported_fraction'], '.4f')} "
             f"building {s['build_direction']}"
             f" (overhang filter {'on' if s['overhang_filter'] else 'off'})"
         )
-    for r in s["passive_regions"]:
-        if r["kind"] == "solid" and r["solid_share"] < 0.999:
+    for r in s["interfaces"]:
+        if r["solid_share"] < 1.0 or r["downfacing_area_mm2"]:
             lines.append(
-                f"  note: only {100 * r['solid_share']:.1f} % of solid region {r['name']} is "
-                "printed solid (the rest is not self-supporting)"
+                f"  interface {r['name']}: {100 * r['solid_share']:.1f} % solid in the optimiser's "
+                f"design, printed whole; needs {_num(r['downfacing_area_mm2'])} mm² of support "
+                f"({_num(r['support_volume_mm3'])} mm³)"
             )
     best = min(s["unsupported_by_direction"], key=s["unsupported_by_direction"].get)
     lines.append(
-        f"  best build direction for this design: {best} "
+        f"  best build direction for this printed part as it is: {best} "
         f"(unsupported fraction {s['unsupported_by_direction'][best]:.4f})"
     )
     if "mesh" in s:
         lines.append(format_mesh(s["mesh"], mesh_format))
-    return lines
+    return lines + format_checks(s)
 
 
 def format_analysis(s: dict, design: str | None) -> list[str]:
     """The figures of `topo analyze`: of the design file `design`, or of the full domain."""
-    return [
-        f"{s['name']}: analysis of {'the design ' + design if design else 'the full domain'}",
-        f"  compliance {s['compliance_Nmm']:.6g} N·mm, mass {s['mass_kg']:.4g} kg",
-    ] + format_cases(s)
+    return (
+        [
+            f"{s['name']}: analysis of {'the design ' + design if design else 'the full domain'}"
+            " as printed (density >= 0.5, interfaces whole)",
+            f"  compliance {_num(s['compliance_Nmm'], '.6g')} N·mm, mass {_num(s['mass_kg'])} kg",
+        ]
+        + format_cases(s)
+        + format_checks(s)
+    )
 
 
 def format_check(rep: dict) -> list[str]:
