@@ -140,3 +140,16 @@ def test_printed_density_keeps_passive_solids_whole_and_voids_empty():
     assert p[:3].all() and p[15:].all() and not p[5:7].any() and not p[3:5].any()
     assert relative_gap(110.0, 100.0) == pytest.approx(0.1)
     assert relative_gap(1.0, 0.0) is None
+
+
+def test_printed_part_drops_floating_debris_but_keeps_interfaces():
+    d = beam_problem(2, [40.0, 10.0], 1.0)
+    d["passive"] = [{"kind": "solid", "region": {"box": {"min": [39, 9], "max": [40, 10]}}}]
+    model = Model(problem_from_dict(d))
+    grey = np.zeros(model.grid.shape)
+    grey[:30, 1:9] = 1.0  # the part, 240 elements
+    grey[35, 0] = 0.9  # one floating element: under 1 % of the part, debris
+    grey[32:36, 4:8] = 0.8  # a floating block of 16 elements: not debris, kept (and flagged)
+    p = printed_density(grey, model)
+    assert p[:30, 1:9].all() and p[35, 0] == 0.0 and p[32:36, 4:8].all()
+    assert p[39, 9] == 1.0  # the passive solid stays though it floats

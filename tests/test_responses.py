@@ -49,13 +49,19 @@ def at(model, chain, responses, x):
     ],
 )
 def test_every_response_gradient_matches_finite_differences(opt, rng):
-    model, chain, responses = setup(two_cases(**opt))
+    d = two_cases(**opt)
+    limited = opt.get("optimizer") == "mma"
+    if limited:  # a deflection limit at the tip along -y, every load case
+        d["deflection"] = [
+            {"name": "tip", "region": {"point": [8.0, 2.0]}, "direction": "-y", "limit": 0.1}
+        ]
+    model, chain, responses = setup(d)
     x = rng.uniform(0.2, 0.9, model.grid.n_elements)
     ev = at(model, chain, responses, x)
     terms = [r for r in [ev.objective, *ev.bounds, *ev.constraints] if r.gradient is not None]
     assert [r.name for r in ev.constraints] == ["material"] + (
         ["stress"] if "stress_limit" in opt else []
-    )
+    ) + (["deflection[tip, tip]", "deflection[tip, side]"] if limited else [])
     assert len(ev.bounds) == (2 if opt.get("objective") == "worst_case" else 0)
 
     def values(xx):

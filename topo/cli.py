@@ -97,6 +97,7 @@ def cmd_run(args, outputs: Outputs) -> int:
         callback=None if args.quiet else _progress,
         checkpoint=checkpoint,
         resume=bool(args.resume),
+        allow_unreachable=args.allow_unreachable,
     )
     s = export(result, out, iso=args.iso, smooth=args.smooth, mesh_format=args.mesh_format).summary
     if checkpoint.exists():
@@ -105,6 +106,9 @@ def cmd_run(args, outputs: Outputs) -> int:
     if s["stop_reason"].startswith("numerical fault"):
         print(f"error: {s['stop_reason']}", file=sys.stderr)
         return 1
+    if args.strict and s["checks_failed"]:
+        print(f"error: checks failed: {', '.join(s['checks_failed'])} (--strict)", file=sys.stderr)
+        return 3
     return 0
 
 
@@ -225,6 +229,16 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--force", action="store_true", help="run even when the memory estimate exceeds free memory"
     )
+    p.add_argument(
+        "--strict",
+        action="store_true",
+        help="exit with status 3 when any check of the printed part fails",
+    )
+    p.add_argument(
+        "--allow-unreachable",
+        action="store_true",
+        help="go on when no self-supporting material can reach a load or support region",
+    )
     p.add_argument("--out", help="output folder (default outputs/NAME)")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
     mesh_options(p)
@@ -287,7 +301,8 @@ def mesh_options(p, format_flag: str = "--mesh-format") -> None:
 
 def main(argv: list[str] | None = None) -> int:
     """Exit codes: 0 success, 2 input error (one message, no traceback), 1 internal
-    error (the traceback goes to error.log in the output folder)."""
+    error (the traceback goes to error.log in the output folder), 3 a check of the
+    printed part failed under `run --strict`."""
     args = build_parser().parse_args(argv)
     outputs = Outputs()
     try:

@@ -20,6 +20,7 @@ from .checkpoint import Checkpoint, LoopState
 from .continuation import Continuation
 from .fem import Analysis, Model
 from .optimizers import make_optimizer
+from .printability import unreachable
 from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
 from .responses import Evaluation, Responses
@@ -70,6 +71,7 @@ def optimize(
     checkpoint: str | Path | None = None,
     resume: bool = False,
     optimizer: Callable | None = None,
+    allow_unreachable: bool = False,
 ) -> Result:
     """Run the design loop.
 
@@ -82,20 +84,77 @@ def optimize(
         uninterrupted run would.
     optimizer: a factory with the arguments of `optimizers.make_optimizer`
         (settings, active, n_bounds, n_constraints), in its place.
+    allow_unreachable: go on when a load or support region cannot be reached by
+        self-supporting material in the build direction (refused by default).
     A NaN or infinity in the solve or the update stops the run with the last good
     design, `converged` false and the fault in `stop_reason`.
+
+    >>> from topo.problem import problem_from_dict
+    >>> p = problem_from_dict({"domain": {"size": [12.0, 4.0], "element_size": 1.0,
+    ...     "thickness": 1.0}, "material": {"preset": "316L"},
+    ...     "optimization": {"volume_fraction": 0.5, "max_iterations": 5},
+    ...     "support": [{"region": {"face": "x-min"}}],
+    ...     "load_case": [{"force": [{"region": {"point": [12, 2]}, "total": [0, -10]}]}]})
+    >>> r = optimize(p)
+    >>> r.density.shape, len(r.history), r.summary["checks"][0]["name"]
+    ((12, 4), 5, 'load_path')
     """
     with blas_for_solver():
         return _optimize(
-            problem, callback, Timer(timer), checkpoint, resume, optimizer or make_optimizer
+            problem,
+            callback,
+            Timer(timer),
+            checkpoint,
+            resume,
+            optimizer or make_optimizer,
+            allow_unreachable,
         )
 
 
-def _optimize(problem: Problem, callback, timer: Timer, checkpoint, resume, make) -> Result:
+def unreachable_regions(model: Model) -> list[str]:
+    """Load and support regions that no self-supporting design can reach from the
+    build plate (void regions block every 45° path to them). Empty without a build
+    direction or with the overhang filter off (then supports can be added)."""
+    build = model.problem.build
+    if build is None or not build.overhang_filter:
+        return []
+    grid = model.grid
+
+    def touching(nodes):
+        mark = np.zeros(grid.n_nodes, dtype=bool)
+        mark[nodes] = True
+        return mark[grid.element_nodes].any(axis=1) & ~model.void
+
+    regions = {
+        f"support {s.name}": touching(n)
+        for s, n in zip(model.problem.supports, model.support_nodes)
+    }
+    regions |= {f"load {name}": touching(n) for name, n in model.load_nodes}
+    return unreachable(model.void.reshape(grid.shape), build.direction, regions)
+
+
+def _refuse_unreachable(problem: Problem, model: Model) -> None:
+    cut = unreachable_regions(model)
+    if cut:
+        raise ProblemError(
+            problem.source,
+            "build.direction",
+            f"building {problem.build.direction}, no self-supporting material can reach "
+            f"{', '.join(cut)}: void regions block every 45° path from the plate, so the "
+            "design cannot join them to the part. Choose another build direction, or go on "
+            "anyway (--allow-unreachable; the load-path check will fail)",
+        )
+
+
+def _optimize(
+    problem: Problem, callback, timer: Timer, checkpoint, resume, make, allow_unreachable
+) -> Result:
     from .report import summarize
 
     start, opt = time.perf_counter(), problem.optimization
     model = Model(problem)
+    if not allow_unreachable:
+        _refuse_unreachable(problem, model)
     chain, projection = build_chain(problem, model)
     if not model.active.any():
         raise ProblemError(

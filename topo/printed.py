@@ -19,7 +19,6 @@ from scipy import ndimage
 
 from .printability import SOLID
 
-
 # Pieces smaller than this share of the largest piece are floating debris, dropped
 # from the printed part as from the design mesh (mesh.remove_debris).
 DEBRIS_FRACTION = 0.01

@@ -91,7 +91,20 @@ class WorstCaseCompliance:
         return worst, bounds
 
 
-class MaterialBudget:
+class Term:
+    """A constraint term; those that carry state between iterations (the stress
+    correction) save and restore it for checkpoints."""
+
+    name = "term"
+
+    def state(self) -> dict:
+        return {}
+
+    def restore(self, state: dict) -> None:
+        """Nothing to restore."""
+
+
+class MaterialBudget(Term):
     """w·ρ ≤ target. volume_fraction: w averages ρ over the design elements.
     mass_limit: w is each element's mass at full density, over all elements, so
     passive solids count (and so does any part of them the overhang layer removes).
@@ -137,7 +150,7 @@ class MaterialBudget:
         )
 
 
-class StressLimit:
+class StressLimit(Term):
     """c_k·σ_PN/σ_limit − 1 ≤ 0 on the p-norm of the relaxed stress, with the
     adaptive correction c_k of Le et al. (2010, Struct. Multidisc. Optim. 41:605):
     the latest ratio of the true peak to the aggregate blended with the previous
@@ -173,11 +186,41 @@ class StressLimit:
         self.correction = None if c is None or np.isnan(c) else float(c)
 
 
+class DeflectionLimit(Term):
+    """(δ/δ_lim)² − 1 ≤ 0 for one probe and one load case: |δ| ≤ δ_lim along the
+    probe's direction, with the adjoint gradient of deflection.py (one extra solve
+    with the factorised matrix per limited probe and case)."""
+
+    def __init__(self, model, probe, case: int):
+        self.model, self.probe, self.case = model, probe, case
+        self.name = f"deflection[{probe.name}, {model.problem.load_cases[case].name}]"
+
+    def evaluate(self, rho, analysis, gradient: bool = True) -> Response:
+        from .deflection import deflection_gradient, deflections
+
+        limit = self.probe.limit**2
+        if not gradient:
+            return Response(
+                self.name, deflections(self.probe, analysis.displacements)[self.case] ** 2, limit
+            )
+        delta, d_delta = deflection_gradient(self.model, rho, analysis, self.probe, self.case)
+        return Response(self.name, delta**2, limit, gradient=2.0 * delta * d_delta)
+
+
 def constraint_terms(problem: Problem, model, chain) -> list:
-    """The constraints of a problem, the material budget first."""
+    """The constraints of a problem, the material budget first. Deflection limits
+    are constraints for MMA and GCMMA; OC takes the budget only (the limits are
+    then checked on the printed part, problem.py warns)."""
     terms = [MaterialBudget(problem, model, chain)]
     if problem.optimization.stress_limit is not None:
         terms.append(StressLimit(model, problem.optimization.stress_limit))
+    if problem.optimization.optimizer != "oc":
+        terms += [
+            DeflectionLimit(model, probe, case)
+            for probe in model.probes
+            if probe.limit is not None
+            for case in probe.cases
+        ]
     return terms
 
 
@@ -224,15 +267,9 @@ class Responses:
         )
 
     def state(self) -> dict:
-        return {
-            f"{t.name}_{k}": v
-            for t in self.constraints
-            if hasattr(t, "state")
-            for k, v in t.state().items()
-        }
+        return {f"{t.name}_{k}": v for t in self.constraints for k, v in t.state().items()}
 
     def restore(self, state: dict) -> None:
         for t in self.constraints:
-            if hasattr(t, "restore"):
-                prefix = f"{t.name}_"
-                t.restore({k[len(prefix) :]: v for k, v in state.items() if k.startswith(prefix)})
+            prefix = f"{t.name}_"
+            t.restore({k[len(prefix) :]: v for k, v in state.items() if k.startswith(prefix)})
