@@ -73,12 +73,41 @@ def test_dask_local_cluster_gives_the_same_rows(tmp_path):
 
 def test_pareto_marks_runs_not_dominated():
     rows = [
-        {"mass_kg": 1.0, "compliance_Nmm": 10.0},
-        {"mass_kg": 2.0, "compliance_Nmm": 5.0},
-        {"mass_kg": 2.5, "compliance_Nmm": 6.0},
-        {"mass_kg": 0.5, "compliance_Nmm": 20.0},
+        {"mass_kg": 1.0, "compliance_Nmm": 10.0, "checks_failed": ""},
+        {"mass_kg": 2.0, "compliance_Nmm": 5.0, "checks_failed": ""},
+        {"mass_kg": 2.5, "compliance_Nmm": 6.0, "checks_failed": ""},
+        {"mass_kg": 0.5, "compliance_Nmm": 20.0, "checks_failed": ""},
     ]
     assert pareto(rows) == [True, True, False, True]
+
+
+def test_a_design_that_fails_a_check_is_never_on_the_front():
+    # The lightest and stiffest run is disconnected: it must neither stand on the
+    # front nor push the sound designs off it.
+    rows = [
+        {"mass_kg": 1.0, "compliance_Nmm": 10.0, "checks_failed": ""},
+        {"mass_kg": 2.0, "compliance_Nmm": 5.0, "checks_failed": ""},
+        {"mass_kg": 0.4, "compliance_Nmm": 1.0, "checks_failed": "load_path"},
+        {"mass_kg": 0.5, "compliance_Nmm": None, "checks_failed": "compliance_gap"},
+    ]
+    assert pareto(rows) == [True, True, False, False]
+
+
+def test_sweep_over_build_directions_keeps_unreachable_designs_off_the_front(tmp_path):
+    # Grown in +y a keep-out band across the width cuts the tip load off from the
+    # plate; the sweep runs it anyway and its load-path check fails.
+    d = beam_problem(2, [24.0, 12.0], 1.0, max_iterations=15, beta_interval=5)
+    d["name"] = "sweep-directions"
+    d["build"] = {"direction": "+x"}
+    d["passive"] = [{"kind": "void", "region": {"box": {"min": [0.0, 4.0], "max": [24.0, 6.0]}}}]
+    d["load_case"][0]["force"][0]["region"] = {"point": [24.0, 9.0]}
+    rows = sweep(problem_from_dict(d), {"build.direction": ["+x", "+y"]}, out=tmp_path)
+    plus_y = rows[1]
+    assert "load_path" in plus_y["checks_failed"].split()
+    assert pareto(rows)[1] is False
+    with open(tmp_path / "sweep.csv") as fh:
+        table = list(csv.DictReader(fh))
+    assert "load_path" in table[1]["checks_failed"] and table[1]["pareto"] == "False"
 
 
 def test_sweep_command(tmp_path, capsys):

@@ -59,7 +59,9 @@ def run_one(
     if blas_threads:
         _limit_blas(blas_threads)
     problem = problem_from_dict(raw, params, source=source)
-    written = export(optimize(problem), out_dir)
+    # a direction that cannot reach a load still runs: its failing load-path check
+    # keeps it off the trade-off front, and the table says why
+    written = export(optimize(problem, allow_unreachable=True), out_dir)
     return row_of(params, written.summary, out_dir, ran=True)
 
 
@@ -70,13 +72,20 @@ def row_of(params: dict, summary: dict, out_dir: str, ran: bool) -> dict:
             "mass_kg": summary["mass_kg"],
             "volume_fraction": summary["volume_fraction"],
             "compliance_Nmm": summary["compliance_Nmm"],
+            "optimizer_compliance_Nmm": summary["optimizer"]["compliance_Nmm"],
+            "compliance_gap": summary["compliance_gap"],
         }
     )
     for case in summary["load_cases"]:
         row[f"compliance_{case['name']}_Nmm"] = case["compliance_Nmm"]
-    row["max_displacement_mm"] = max(c["max_displacement_mm"] for c in summary["load_cases"])
+        for name, value in case["deflections_mm"].items():
+            row[f"deflection_{name}_{case['name']}_mm"] = value
+    row["max_displacement_mm"] = _largest(c["max_displacement_mm"] for c in summary["load_cases"])
     row.update(
         {
+            "max_von_mises_MPa": summary["max_von_mises_MPa"],
+            "safety_factor": summary["safety_factor"],
+            "checks_failed": " ".join(summary["checks_failed"]),
             "unsupported_fraction": summary["unsupported_fraction"],
             "iterations": summary["iterations"],
             "converged": summary["converged"],
@@ -86,6 +95,11 @@ def row_of(params: dict, summary: dict, out_dir: str, ran: bool) -> dict:
         }
     )
     return row
+
+
+def _largest(values) -> float | None:
+    found = [v for v in values if v is not None]
+    return max(found) if found else None
 
 
 def _finished(expected: dict, out_dir: Path) -> dict | None:
@@ -99,8 +113,16 @@ def _finished(expected: dict, out_dir: Path) -> dict | None:
     return json.loads(summary.read_text())
 
 
+def eligible(row: dict) -> bool:
+    """A design that may stand on the trade-off front: every check of its printed
+    part passed and its figures are finite."""
+    return not row["checks_failed"] and row["compliance_Nmm"] is not None
+
+
 def pareto(rows: list[dict]) -> list[bool]:
-    """True for each run that no other run beats on both mass and compliance."""
+    """True for each eligible run that no other eligible run beats on both mass and
+    compliance of the printed part; a design that fails a check is never on the front."""
+    ok = [r for r in rows if eligible(r)]
     out = []
     for r in rows:
         dominated = any(
@@ -108,9 +130,9 @@ def pareto(rows: list[dict]) -> list[bool]:
             and o["mass_kg"] <= r["mass_kg"]
             and o["compliance_Nmm"] <= r["compliance_Nmm"]
             and (o["mass_kg"] < r["mass_kg"] or o["compliance_Nmm"] < r["compliance_Nmm"])
-            for o in rows
+            for o in ok
         )
-        out.append(not dominated)
+        out.append(eligible(r) and not dominated)
     return out
 
 
@@ -153,9 +175,14 @@ def sweep(
         nonlocal finished
         rows[i] = row
         finished += 1
+        compliance = row["compliance_Nmm"]
+        verdict = (
+            f"checks FAILED: {row['checks_failed']}" if row["checks_failed"] else "checks passed"
+        )
         say(
-            f"[{finished}/{len(combos)}] {Path(row['folder']).name}: "
-            f"compliance {row['compliance_Nmm']:.5g} N·mm, mass {row['mass_kg']:.4g} kg, "
+            f"[{finished}/{len(combos)}] {Path(row['folder']).name}: printed part "
+            f"compliance {'n/a' if compliance is None else f'{compliance:.5g}'} N·mm, "
+            f"mass {row['mass_kg']:.4g} kg, {verdict}; "
             f"{row['iterations']} iterations, {row['runtime_s']:.1f} s"
         )
 
@@ -203,11 +230,14 @@ def write_table(rows: list[dict], path: Path) -> None:
 def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
     plt = pyplot()
 
-    best = pareto(rows)
+    best = np.array(pareto(rows))
+    failing = np.array([not eligible(r) for r in rows])
     fig, ax = plt.subplots(figsize=(6.4, 4.4))
-    mass = np.array([r["mass_kg"] for r in rows])
-    comp = np.array([r["compliance_Nmm"] for r in rows])
-    ax.scatter(mass[~np.array(best)], comp[~np.array(best)], color="tab:gray", label="dominated")
+    mass = np.array([r["mass_kg"] for r in rows], dtype=float)
+    comp = np.array([np.nan if r["compliance_Nmm"] is None else r["compliance_Nmm"] for r in rows])
+    dominated = ~best & ~failing
+    ax.scatter(mass[dominated], comp[dominated], color="tab:gray", label="dominated")
+    ax.scatter(mass[failing], comp[failing], color="tab:gray", marker="x", label="a check failed")
     ax.scatter(mass[best], comp[best], color="tab:red", label="not dominated")
     order = np.argsort(mass[best])
     ax.plot(mass[best][order], comp[best][order], color="tab:red", lw=1)
@@ -219,8 +249,8 @@ def write_plot(rows: list[dict], keys: list[str], path: Path) -> None:
             textcoords="offset points",
             xytext=(4, 4),
         )
-    ax.set_xlabel("mass (kg)")
-    ax.set_ylabel("weighted compliance (N·mm)")
+    ax.set_xlabel("mass of the printed part (kg)")
+    ax.set_ylabel("weighted compliance of the printed part (N·mm)")
     ax.set_title("trade-off: stiffness against mass")
     ax.legend(fontsize=8)
     write_figure(path, fig)
