@@ -1,9 +1,11 @@
 """Whether a printed design holds together: load paths and enclosed cavities.
 
-Both work on the 0/1 element field of the printed part with face connectivity
-(4 neighbours in 2D, 6 in 3D). Elements that meet only at an edge or a corner are
-not counted as joined: the finite-element model would pass load through that
-single node or edge, but the printed part has no section there.
+Both work on the 0/1 element field of the printed part. A load path needs face
+connectivity (4 neighbours in 2D, 6 in 3D): elements that meet only at an edge or
+a corner are not counted as joined, since the finite-element model would pass
+load through that single node or edge while the printed part has no section
+there. A piece counts as loose only when it does not touch the supported part at
+all, not even at a corner (as the printed part's debris rule, printed.py).
 """
 
 from __future__ import annotations
@@ -40,15 +42,21 @@ def load_path(
     """printed: 0/1 field (grid shape); supports: node sets of the supports; loads:
     (name, node set) of every load region."""
     solid = np.asarray(printed) > 0.5
-    labels, n = ndimage.label(solid)
-    flat = labels.ravel()
 
-    def reached(nodes: np.ndarray) -> set[int]:
-        return set(np.unique(flat[_elements_at_nodes(grid, nodes)])) - {0}
+    def pieces(structure):
+        labels, n = ndimage.label(solid, structure=structure)
+        flat = labels.ravel()
 
-    supported = set().union(*(reached(s) for s in supports)) if supports else set()
-    cut = [name for name, nodes in loads if not (reached(nodes) & supported)]
-    loose = [k for k in range(1, n + 1) if k not in supported]
+        def reached(nodes: np.ndarray) -> set[int]:
+            return set(np.unique(flat[_elements_at_nodes(grid, nodes)])) - {0}
+
+        held = set().union(*(reached(s) for s in supports)) if supports else set()
+        return flat, n, reached, held
+
+    _, _, reached, held = pieces(None)  # face connectivity
+    cut = [name for name, nodes in loads if not (reached(nodes) & held)]
+    flat, n, _, held = pieces(ndimage.generate_binary_structure(solid.ndim, solid.ndim))
+    loose = [k for k in range(1, n + 1) if k not in held]
     sizes = ndimage.sum_labels(np.ones_like(flat), flat, loose) if loose else np.zeros(0)
     return LoadPath(
         not cut and not loose, cut, int(n), len(loose), float(np.sum(sizes) * element_volume)

@@ -26,12 +26,15 @@ DEBRIS_FRACTION = 0.01
 
 def printed_density(density: np.ndarray, model) -> np.ndarray:
     """0/1 field of the printed part, grid shape: ρ ≥ 0.5, passive solids whole,
-    void regions empty, floating debris dropped (face-connected pieces under
-    DEBRIS_FRACTION of the largest that hold no passive solid)."""
+    void regions empty, floating debris dropped: pieces under DEBRIS_FRACTION of
+    the largest that hold no passive solid, where elements touching at an edge or a
+    corner count as one piece (so an element that rests diagonally on the part and
+    supports the layer above it stays; the load-path check is stricter)."""
     shape = np.shape(density)
     flat = np.asarray(density, dtype=float).ravel()
     solid = ((flat >= SOLID) | model.solid) & ~model.void
-    labels, n = ndimage.label(solid.reshape(shape))
+    touching = ndimage.generate_binary_structure(len(shape), len(shape))
+    labels, n = ndimage.label(solid.reshape(shape), structure=touching)
     if n > 1:
         labels = labels.ravel()
         sizes = np.bincount(labels)[1:]
