@@ -23,7 +23,10 @@ def mbb(**opt):
             "filter_radius": 2.4,
             "projection": False,
             "max_iterations": 500,
-            "tolerance": 0.01,
+            # 88-line code stops at max |Δx| < 0.01; our measure, ‖Δρ‖₂/‖ρ‖₂, is below
+            # 0.01 from about iteration 28 here (c ≈ 240, 2.7 % above the converged
+            # value) and below 0.001 from about iteration 77 (c within 0.5 %)
+            "tolerance": 0.001,
             **opt,
         },
         "support": [
@@ -100,7 +103,7 @@ def test_mbb_classical_fixed_move_oc_reproduces_88_line_result():
 def test_projected_mbb_run_stops_on_the_density_change():
     # With a sharp projection a few boundary elements keep flipping and max |Δx|
     # stays at the move limit; the density change must still end the run.
-    d = mbb(projection=True, max_iterations=300)
+    d = mbb(projection=True, max_iterations=300, tolerance=0.01)
     r = optimize(problem_from_dict(d))
     assert r.converged and r.stop_reason == "design change below tolerance"
     assert len(r.history) < 300

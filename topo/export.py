@@ -33,12 +33,11 @@ def write_density(result, path: Path) -> None:
 
 def write_history_csv(result, path: Path) -> None:
     buf = io.StringIO()
-    cols = ["iteration", "objective", "volume_fraction", "change", "max_design_change"]
-    cols += ["beta", "seconds"]
+    cols = ["iteration", "objective", "volume_fraction", "change", "beta", "seconds"]
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(cols)
-    for row in result.history:  # rows of runs saved before max_design_change lack it
-        w.writerow(["" if row.get(c) is None else f"{row[c]:.10g}" for c in cols])
+    for row in result.history:
+        w.writerow(["" if row[c] is None else f"{row[c]:.10g}" for c in cols])
     write_text(path, buf.getvalue())
 
 
