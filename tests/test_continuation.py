@@ -1,5 +1,6 @@
 """β continuation and the stopping rules, each outcome."""
 
+import numpy as np
 import pytest
 
 from topo.checkpoint import LoopState
@@ -7,6 +8,7 @@ from topo.continuation import (
     SETTLED_RTOL,
     SETTLED_WINDOW,
     Continuation,
+    density_change,
     objective_settled,
     stop_reason,
 )
@@ -70,3 +72,15 @@ def test_stop_reasons():
 def test_objective_settled(spread, since, expected):
     values = [100.0] * (SETTLED_WINDOW - 1) + [100.0 * (1 + spread)]
     assert objective_settled(rows(values), since) is expected
+
+
+def test_density_change_is_the_relative_l2_norm_over_design_elements():
+    # by hand: one of three solid design elements goes void, ‖Δρ‖ = 1, ‖ρ‖ = √3; the
+    # last element is passive and its change is not counted
+    rho = np.array([1.0, 0.0, 1.0, 1.0, 0.0])
+    new = np.array([1.0, 0.0, 0.0, 1.0, 1.0])
+    active = np.array([True, True, True, True, False])
+    assert density_change(new, rho, active) == pytest.approx(1 / np.sqrt(3))
+    assert density_change(rho, rho, active) == 0.0
+    # no material yet: the absolute norm
+    assert density_change(new, np.zeros(5), active) == pytest.approx(np.sqrt(2))

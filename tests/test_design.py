@@ -23,7 +23,10 @@ def mbb(**opt):
             "filter_radius": 2.4,
             "projection": False,
             "max_iterations": 500,
-            "tolerance": 0.01,
+            # 88-line code stops at max |Δx| < 0.01; our measure, ‖Δρ‖₂/‖ρ‖₂, is below
+            # 0.01 from about iteration 28 here (c ≈ 240, 2.7 % above the converged
+            # value) and below 0.001 from about iteration 77 (c within 0.5 %)
+            "tolerance": 0.001,
             **opt,
         },
         "support": [
@@ -84,13 +87,31 @@ def test_mbb_half_beam_matches_published_compliance():
 def test_mbb_classical_fixed_move_oc_reproduces_88_line_result():
     # The same example with the classical fixed move limit: the update is then the
     # one of the 88-line paper step for step (recalled from memory: c = 233.71).
+    # That code stops at the first max |Δx| below 0.01 and prints the compliance
+    # of the design before that step; our rule is another, so the run goes on and
+    # the row where the paper's rule holds is read from the history.
     from topo.optimizers import OptimalityCriteria
 
     def fixed_move_oc(settings, active, n_bounds, n_constraints):
         return OptimalityCriteria(active, settings.move_limit, adaptive=False)
 
-    r = optimize(problem_from_dict(mbb()), optimizer=fixed_move_oc)
-    assert abs(r.summary["optimizer"]["compliance_Nmm"] / 233.71 - 1) < 0.005
+    r = optimize(problem_from_dict(mbb(tolerance=1e-9)), optimizer=fixed_move_oc)
+    paper_stop = next(row for row in r.history if row["max_design_change"] < 0.01)
+    assert abs(paper_stop["objective"] / 233.71 - 1) < 0.005
+
+
+def test_projected_mbb_run_stops_on_the_density_change():
+    # With a sharp projection a few boundary elements keep flipping and max |Δx|
+    # stays at the move limit; the density change must still end the run.
+    d = mbb(projection=True, max_iterations=300, tolerance=0.01)
+    r = optimize(problem_from_dict(d))
+    assert r.converged and r.stop_reason == "design change below tolerance"
+    assert len(r.history) < 300
+    last = r.history[-1]
+    assert last["beta"] == 32.0
+    assert last["change"] < 0.01
+    assert all(row["change"] >= 0.01 for row in r.history[:-1] if row["beta"] == 32.0)
+    assert max(row["max_design_change"] for row in r.history[-5:]) > 0.01  # x still moving
 
 
 def test_projection_run_meets_volume_and_is_nearly_black_and_white():

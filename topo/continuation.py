@@ -1,14 +1,39 @@
 """β continuation of the Heaviside projection and the stopping rules of the loop.
 
 With projection on, β starts at 1 and doubles every `beta_interval` iterations, or
-earlier once the design change falls below the tolerance, until `beta_max`. The run
-counts as converged only with β at its maximum (or without projection), when the
-design change is below the tolerance or the objective has settled.
+earlier once the density change (density_change) falls below the tolerance, until
+`beta_max`. The run counts as converged only with β at its maximum (or without
+projection), when the density change is below the tolerance or the objective has
+settled.
 """
 
 from __future__ import annotations
 
+import numpy as np
+
 SETTLED_WINDOW, SETTLED_RTOL = 10, 1e-4
+
+
+def density_change(rho_new: np.ndarray, rho: np.ndarray, active: np.ndarray) -> float:
+    """‖ρ_new − ρ‖₂ / ‖ρ‖₂ over the design elements, both ρ at the same β: the change
+    the stopping rule and the early β step compare with `tolerance`.
+
+    Why this measure: the largest change of the design variables x sits at the move
+    limit for the whole run once a sharp projection makes a few boundary elements
+    flip, so it practically never stopped a projected run. Measured at tolerance
+    0.01 (OC, β continuation): the mean |Δρ| is diluted by the void elements (85 % of
+    the 3D demo), fell below 0.01 the moment β reached its maximum and ended the 2D
+    demo at iteration 48 with 6.8 % more compliance than 200 iterations give, and the
+    unprojected MBB beam 7 % above its converged value. The relative L2 norm is
+    scaled by the material present and weighs concentrated changes more (one
+    element flipping 0↔1 on the 60×20 MBB counts 0.04); it ended the 2D demo at
+    iteration 165 (+0.6 % compliance), the 3D demo at 94 (+1.5 % against 150
+    iterations) and the projected MBB at 59 (+1.6 %). Comparing at the same β keeps
+    a β step's own jump in ρ out of the measure.
+    """
+    step = float(np.linalg.norm((rho_new - rho)[active]))
+    size = float(np.linalg.norm(rho[active]))
+    return step / size if size > 0 else step  # no material yet: the absolute change
 
 
 def objective_settled(history: list[dict], since_beta: int) -> bool:

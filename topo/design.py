@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from .checkpoint import Checkpoint, LoopState
-from .continuation import Continuation
+from .continuation import Continuation, density_change
 from .fem import Analysis, Model
 from .optimizers import make_optimizer
 from .printability import unreachable
@@ -176,9 +176,18 @@ def _optimize(
             rho, ev, x = _iterate(state.x, chain, model, responses, optimizer, timer)
             if not (np.isfinite(ev.objective.value) and np.all(np.isfinite(x))):
                 raise FloatingPointError(f"non-finite objective or design at iteration {it}")
-            change = float(np.max(np.abs(x - state.x)[model.active]))
+            with timer("transforms"):  # ρ of the step at the same β: see density_change
+                change = density_change(chain.forward(x), rho, model.active)
+            design_change = float(np.max(np.abs(x - state.x)[model.active]))
             row = _history_row(
-                it, ev, rho, change, continuation.beta, time.perf_counter() - t0, model
+                it,
+                ev,
+                rho,
+                change,
+                design_change,
+                continuation.beta,
+                time.perf_counter() - t0,
+                model,
             )
             state.history.append(row)
             stop = continuation.after(state, change)
@@ -250,7 +259,14 @@ def _iterate(
 
 
 def _history_row(
-    it: int, ev: Evaluation, rho, change: float, beta, seconds: float, model: Model
+    it: int,
+    ev: Evaluation,
+    rho,
+    change: float,
+    design_change: float,
+    beta,
+    seconds: float,
+    model: Model,
 ) -> dict:
     return {
         "iteration": it,
@@ -258,6 +274,7 @@ def _history_row(
         "volume_fraction": float(rho[model.active].mean()),
         "constraint": ev.constraints[0].g,
         "change": change,
+        "max_design_change": design_change,
         "beta": beta,
         "seconds": seconds,
         "solver_iterations": model.system.iterations,

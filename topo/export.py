@@ -155,28 +155,48 @@ def _safe(name: str) -> str:
     return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
 
 
+# Cut of the grey design's stress field: the level of the printed part and design.stl.
+GREY_STRESS_CUT = 0.5
+
+
 def write_fields(result, path: Path) -> None:
-    """Density, displacement per load case and von Mises stress on the grid (VTU)."""
+    """The grid (VTU) with the grey and the printed density, displacement per load
+    case of both, and von Mises stress only where material is: the printed part's in
+    its solid elements, the grey design's where ρ ≥ 0.5 (fem.py's stress is that of
+    the solid material, which in a void element at ρ ≈ 0 reads thousands of MPa and
+    would swamp any colour scale). Zero elsewhere."""
     import meshio
 
-    model, a = result.model, result.analysis
+    model, grey, printed = result.model, result.analysis, result.printed
     grid = model.grid
     pts = grid.node_coords
     if grid.dim == 2:
         pts = np.column_stack([pts, np.zeros(len(pts))])
     cell_type = "quad" if grid.dim == 2 else "hexahedron"  # our corner order is VTK's
-    point_data, cell_data = {}, {"density": [result.density.ravel()]}
+    made = printed.density.ravel() > 0.5
+    grey_solid = result.density.ravel() >= GREY_STRESS_CUT
+    point_data = {}
+    cell_data = {"density": [result.density.ravel()], "printed_density": [made.astype(float)]}
+    printed_vm = np.where(made[:, None], printed.analysis.von_mises, 0.0)
+    grey_vm = np.where(grey_solid[:, None], grey.von_mises, 0.0)
     for i, case in enumerate(result.problem.load_cases):
-        u = a.displacements[:, i].reshape(grid.n_nodes, grid.dim)
-        if grid.dim == 2:
-            u = np.column_stack([u, np.zeros(len(u))])
-        point_data[f"displacement_{_safe(case.name)}"] = u
-        cell_data[f"von_mises_{_safe(case.name)}"] = [a.von_mises[:, i]]
-    cell_data["von_mises_max"] = [a.von_mises.max(axis=1)]
+        name = _safe(case.name)
+        point_data[f"displacement_printed_{name}"] = _vectors(grid, printed.analysis, i)
+        point_data[f"displacement_grey_{name}"] = _vectors(grid, grey, i)
+        cell_data[f"von_mises_printed_{name}"] = [printed_vm[:, i]]
+        cell_data[f"von_mises_grey_rho_ge_half_{name}"] = [grey_vm[:, i]]
+    cell_data["von_mises_printed_max"] = [printed_vm.max(axis=1)]
+    cell_data["von_mises_grey_rho_ge_half_max"] = [grey_vm.max(axis=1)]
     m = meshio.Mesh(
         pts, [(cell_type, grid.element_nodes)], point_data=point_data, cell_data=cell_data
     )
     write_meshio(path, m, "vtu")
+
+
+def _vectors(grid, analysis, case: int) -> np.ndarray:
+    """Nodal displacement of a load case as 3-vectors (z = 0 in 2D), as VTK wants."""
+    u = analysis.displacements[:, case].reshape(grid.n_nodes, grid.dim)
+    return np.column_stack([u, np.zeros(len(u))]) if grid.dim == 2 else u
 
 
 # Written in this order; summary.json comes after all of them and marks a complete folder.
