@@ -130,3 +130,34 @@ def test_stress_correction_blends_ratios_and_survives_state_round_trip(rng):
     assert fresh.constraints[1].correction == stress.correction
     fresh.restore({})
     assert fresh.constraints[1].correction is None
+
+
+@pytest.mark.parametrize("opt", [{}, {"optimizer": "mma", "objective": "worst_case"}])
+def test_interface_support_steering_gradient_matches_finite_differences(opt, rng):
+    # Grown in +y with the overhang layer on, a solid pad hanging at the top right:
+    # the objective is scaled by the pad's share left unsupported.
+    d = two_cases(**opt)
+    d["build"] = {"direction": "+y", "interface_support": 2.0}
+    d["passive"] = [{"kind": "solid", "region": {"box": {"min": [6.0, 3.0], "max": [8.0, 4.0]}}}]
+    model, chain, responses = setup(d)
+    x = rng.uniform(0.2, 0.9, model.grid.n_elements)
+    ev = at(model, chain, responses, x)
+    rho = chain.forward(x)
+    plain = responses.objective.inner.evaluate(rho, model.analyze(rho, stresses=False), False)
+    shortfall = (1 - rho[model.solid]).mean()
+    assert shortfall > 0.05  # the pad is partly unsupported at this design
+    assert ev.objective.value == pytest.approx(plain[0].value * (1 + 2.0 * shortfall), rel=1e-12)
+    terms = [t for t in [ev.objective, *ev.bounds] if t.gradient is not None]
+    assert len(terms) == (2 if opt else 1)  # worst case: the bounds carry the gradients
+
+    def values(xx):
+        r = chain.forward(xx)
+        objective, bounds = responses.objective.evaluate(r, model.analyze(r, stresses=False), False)
+        return [t.value for t in [objective, *bounds]][-len(terms) :]
+
+    eps = 1e-6
+    for _ in range(2):
+        v = rng.normal(size=x.size)
+        fd = (np.array(values(x + eps * v)) - np.array(values(x - eps * v))) / (2 * eps)
+        for r, g in zip(terms, fd):
+            assert r.gradient @ v == pytest.approx(g, rel=1e-5), r.name

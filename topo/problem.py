@@ -119,6 +119,7 @@ class Build:
     direction: str
     overhang_angle: float = 45.0
     overhang_filter: bool = True  # false: report printability, do not enforce it
+    interface_support: float = 1.0  # weight steering the design to support passive solids
 
 
 @dataclass(frozen=True)

@@ -298,7 +298,8 @@ SCHEMA: tuple[Section, ...] = (
             Key(
                 "tolerance",
                 NUMBER,
-                "stop when the largest design change (β at its maximum) is below",
+                "stop (β at its maximum) when the relative change of the physical densities, "
+                "‖Δρ‖₂/‖ρ‖₂ over the design elements, is below",
                 default=0.01,
                 bounds=_POSITIVE,
             ),
@@ -356,6 +357,14 @@ SCHEMA: tuple[Section, ...] = (
                 BOOL,
                 "enforce the overhang rule (false: only report it)",
                 default=True,
+            ),
+            Key(
+                "interface_support",
+                NUMBER,
+                "weight that steers the design to support the passive solid regions "
+                "(0: off; see README)",
+                default=1.0,
+                bounds="[0, inf)",
             ),
         ),
     ),
