@@ -363,7 +363,7 @@ SCHEMA: tuple[Section, ...] = (
                 NUMBER,
                 "weight that steers the design to support the passive solid regions "
                 "(0: off; see README)",
-                default=1.0,
+                default=4.0,
                 bounds="[0, inf)",
             ),
         ),
