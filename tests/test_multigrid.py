@@ -15,7 +15,7 @@ from topo.stencil import StencilAssembly
 
 def small_coarse_grid(grid, ke, fixed, rtol=RTOL):
     """Multigrid-CG with a coarsest grid small enough for test-sized problems to
-    get several levels (the default stops coarsening at 20,000 dofs)."""
+    get several levels (the default stops coarsening at multigrid.COARSE_DOFS)."""
     return MultigridCG(grid, ke, fixed, rtol=rtol, coarse_dofs=300)
 
 
