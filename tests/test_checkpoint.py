@@ -4,8 +4,8 @@ the uninterrupted run. The stress limit is active, so a lost correction shows.""
 
 import numpy as np
 import pytest
-from conftest import beam_problem
 
+from problems import beam_problem, interrupt_at
 from topo.design import optimize
 from topo.problem import problem_from_dict
 
@@ -29,13 +29,8 @@ def stress_limited():
 def test_stress_limited_run_resumes_to_the_uninterrupted_design(tmp_path):
     full = optimize(stress_limited())
     ckpt = tmp_path / "checkpoint.npz"
-
-    def stop_at_7(row):
-        if row["iteration"] == 7:
-            raise KeyboardInterrupt
-
     with pytest.raises(KeyboardInterrupt):
-        optimize(stress_limited(), callback=stop_at_7, checkpoint=ckpt)
+        optimize(stress_limited(), callback=interrupt_at(7), checkpoint=ckpt)
     saved = np.load(ckpt)
     assert {"opt_scale", "opt_mma_xold1", "resp_stress_correction"} <= set(saved.files)
     resumed = optimize(stress_limited(), checkpoint=ckpt, resume=True)

@@ -7,28 +7,12 @@ import json
 import numpy as np
 import pytest
 
+from problems import tiny_bracket_toml
 from topo.cli import main
 
-SMALL = """
-name = "tiny-bracket"
-[domain]
-size = [24.0, 12.0]
-element_size = 1.0
-thickness = 3.0
-[material]
-preset = "316L"
-[optimization]
-volume_fraction = 0.4
-max_iterations = 30
-beta_interval = 5
-[[support]]
-region = { face = "x-min" }
-[[load_case]]
-name = "down"
-  [[load_case.force]]
-  region = { point = [24.0, 6.0] }
-  total = [0.0, -100.0]
-[[load_case]]
+SMALL = (
+    tiny_bracket_toml(max_iterations=30, beta_interval=5)
+    + """[[load_case]]
 name = "pull"
   [[load_case.force]]
   region = { point = [24.0, 6.0] }
@@ -37,6 +21,7 @@ name = "pull"
 kind = "void"
 region = { box = { min = [8.0, 4.0], max = [12.0, 8.0] } }
 """
+)
 
 SUMMARY_KEYS = {
     "name",
@@ -119,8 +104,7 @@ def _reject(constant):
 
 
 def test_summary_of_round_off_negative_densities_is_strict_json(tmp_path):
-    from conftest import beam_problem
-
+    from problems import beam_problem
     from topo import analyze, export, problem_from_dict, summarize
     from topo.stress import relax
 

@@ -5,35 +5,25 @@ import json
 import numpy as np
 import pytest
 import tomllib
-from conftest import beam_problem
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from problems import beam_problem, interrupt_at, plate_toml
 from topo import resources
 from topo.cli import main
 from topo.design import optimize
 from topo.fem import Model
 from topo.problem import ProblemError, problem_from_dict
 
-GOOD = """
-name = "plate"
-[domain]
-size = [20.0, 10.0]
-element_size = 1.0
-thickness = 2.0
-[material]
-preset = "AlSi10Mg"
-[optimization]
-volume_fraction = 0.4
-max_iterations = 12
-[[support]]
-region = { face = "x-min" }
-[[load_case]]
-name = "down"
-  [[load_case.force]]
-  region = { point = [20.0, 5.0] }
-  total = [0.0, -10.0]
-"""
+GOOD = plate_toml(
+    name="plate",
+    size=[20.0, 10.0],
+    thickness=2.0,
+    preset="AlSi10Mg",
+    max_iterations=12,
+    load=[20.0, 5.0],
+    total=[0.0, -10.0],
+)
 
 
 def run_check(tmp_path, text, capsys, command="check"):
@@ -184,13 +174,8 @@ def small():
 def test_resume_reaches_the_uninterrupted_design(tmp_path):
     full = optimize(small())
     ckpt = tmp_path / "checkpoint.npz"
-
-    def stop_at_17(row):
-        if row["iteration"] == 17:
-            raise KeyboardInterrupt
-
     with pytest.raises(KeyboardInterrupt):
-        optimize(small(), callback=stop_at_17, checkpoint=ckpt)
+        optimize(small(), callback=interrupt_at(17), checkpoint=ckpt)
     resumed = optimize(small(), checkpoint=ckpt, resume=True)
     assert len(resumed.history) == len(full.history)
     assert np.max(np.abs(resumed.density - full.density)) < 1e-8
@@ -215,12 +200,8 @@ def test_cli_resume_after_interrupt(tmp_path, capsys, monkeypatch):
         GOOD.replace("max_iterations = 12", "max_iterations = 12\ncheckpoint_interval = 2")
     )
     out = tmp_path / "run"
-
-    def interrupt(row):
-        if row["iteration"] == 5:
-            raise KeyboardInterrupt  # as Ctrl-C would, in the middle of the run
-
-    monkeypatch.setattr("topo.cli._progress", interrupt)
+    # as Ctrl-C would, in the middle of the run
+    monkeypatch.setattr("topo.cli._progress", interrupt_at(5))
     assert main(["run", str(f), "--out", str(out)]) == 130
     assert "topo run --resume" in capsys.readouterr().err
     assert (out / "checkpoint.npz").exists() and not (out / "summary.json").exists()

@@ -2,8 +2,8 @@
 
 import numpy as np
 import pytest
-from conftest import beam_problem
 
+from problems import beam_problem
 from topo.fem import Model
 from topo.problem import problem_from_dict
 

@@ -2,8 +2,8 @@
 
 import numpy as np
 import pytest
-from test_design import mbb
 
+from problems import mbb
 from topo.design import optimize
 from topo.optimizers import MMA
 from topo.problem import ProblemError, problem_from_dict

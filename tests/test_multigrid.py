@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 import scipy.sparse as sp
-from conftest import beam_problem
 
+from problems import add_point_load, beam_problem, dense_stiffness
 from topo.elements import element_stiffness
 from topo.fem import Model
 from topo.grid import Grid
@@ -15,7 +15,7 @@ from topo.stencil import StencilAssembly
 
 def small_coarse_grid(grid, ke, fixed, rtol=RTOL):
     """Multigrid-CG with a coarsest grid small enough for test-sized problems to
-    get several levels (the default stops coarsening at 20,000 dofs)."""
+    get several levels (the default stops coarsening at multigrid.COARSE_DOFS)."""
     return MultigridCG(grid, ke, fixed, rtol=rtol, coarse_dofs=300)
 
 
@@ -24,14 +24,10 @@ def stiffness(m, e):
     return StencilAssembly(m.grid, m.ke, m._fixed).matrix(e)
 
 
-def dense_stiffness(shape, h, e=None, nu=0.3):
+def uniform_dense_stiffness(shape, h, nu=0.3):
     grid = Grid(shape, h)
     ke = element_stiffness(len(shape), h, nu)
-    e = np.ones(grid.n_elements) if e is None else e
-    k = np.zeros((grid.n_dofs,) * 2)
-    for el, dofs in enumerate(grid.element_dofs):
-        k[np.ix_(dofs, dofs)] += e[el] * ke
-    return grid, k
+    return grid, dense_stiffness(grid, ke, np.ones(grid.n_elements))
 
 
 @pytest.mark.parametrize("shape", [(4, 6, 2), (5, 3, 3), (7, 4)])
@@ -54,14 +50,14 @@ def test_galerkin_coarse_operator_of_uniform_field_equals_rediscretised():
     # Nested trilinear spaces: Pᵀ K_h P is exactly the stiffness of the coarse mesh
     # with elements of size 2h (Galerkin property; e.g. Briggs, Henson & McCormick,
     # A Multigrid Tutorial, ch. 10).
-    _, k_fine = dense_stiffness((4, 2, 4), 1.0)
-    _, k_coarse = dense_stiffness((2, 1, 2), 2.0)
+    _, k_fine = uniform_dense_stiffness((4, 2, 4), 1.0)
+    _, k_coarse = uniform_dense_stiffness((2, 1, 2), 2.0)
     p, _ = prolongation((4, 2, 4))
     p = p.toarray()
     assert np.allclose(p.T @ k_fine @ p, k_coarse, atol=1e-12)
     # 2D likewise
-    _, k2f = dense_stiffness((4, 4), 1.0)
-    _, k2c = dense_stiffness((2, 2), 2.0)
+    _, k2f = uniform_dense_stiffness((4, 4), 1.0)
+    _, k2c = uniform_dense_stiffness((2, 2), 2.0)
     p2 = prolongation((4, 4))[0].toarray()
     assert np.allclose(p2.T @ k2f @ p2, k2c, atol=1e-12)
 
@@ -123,12 +119,7 @@ def test_hierarchy_from_moduli_matches_the_sparse_hierarchy(size):
 @pytest.mark.parametrize("contrast_field", ["random", "blocks"])
 def test_iterative_and_direct_agree_with_high_contrast(contrast_field, rtol):
     d = beam_problem(3, [16.0, 8.0, 8.0], 1.0)
-    d["load_case"].append(
-        {
-            "name": "twist",
-            "force": [{"region": {"point": [16.0, 8.0, 8.0]}, "total": [0.0, 1.0, 0.5]}],
-        }
-    )
+    add_point_load(d, "twist", [16.0, 8.0, 8.0], [0.0, 1.0, 0.5])
     rng = np.random.default_rng(3)
     n = 16 * 8 * 8
     if contrast_field == "random":

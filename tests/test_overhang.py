@@ -2,8 +2,8 @@
 
 import numpy as np
 import pytest
-from conftest import beam_problem
 
+from problems import beam_problem, fd_check
 from topo.design import check, optimize
 from topo.printability import (
     directions,
@@ -22,14 +22,7 @@ CASES = [((7, 6), d) for d in directions(2)] + [((5, 4, 6), d) for d in directio
 @pytest.mark.parametrize("shape,direction", CASES)
 def test_backward_matches_central_differences(shape, direction, rng):
     f = OverhangFilter(shape, direction)
-    x = rng.uniform(0.05, 1.0, int(np.prod(shape)))
-    w = rng.normal(size=x.size)
-    grad = f.backward(x, w)
-    eps = 1e-6
-    for _ in range(3):
-        v = rng.normal(size=x.size)
-        fd = (w @ f.forward(x + eps * v) - w @ f.forward(x - eps * v)) / (2 * eps)
-        assert np.isclose(grad @ v, fd, rtol=1e-5, atol=1e-8)
+    fd_check(f, rng.uniform(0.05, 1.0, int(np.prod(shape))), rng, rtol=1e-5, atol=1e-8)
 
 
 @pytest.mark.parametrize("shape,direction", CASES)

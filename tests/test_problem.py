@@ -6,10 +6,10 @@ import math
 from pathlib import Path
 
 import pytest
-from conftest import beam_problem
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from problems import beam_problem
 from topo import schema
 from topo.cli import main
 from topo.keyref import readme_block, reference

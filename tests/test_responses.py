@@ -4,8 +4,8 @@ material budget is nonlinear in x)."""
 
 import numpy as np
 import pytest
-from conftest import beam_problem
 
+from problems import add_point_load, beam_problem, central_difference
 from topo.design import build_chain
 from topo.fem import Model
 from topo.problem import problem_from_dict
@@ -15,14 +15,7 @@ from topo.responses import Responses
 def two_cases(**opt):
     d = beam_problem(2, [8.0, 4.0], 1.0, projection=True, filter_radius=1.5, **opt)
     d["material"]["yield_strength"] = 100.0
-    d["load_case"].append(
-        {
-            "name": "side",
-            "weight": 0.5,
-            "force": [{"region": {"point": [8.0, 4.0]}, "total": [1.0, 0.3]}],
-        }
-    )
-    return d
+    return add_point_load(d, "side", [8.0, 4.0], [1.0, 0.3], weight=0.5)
 
 
 def setup(d, beta=4.0):
@@ -78,10 +71,9 @@ def test_every_response_gradient_matches_finite_differences(opt, rng):
             if t.gradient is not None
         ]
 
-    eps = 1e-6
     for _ in range(2):
         v = rng.normal(size=x.size)
-        fd = (np.array(values(x + eps * v)) - np.array(values(x - eps * v))) / (2 * eps)
+        fd = central_difference(lambda xx: np.array(values(xx)), x, v)
         for r, d in zip(terms, fd):
             assert r.gradient @ v == pytest.approx(d, rel=1e-5, abs=1e-9 * abs(r.value)), r.name
 
@@ -155,9 +147,8 @@ def test_interface_support_steering_gradient_matches_finite_differences(opt, rng
         objective, bounds = responses.objective.evaluate(r, model.analyze(r, stresses=False), False)
         return [t.value for t in [objective, *bounds]][-len(terms) :]
 
-    eps = 1e-6
     for _ in range(2):
         v = rng.normal(size=x.size)
-        fd = (np.array(values(x + eps * v)) - np.array(values(x - eps * v))) / (2 * eps)
+        fd = central_difference(lambda xx: np.array(values(xx)), x, v)
         for r, g in zip(terms, fd):
             assert r.gradient @ v == pytest.approx(g, rel=1e-5), r.name

@@ -7,37 +7,21 @@ import json
 
 import numpy as np
 import pytest
-from conftest import beam_problem
 
+from problems import beam_problem, tiny_bracket_toml
 from topo import optimize, problem_from_dict
 from topo.cli import main
 from topo.fem import Model
 
-SMALL = """
-name = "tiny-bracket"
-[domain]
-size = [24.0, 12.0]
-element_size = 1.0
-thickness = 3.0
-[material]
-preset = "316L"
-[optimization]
-volume_fraction = 0.4
-max_iterations = 120
-beta_interval = 10
-[[support]]
-region = { face = "x-min" }
-[[load_case]]
-name = "down"
-  [[load_case.force]]
-  region = { point = [24.0, 6.0] }
-  total = [0.0, -100.0]
-[[deflection]]
+SMALL = (
+    tiny_bracket_toml(max_iterations=120, beta_interval=10)
+    + """[[deflection]]
 name = "tip"
 region = { point = [24.0, 6.0] }
 direction = "-y"
 limit = 0.05
 """
+)
 
 
 @pytest.fixture

@@ -5,8 +5,8 @@ import warnings
 
 import numpy as np
 import pytest
-from conftest import beam_problem
 
+from problems import add_point_load, beam_problem, dense_stiffness
 from topo import cholesky
 from topo.fem import Model
 from topo.multigrid import MultigridCG
@@ -16,10 +16,7 @@ from topo.solvers import DirectSystem, make_system
 
 def dense_reference(m, e):
     """K from plain loops over the elements, and its free-dof block."""
-    k = np.zeros((m.grid.n_dofs,) * 2)
-    for el, dofs in enumerate(m.grid.element_dofs):
-        k[np.ix_(dofs, dofs)] += e[el] * m.ke
-    return k[np.ix_(m.free, m.free)]
+    return dense_stiffness(m.grid, m.ke, e)[np.ix_(m.free, m.free)]
 
 
 def test_cholmod_superlu_and_dense_agree(monkeypatch):
@@ -65,12 +62,7 @@ def systems():
 @pytest.mark.parametrize("name,factory", systems(), ids=[n for n, _ in systems()])
 def test_every_linear_system_keeps_the_contract(name, factory):
     d = beam_problem(3, [8.0, 4.0, 4.0], 1.0)
-    d["load_case"].append(
-        {
-            "name": "side",
-            "force": [{"region": {"point": [8.0, 4.0, 4.0]}, "total": [0.0, 1.0, 0.5]}],
-        }
-    )
+    add_point_load(d, "side", [8.0, 4.0, 4.0], [0.0, 1.0, 0.5])
     m = Model(problem_from_dict(d))
     rng = np.random.default_rng(5)
     e = m.moduli(rng.uniform(0.05, 1.0, m.grid.n_elements))

@@ -3,8 +3,8 @@
 import csv
 
 import pytest
-from conftest import beam_problem
 
+from problems import beam_problem, plate_toml
 from topo import problem_from_dict, sweep
 from topo.cli import main
 from topo.sweep import pareto
@@ -112,24 +112,17 @@ def test_sweep_over_build_directions_keeps_unreachable_designs_off_the_front(tmp
 
 def test_sweep_command(tmp_path, capsys):
     f = tmp_path / "p.toml"
-    f.write_text("""
-name = "cli-sweep"
-[domain]
-size = [16.0, 8.0]
-element_size = 1.0
-thickness = 1.0
-[material]
-preset = "316L"
-[optimization]
-volume_fraction = 0.4
-max_iterations = 10
-[[support]]
-region = { face = "x-min" }
-[[load_case]]
-  [[load_case.force]]
-  region = { point = [16.0, 4.0] }
-  total = [0.0, -1.0]
-""")
+    f.write_text(
+        plate_toml(
+            name="cli-sweep",
+            size=[16.0, 8.0],
+            thickness=1.0,
+            preset="316L",
+            max_iterations=10,
+            load=[16.0, 4.0],
+            total=[0.0, -1.0],
+        )
+    )
     assert (
         main(
             [

@@ -4,17 +4,8 @@ against an independent dense construction of its weight matrix."""
 import numpy as np
 import pytest
 
+from problems import fd_check
 from topo.transforms import Chain, DensityFilter, HeavisideProjection, PassiveOverride
-
-
-def fd_check(transform, x, rng, eps=1e-6):
-    """Directional derivative of f(y) = w·forward(x) by central differences."""
-    w = rng.normal(size=x.size)
-    grad = transform.backward(x, w)
-    for _ in range(3):
-        d = rng.normal(size=x.size)
-        fd = (w @ transform.forward(x + eps * d) - w @ transform.forward(x - eps * d)) / (2 * eps)
-        assert np.isclose(grad @ d, fd, rtol=1e-6, atol=1e-9)
 
 
 @pytest.mark.parametrize("shape,radius", [((9, 7), 2.4), ((6, 5, 4), 1.8), ((10, 3), 3.0)])

@@ -120,7 +120,7 @@ class _PairedFactorisation:
     design iterations of the same run. Cholesky's work depends on the sparsity
     pattern only, which every design shares, so the matrix of a uniform design
     stands for all. Pairing the two in time keeps the ratio honest on a machine
-    whose speed drifts (single timings on the development machine spread ±25 %)."""
+    whose speed drifts (DEVELOPERS.md, "Machine drift and paired timings")."""
 
     def __init__(self, problem_dict: dict):
         model = Model(problem_from_dict(problem_dict), system_factory=DirectSystem)
@@ -198,8 +198,8 @@ def case_scale(shape: tuple[int, int, int], iterations: int) -> dict:
     return out
 
 
-# Run only when named with --case: each takes from ten minutes to over half an
-# hour on two cores (the long comparison is dominated by its direct run).
+# Run only when named with --case: each is too long for a routine run
+# (durations: DEVELOPERS.md, "Benchmarks").
 ON_REQUEST = {
     "scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100)),
     "compare-3d-60x30x30-long": (case_compare, ((60, 30, 30), 50)),

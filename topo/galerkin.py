@@ -13,9 +13,9 @@ the only element of a short one). On the first coarse level K_e = E_e k0, so K_C
 one dense product of the moduli with the 3^dim matrices P_sᵀ k0 P_s; further levels
 repeat the rule on the coarse element matrices with batched small products. Each
 refresh costs a few dense products and stencil assemblies, instead of sparse triple
-products over the fine matrix (2.8 of every 3 s of hierarchy update on the
-100×50×50 grid), and every level keeps one sparsity pattern, so the coarsest
-Cholesky reuses its symbolic analysis.
+products over the fine matrix (most of the hierarchy update before; measured:
+DEVELOPERS.md, "Coarse operators"), and every level keeps one sparsity pattern, so
+the coarsest Cholesky reuses its symbolic analysis.
 
 Supports: the fine matrix is A = D K D + (I − D) with D the 0/1 mask of the free
 dofs, so Pᵀ A P = (DP)ᵀ K (DP) + Pᵀ(I − D)P. Elements touching a fixed dof get

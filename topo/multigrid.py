@@ -7,7 +7,7 @@ displacements, coarse operators by the Galerkin product A_c = Pᵀ A P (formed
 element by element, galerkin.py), damped Jacobi smoothing, a sparse Cholesky solve
 on the coarsest grid, and one V-cycle as the preconditioner of conjugate
 gradients, warm-started from the last design's displacements. The constants below
-were chosen by measurement on the 2-core development machine (DEVELOPERS.md).
+were chosen by measurement (DEVELOPERS.md, "Tuning measurements").
 """
 
 from __future__ import annotations
@@ -24,19 +24,16 @@ from .timing import Timer
 
 # Coarsening stops at the first level with at most this many dofs. The coarsest
 # grid trades its Cholesky factorisation, redone every design iteration, against CG
-# iterations: on the 100×50×50 cantilever (design of iteration 20, two Jacobi
-# sweeps) a 2,688-dof coarsest grid needed 68 CG iterations, the 15,288-dof one 32;
-# on 60×30×30 a 23,808-dof one halved the CG iterations (17 against 32) but its
-# factorisation (0.6 s) cost more than that saved (1.41 against 1.23 s per design
-# iteration). DEVELOPERS.md has the measurements.
+# iterations: too coarse, its elements cannot carry thin members and CG needs many
+# more iterations; too fine, the factorisation costs more than it saves.
+# Measured: DEVELOPERS.md, "Coarsest multigrid grid (COARSE_DOFS)".
 COARSE_DOFS = 20_000
-# One Jacobi sweep before and after the coarse correction: on that design 38 CG
-# iterations against 32 with two sweeps, but 25 % less time.
+# Jacobi sweeps before and after the coarse correction: one needs a few more CG
+# iterations than two but less time. Measured: DEVELOPERS.md, "Smoothing sweeps".
 SMOOTHING_SWEEPS = 1
-# CG stops at ‖r‖ < RTOL·‖b‖. Compliance is second-order in the solution error, and
-# designs made with 1e-4 match those made with 1e-6 or the direct solver: 3D demo
-# bracket after 150 iterations 6e-6 apart in compliance, 100×50×50 cantilever after
-# 30 iterations 3e-7 (DEVELOPERS.md); 1e-4 needs about a third fewer CG iterations.
+# CG stops at ‖r‖ < RTOL·‖b‖. Compliance is second order in the solution error, so
+# designs made with this tolerance match those made with a tighter one or the
+# direct solver, for fewer CG iterations. Measured: DEVELOPERS.md, "CG tolerance".
 RTOL = 1e-4
 # CG gives up after this many iterations. A design iteration takes 10–40; the
 # re-analysis of a thresholded printed part (void at E_min, a cold-ish start) can
@@ -122,7 +119,8 @@ class Hierarchy:
         # coarsest, which is solved directly): it damps the upper half of the
         # spectrum evenly and keeps the smoother convergent whatever the contrast.
         # The power iteration starts from the last design's eigenvector, which
-        # changes little from one design to the next.
+        # changes little from one design to the next (DEVELOPERS.md, "Smoother
+        # damping").
         smoothed = self.products[:-1]
         inv_diag = [1.0 / op.diagonal() for op in self.operators[:-1]]
         warm = len(self.power_vectors) == len(smoothed)

@@ -1,9 +1,9 @@
 """Sparse matrix products split over threads.
 
 scipy's CSR kernels release the GIL, so row blocks of one matrix can be multiplied
-on separate threads. The product is memory-bound: on the 2-core development machine
-two threads make it about 1.4× faster (100×50×50 grid: 27 → 19 ms), which matters
-because these products are most of a multigrid-CG iteration.
+on separate threads. The product is memory-bound, yet two threads still make it
+faster, which matters because these products are most of a multigrid-CG iteration
+(measured: DEVELOPERS.md, "Threaded sparse products").
 """
 
 from __future__ import annotations

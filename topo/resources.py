@@ -1,10 +1,8 @@
 """Memory and time estimates of a problem before the model is built.
 
-The coefficients are fitted to runs on the 2-core development machine (see
-DEVELOPERS.md, "Benchmarks"; the iterative ones to the 100-iteration 100×50×50
-run of `topo bench --case scale-3d-100x50x50`: 2.2 GB peak, 15.8 CG iterations
-of about 0.09 s each and about 1.1 s of assembly and hierarchy update per design
-iteration); they are estimates to catch a problem that cannot fit, not promises.
+The coefficients are fitted to runs on the development machine (the runs and
+figures: DEVELOPERS.md, "Estimates of memory and time"); they are estimates to
+catch a problem that cannot fit, not promises.
 """
 
 from __future__ import annotations
@@ -37,8 +35,9 @@ def estimate(problem: Problem) -> dict:
         flops = nnz_l**2 / n_dofs
         seconds = flops / FACTOR_FLOPS_PER_S + 2e-8 * nnz_l
         solver_bytes = 12 * nnz_l * 1.3  # factor and workspace
-        # Building the assembly pattern holds about 60 bytes per element entry at its
-        # peak (keys, sort, inverse, the scatter matrix); element fields are small.
+        # The peak of building a general sparse assembly pattern (keys, sort,
+        # inverse, scatter matrix), kept as a ceiling; element fields are small.
+        # Measured: DEVELOPERS.md, "Estimates of memory and time".
         memory = max(60 * entries, 12 * entries + solver_bytes + 400 * n_el)
     else:
         nnz_k = (

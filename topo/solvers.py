@@ -22,10 +22,10 @@ from .timing import Timer
 @contextmanager
 def blas_for_solver():
     """Within this block numpy's and scipy's bundled OpenBLAS run on one thread,
-    while the system OpenBLAS that CHOLMOD calls keeps all cores. Two busy-waiting
-    OpenBLAS thread pools on a 2-core machine otherwise slow the factorisation by
-    about a third (measured with `topo bench`); the small dense products topo does
-    itself gain nothing from threads."""
+    while the system OpenBLAS that CHOLMOD calls keeps all cores: two busy-waiting
+    OpenBLAS thread pools otherwise fight over the cores and slow the
+    factorisation, and the small dense products topo does itself gain nothing from
+    threads. Measured: DEVELOPERS.md, "BLAS threads during a run"."""
     try:
         from threadpoolctl import ThreadpoolController
     except ImportError:  # pragma: no cover - optional speed-up
@@ -86,9 +86,8 @@ class DirectSystem(LinearSystem):
 
 
 # "auto" takes multigrid-CG for 3D problems above this many free dofs, where its
-# hierarchy has a coarse level (multigrid.COARSE_DOFS). Measured on the 3D
-# cantilever, seconds per iteration direct / multigrid-CG: 24×12×12 (12,675 dofs)
-# 0.14 / 0.20; 32×16×16 (28,611) 0.47 / 0.15; 40×20×20 (54,243) 1.05 / 0.23.
+# hierarchy has a coarse level (multigrid.COARSE_DOFS) and it overtakes the direct
+# solver. Measured: DEVELOPERS.md, "Direct or iterative (AUTO_ITERATIVE_DOFS)".
 AUTO_ITERATIVE_DOFS = 20_000
 
 

@@ -11,7 +11,8 @@ corner b = a + o; so with E_a(n) the modulus of the element that has n at corner
 one dense product of an (nodes × corners) array with a constant (corners × row
 entries) matrix, written straight in CSR order: no sorting, no scatter matrix, no
 intermediate layout. Memory is O(nodes), about 3 kB per node in 3D, against tens of
-bytes per element-matrix entry for a general sparse assembly. Element matrices
+bytes per element-matrix entry for a general sparse assembly (measured:
+DEVELOPERS.md, "Node-stencil assembly"). Element matrices
 that differ per element (the coarse levels of multigrid) go through
 `from_elements`, which accumulates contiguous slices instead.
 
