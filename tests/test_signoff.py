@@ -130,6 +130,8 @@ region = { box = { min = [0.0, 4.0], max = [24.0, 6.0] } }
     )
     text = text.replace("point = [24.0, 6.0] }\n  total", "point = [24.0, 9.0] }\n  total")
     small.write_text(text)
+    assert main(["check", str(small)]) == 0
+    assert "load down: no self-supporting material can reach it" in capsys.readouterr().out
     assert main(["run", str(small), "--out", str(tmp_path / "r"), "--quiet"]) == 2
     err = capsys.readouterr().err
     assert "build.direction" in err and "load down" in err and "--allow-unreachable" in err

@@ -19,8 +19,8 @@ import numpy as np
 from .checkpoint import Checkpoint, LoopState
 from .continuation import Continuation, density_change
 from .fem import Analysis, Model
+from .integrity import unreachable_regions
 from .optimizers import make_optimizer
-from .printability import unreachable
 from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
 from .responses import Evaluation, Responses
@@ -109,28 +109,6 @@ def optimize(
             optimizer or make_optimizer,
             allow_unreachable,
         )
-
-
-def unreachable_regions(model: Model) -> list[str]:
-    """Load and support regions that no self-supporting design can reach from the
-    build plate (void regions block every 45° path to them). Empty without a build
-    direction or with the overhang filter off (then supports can be added)."""
-    build = model.problem.build
-    if build is None or not build.overhang_filter:
-        return []
-    grid = model.grid
-
-    def touching(nodes):
-        mark = np.zeros(grid.n_nodes, dtype=bool)
-        mark[nodes] = True
-        return mark[grid.element_nodes].any(axis=1) & ~model.void
-
-    regions = {
-        f"support {s.name}": touching(n)
-        for s, n in zip(model.problem.supports, model.support_nodes)
-    }
-    regions |= {f"load {name}": touching(n) for name, n in model.load_nodes}
-    return unreachable(model.void.reshape(grid.shape), build.direction, regions)
 
 
 def _refuse_unreachable(problem: Problem, model: Model) -> None:

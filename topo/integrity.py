@@ -15,6 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import ndimage
 
+from .printability import unreachable
+
 
 @dataclass
 class LoadPath:
@@ -100,3 +102,25 @@ def enclosed_cavities(printed: np.ndarray, h: float, element_volume: float) -> l
             )
         )
     return out
+
+
+def unreachable_regions(model) -> list[str]:
+    """Load and support regions that no self-supporting design can reach from the
+    build plate (void regions block every 45° path to them). Empty without a build
+    direction or with the overhang filter off (then supports can be added)."""
+    build = model.problem.build
+    if build is None or not build.overhang_filter:
+        return []
+    grid = model.grid
+
+    def touching(nodes):
+        mark = np.zeros(grid.n_nodes, dtype=bool)
+        mark[nodes] = True
+        return mark[grid.element_nodes].any(axis=1) & ~model.void
+
+    regions = {
+        f"support {s.name}": touching(n)
+        for s, n in zip(model.problem.supports, model.support_nodes)
+    }
+    regions |= {f"load {name}": touching(n) for name, n in model.load_nodes}
+    return unreachable(model.void.reshape(grid.shape), build.direction, regions)

@@ -9,6 +9,7 @@ import numpy as np
 
 from . import mesh as meshing
 from .checks import failed
+from .integrity import unreachable_regions
 from .printability import printable_envelope, unsupported_by_direction
 from .printed import finite_or_none, relative_gap
 from .schema import format_setting, settings
@@ -239,6 +240,7 @@ def model_report(model) -> dict:
         "build_direction": problem.build.direction if problem.build else None,
         "settings": settings(problem),
         "unsupportable_solid_regions": _unsupportable(model),
+        "unreachable_regions": unreachable_regions(model),
         "memory_estimate_MB": round(est["memory_bytes"] / 2**20, 1),
         "seconds_per_iteration_estimate": round(est["seconds_per_iteration"], 3),
     }
@@ -410,6 +412,11 @@ def format_check(rep: dict) -> list[str]:
             f"{r['unsupportable_elements']} of {r['elements']} "
             f"elements cannot be supported from the build plate ({rep['build_direction']}); "
             "void regions block every 45° path"
+        )
+    for name in rep["unreachable_regions"]:
+        lines.append(
+            f"  warning: {name}: no self-supporting material can reach it building "
+            f"{rep['build_direction']}; `topo run` refuses this direction"
         )
     lines.append(
         f"  estimated memory {rep['memory_estimate_MB']} MB, "
