@@ -12,6 +12,7 @@ from .design import Result, analyze, check, estimate_resources, load_run, load_r
 from .export import MESH_FORMATS, Exported, export
 from .problem import Problem, ProblemError, load_problem, parse_override, problem_from_dict
 from .report import CAUTION, run_summary, summarize
+from .review import write_report
 from .sweep import sweep
 
 __all__ = [
@@ -35,5 +36,6 @@ __all__ = [
     "run_summary",
     "summarize",
     "sweep",
+    "write_report",
 ]
 __version__ = "0.1.0"

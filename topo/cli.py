@@ -28,6 +28,7 @@ from . import (
     report,
     run_benchmarks,
     sweep,
+    write_report,
 )
 
 
@@ -109,6 +110,15 @@ def cmd_run(args, outputs: Outputs) -> int:
     if args.strict and s["checks_failed"]:
         print(f"error: checks failed: {', '.join(s['checks_failed'])} (--strict)", file=sys.stderr)
         return 3
+    return 0
+
+
+def cmd_report(args, outputs: Outputs) -> int:
+    folder = Path(args.run_dir)
+    if not (folder / "summary.json").exists():
+        raise FileNotFoundError(f"{folder}: no summary.json; is this a finished topo run folder?")
+    target = write_report(folder)
+    _say([f"review document in {target}", CAUTION])
     return 0
 
 
@@ -278,6 +288,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("run_dir", help="a run folder written by `topo run`")
     mesh_options(p, "--format")
     p.set_defaults(func=cmd_export)
+    p = sub.add_parser("report", help="rebuild report.html, the review document, of a finished run")
+    p.add_argument("run_dir", help="a run folder written by `topo run`")
+    p.set_defaults(func=cmd_report)
     return ap
 
 

@@ -19,6 +19,7 @@ from . import mesh as meshing
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
 from .regions import select_nodes
 from .report import design_surface, run_summary
+from .review import build_report
 
 plt = pyplot()
 
@@ -209,6 +210,7 @@ EXPORTERS: dict[str, Callable] = {
     "fields.vtu": write_fields,
 }
 SUMMARY = "summary.json"
+REPORT = "report.html"  # read from the files above; written just before the summary
 
 
 @dataclass(frozen=True)
@@ -245,6 +247,9 @@ def export(
             continue
         writer(result, out / name)
         written.append(out / name)
+    if only is None or REPORT in only:
+        write_text(out / REPORT, build_report(out, summary))
+        written.append(out / REPORT)
     if only is None or SUMMARY in only:
         write_text(out / SUMMARY, summary_text)
         written.append(out / SUMMARY)
