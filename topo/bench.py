@@ -86,10 +86,15 @@ def _run(problem_dict: dict, iterations: int, after_iteration=None) -> dict:
             t = time.perf_counter()
             after_iteration()
             between[0] += time.perf_counter() - t
+        last[0] = time.perf_counter()
 
+    last = [0.0]
     start = time.perf_counter()
     result = optimize(problem_from_dict(d), callback=snapshot, timer=timer)
-    wall = time.perf_counter() - start
+    end = time.perf_counter()
+    wall = end - start
+    # after the loop: the final analysis, the printed part's re-analysis, the summary
+    finish = end - last[0]
     n = len(result.history)
     loop = sum(h["seconds"] for h in result.history)
     # Steady state: the first iteration also does one-off work (CHOLMOD's symbolic
@@ -106,7 +111,8 @@ def _run(problem_dict: dict, iterations: int, after_iteration=None) -> dict:
         "per_iteration_s": per_iteration,
         "phases_s": per,
         "first_iteration_s": result.history[0]["seconds"],
-        "setup_s": wall - loop - between[0],
+        "setup_s": wall - loop - between[0] - finish,
+        "finish_s": finish,
         "solver": result.model.system.name,
         # a direct solver takes no iterations (None): counted as 0
         "solver_iterations": float(np.mean([h["solver_iterations"] or 0 for h in result.history])),
@@ -273,6 +279,7 @@ def format_case(name: str, r: dict) -> str:
         + f", {r['per_iteration_s']:.3f} s/iteration "
         f"({_phases(r)}); solver iterations {r['solver_iterations']:.1f}; "
         f"first iteration {r['first_iteration_s']:.2f} s; setup {r['setup_s']:.1f} s; "
+        f"final analyses and summary {r['finish_s']:.1f} s; "
         f"peak memory {r['peak_memory_MB']:.0f} MB"
     )
     if "reference" in r:
