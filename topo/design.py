@@ -26,7 +26,14 @@ from .problem import Problem, ProblemError
 from .responses import Evaluation, Responses
 from .solvers import blas_for_solver
 from .timing import Timer
-from .transforms import Chain, DensityFilter, HeavisideProjection, OverhangFilter, PassiveOverride
+from .transforms import (
+    Chain,
+    DensityFilter,
+    HeavisideProjection,
+    MirrorSymmetry,
+    OverhangFilter,
+    PassiveOverride,
+)
 
 
 @dataclass
@@ -53,6 +60,10 @@ class Result:
 def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProjection | None]:
     opt = problem.optimization
     steps = [DensityFilter(model.grid.shape, opt.filter_radius / problem.domain.element_size)]
+    if opt.symmetry:  # first, so that every later step sees a symmetric field
+        axes = tuple("xyz".index(a) for a in opt.symmetry)
+        _refuse_asymmetric_passives(problem, model, axes)
+        steps.insert(0, MirrorSymmetry(model.grid.shape, axes))
     projection = None
     if opt.projection:
         projection = HeavisideProjection(1.0, opt.projection_threshold)
@@ -62,6 +73,22 @@ def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProject
     if problem.build is not None and problem.build.overhang_filter:
         steps.append(OverhangFilter(model.grid.shape, problem.build.direction))
     return Chain(steps), projection
+
+
+def _refuse_asymmetric_passives(problem: Problem, model: Model, axes: tuple[int, ...]) -> None:
+    """Mirror symmetry of the design needs the solid and void regions symmetric too."""
+    shape = model.grid.shape
+    for name, mask in (("solid", model.solid), ("void", model.void)):
+        field = mask.reshape(shape)
+        for axis in axes:
+            if not np.array_equal(field, np.flip(field, axis)):
+                raise ProblemError(
+                    problem.source,
+                    "optimization.symmetry",
+                    f"the passive {name} regions are not mirror-symmetric about the plane "
+                    f"{'xyz'[axis]} = {model.grid.size[axis] / 2:g} mm (normal to {'xyz'[axis]}), "
+                    "so the design cannot be; make them symmetric or drop the plane",
+                )
 
 
 def optimize(

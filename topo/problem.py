@@ -112,6 +112,7 @@ class Optimization:
     solver: str = "auto"
     checkpoint_interval: int = 10  # iterations between checkpoint.npz saves
     stress_limit: float | None = None  # MPa, on the corrected p-norm of the relaxed stress
+    symmetry: tuple[str, ...] = ()  # axes normal to mirror planes through the domain centre
 
 
 @dataclass(frozen=True)
@@ -293,6 +294,13 @@ class _Parser(Reader):
         opt = self.optimization(top["optimization"], domain)
         dim = domain.dim
         build = self.build(top["build"], dim)
+        if build and build.overhang_filter and build.direction[1] in opt.symmetry:
+            self.fail(
+                "optimization.symmetry",
+                f"a mirror plane normal to {build.direction[1]} cannot hold with the overhang "
+                f"rule of build direction {build.direction}: the layers grow one way along "
+                "that axis",
+            )
         supports = tuple(
             self.support(s, f"support[{i}]", dim) for i, s in enumerate(top["support"])
         )

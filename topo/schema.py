@@ -311,6 +311,14 @@ SCHEMA: tuple[Section, ...] = (
                 bounds="[1e-12, 0.1]",
             ),
             Key(
+                "symmetry",
+                LIST,
+                "mirror planes through the domain centre, normal to these axes, enforced "
+                "on the design",
+                default=(),
+                choices=lambda dim: AXES[:dim],
+            ),
+            Key(
                 "solver",
                 STRING,
                 "linear solver: CHOLMOD, multigrid-CG, or chosen by size",

@@ -99,6 +99,33 @@ class PassiveOverride(Transform):
         return g
 
 
+class MirrorSymmetry(Transform):
+    """Mirror symmetry about planes through the domain centre, normal to the given
+    axes (0 = x, 1 = y, 2 = z), enforced on the design variables whatever the loads:
+    y = the average of x over its mirror images. The map is a projection onto the
+    symmetric fields and its own transpose, so backward applies the same average.
+    The filter, the projection and the overhang layer of a build direction across
+    the planes keep the symmetry, so ρ comes out mirror-symmetric to round-off when
+    the passive regions are symmetric too."""
+
+    linear = True
+
+    def __init__(self, shape: tuple[int, ...], axes: tuple[int, ...]):
+        self.shape, self.axes = tuple(shape), tuple(axes)
+
+    def _average(self, v: np.ndarray) -> np.ndarray:
+        field = v.reshape(self.shape)
+        for axis in self.axes:
+            field = 0.5 * (field + np.flip(field, axis))
+        return np.ascontiguousarray(field).ravel()
+
+    def forward(self, x):
+        return self._average(x)
+
+    def backward(self, x, dfdy):
+        return self._average(dfdy)
+
+
 class Chain(Transform):
     """Transforms applied in order; backward runs the chain rule in reverse."""
 
