@@ -24,6 +24,11 @@ def good() -> SignOffFigures:
         unsupported_fraction=0.0,
         unsupported_limit=0.0,
         cavities=[],
+        min_wall_mm=1.0,
+        min_gap_mm=2.0,
+        wall_limit=0.8,
+        gap_limit=2.0,
+        element_size=0.5,
     )
 
 
@@ -57,6 +62,8 @@ def test_a_sound_design_passes_every_check():
         ),
         ("unsupported_fraction", {"unsupported_fraction": 0.01}),
         ("enclosed_cavities", {"cavities": [{"volume_mm3": 8.0, "centre_mm": [1.0, 2.0, 3.0]}]}),
+        ("min_wall", {"min_wall_mm": 0.5}),
+        ("min_gap", {"min_gap_mm": 1.5}),
     ],
 )
 def test_each_check_fails_on_its_own_fault(name, change):
@@ -69,6 +76,8 @@ def test_each_check_fails_on_its_own_fault(name, change):
     "name,change",
     [
         ("interfaces_whole", {"interfaces": []}),
+        ("min_wall", {"wall_limit": None}),
+        ("min_gap", {"gap_limit": None}),
         ("safety_factor", {"safety_factor": None}),
         ("stress_limit", {"stress_limit_MPa": None}),
         ("mass_limit", {"mass_limit_kg": None}),

@@ -34,6 +34,11 @@ class SignOffFigures:
     unsupported_limit: float
     cavities: list[dict] = field(default_factory=list)
     compliance_gap_limit: float = 0.05
+    min_wall_mm: float | None = None  # realised in the printed part
+    min_gap_mm: float | None = None
+    wall_limit: float | None = None  # the machine's rule
+    gap_limit: float | None = None
+    element_size: float = 1.0
 
 
 def _row(name: str, ok: bool | None, value, limit, detail: str) -> dict:
@@ -197,6 +202,25 @@ def no_cavities(f: SignOffFigures) -> dict:
     )
 
 
+def _width(name: str, value, limit, h: float, what: str) -> dict:
+    if limit is None:
+        return _row(name, None, value, None, f"no {name} given (realised {what}: {value} mm)")
+    if value is None:
+        return _row(name, True, None, limit, f"no {what} in the printed part")
+    detail = f"narrowest {what} of the printed part, in whole elements of {h:g} mm"
+    if limit < h:
+        detail += f"; the grid cannot resolve {limit:g} mm, a finer element_size can"
+    return _row(name, value >= limit - 1e-9, value, limit, detail)
+
+
+def min_wall(f: SignOffFigures) -> dict:
+    return _width("min_wall", f.min_wall_mm, f.wall_limit, f.element_size, "wall")
+
+
+def min_gap(f: SignOffFigures) -> dict:
+    return _width("min_gap", f.min_gap_mm, f.gap_limit, f.element_size, "gap")
+
+
 CHECKS = (
     load_path,
     interfaces_whole,
@@ -207,6 +231,8 @@ CHECKS = (
     deflection_limits,
     unsupported,
     no_cavities,
+    min_wall,
+    min_gap,
 )
 
 

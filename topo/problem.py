@@ -168,6 +168,8 @@ class Checks:
     safety_factor: float = 1.0
     compliance_gap: float = 0.05
     unsupported_fraction: float = 0.0
+    min_wall: float | None = None  # mm
+    min_gap: float | None = None  # mm
 
 
 @dataclass(frozen=True)

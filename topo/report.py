@@ -91,6 +91,8 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "printed_part": figures["printed_part"],
         "interfaces": figures["interfaces"],
         "enclosed_cavities": figures["enclosed_cavities"],
+        "min_wall_mm": figures["min_wall_mm"],
+        "min_gap_mm": figures["min_gap_mm"],
         "stress_limit_MPa": problem.optimization.stress_limit,
         "notes": NOTES,
         "iterations": len(result.history),

@@ -483,6 +483,22 @@ SCHEMA: tuple[Section, ...] = (
                 default=0.0,
                 bounds="[0, 1]",
             ),
+            Key(
+                "min_wall",
+                NUMBER,
+                "thinnest wall the machine prints; checked on the printed part",
+                "mm",
+                None,
+                _POSITIVE,
+            ),
+            Key(
+                "min_gap",
+                NUMBER,
+                "narrowest gap or hole the machine keeps clear; checked on the printed part",
+                "mm",
+                None,
+                _POSITIVE,
+            ),
         ),
     ),
     Section(

@@ -15,6 +15,7 @@ import numpy as np
 from .checks import SignOffFigures, run_checks
 from .deflection import deflections
 from .integrity import enclosed_cavities, load_path
+from .lengthscale import minimum_wall_and_gap
 from .printability import SOLID, support_needed, unsupported_fraction
 from .printed import finite_or_none, relative_gap
 
@@ -112,6 +113,7 @@ def sign_off(result) -> dict:
         c.__dict__ for c in enclosed_cavities(part.density, dom.element_size, dom.element_volume)
     ]
     interfaces = interface_support(problem, model, part.density, grey)
+    wall, gap = minimum_wall_and_gap(part.density, dom.element_size)
     build = problem.build
     unsupported = unsupported_fraction(part.density, build.direction) if build else None
     deflection_rows = [
@@ -142,6 +144,11 @@ def sign_off(result) -> dict:
         unsupported_limit=requirements.unsupported_fraction,
         cavities=cavities,
         compliance_gap_limit=requirements.compliance_gap,
+        min_wall_mm=wall,
+        min_gap_mm=gap,
+        wall_limit=requirements.min_wall,
+        gap_limit=requirements.min_gap,
+        element_size=dom.element_size,
     )
     return {
         "printed": printed,
@@ -161,5 +168,7 @@ def sign_off(result) -> dict:
         "deflections": deflection_rows,
         "enclosed_cavities": cavities,
         "unsupported_fraction": unsupported,
+        "min_wall_mm": wall,
+        "min_gap_mm": gap,
         "checks": run_checks(figures),
     }
