@@ -66,3 +66,24 @@ def test_report_is_well_formed_and_holds_the_summary_figures(tmp_path):
     (out / "report.html").unlink()
     assert main(["report", str(out)]) == 0
     assert (out / "report.html").read_text() == text
+
+
+def test_pictures_are_made_for_2d_and_3d_designs(tmp_path):
+    from problems import beam_problem
+    from topo import export, optimize, problem_from_dict
+
+    for dim in (2, 3):
+        d = beam_problem(dim, max_iterations=5)
+        d["build"] = {"direction": "+x"}
+        d["passive"] = [
+            {
+                "kind": "void",
+                "region": {"sphere": {"center": [6.0, 2.0] + [2.0] * (dim - 2), "radius": 1.0}},
+            }
+        ]
+        out = tmp_path / f"d{dim}"
+        export(optimize(problem_from_dict(d)), out)
+        for name in ("design.png", "history.png"):
+            data = (out / name).read_bytes()
+            assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 10_000, (dim, name)
+        assert "data:image/png;base64," in (out / "report.html").read_text()

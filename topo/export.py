@@ -17,7 +17,7 @@ import numpy as np
 
 from . import mesh as meshing
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
-from .regions import select_nodes
+from .pictures import design_figure
 from .report import design_surface, run_summary
 from .review import build_report
 
@@ -56,86 +56,11 @@ def write_history_png(result, path: Path) -> None:
     write_figure(path, fig)
 
 
-def _mark_loads_and_supports(ax, result) -> None:
-    model, problem = result.model, result.problem
-    grid = model.grid
-    pts = grid.node_coords
-    fixed_nodes = np.unique(model.fixed_dofs // grid.dim)
-    ax.plot(
-        pts[fixed_nodes, 0],
-        pts[fixed_nodes, 1],
-        "^",
-        ms=3,
-        color="tab:blue",
-        label="supports",
-        ls="none",
-    )
-    span = max(grid.size)
-    colors = plt.rcParams["axes.prop_cycle"].by_key()["color"][1:]
-    for i, case in enumerate(problem.load_cases):
-        for j, force in enumerate(case.forces):
-            nodes = select_nodes(force.region, grid)
-            centre = pts[nodes].mean(axis=0)
-            vec = np.array(force.total[:2])
-            if np.linalg.norm(vec) == 0:
-                continue
-            arrow = 0.15 * span * vec / np.linalg.norm(vec)
-            ax.annotate(
-                "",
-                xy=centre,
-                xytext=centre - arrow,
-                arrowprops={"arrowstyle": "->", "color": colors[i % len(colors)], "lw": 2},
-            )
-            if j == 0:
-                ax.plot([], [], color=colors[i % len(colors)], label=f"load: {case.name}")
-
-
 def write_design_png(result, path: Path) -> None:
-    rho = result.density
-    grid = result.model.grid
-    size = grid.size
-    if rho.ndim == 2:
-        fig, ax = plt.subplots(figsize=(7, 7 * size[1] / size[0] + 0.8))
-        ax.imshow(
-            rho.T,
-            origin="lower",
-            extent=(0, size[0], 0, size[1]),
-            cmap="gray_r",
-            vmin=0,
-            vmax=1,
-            interpolation="nearest",
-        )
-        _mark_loads_and_supports(ax, result)
-        ax.set_xlabel("x (mm)")
-        ax.set_ylabel("y (mm)")
-        ax.legend(
-            loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=4, fontsize=8, frameon=False
-        )
-        ax.set_title(f"{result.problem.name}: density")
-    else:
-        # Three orthographic views: the mean density along each viewing axis.
-        views = [
-            ("top (along z)", 2, 0, 1),
-            ("front (along y)", 1, 0, 2),
-            ("side (along x)", 0, 1, 2),
-        ]
-        fig, axes = plt.subplots(1, 3, figsize=(13, 4.2))
-        for ax, (title, along, a, b) in zip(axes, views):
-            img = rho.mean(axis=along)
-            ax.imshow(
-                img.T,
-                origin="lower",
-                extent=(0, size[a], 0, size[b]),
-                cmap="gray_r",
-                vmin=0,
-                vmax=1,
-                interpolation="nearest",
-            )
-            ax.set_xlabel(f"{'xyz'[a]} (mm)")
-            ax.set_ylabel(f"{'xyz'[b]} (mm)")
-            ax.set_title(title)
-        fig.suptitle(f"{result.problem.name}: mean density through the part")
-    write_figure(path, fig)
+    """The printed part with its supports, loads, interfaces and build plate
+    (pictures.py); 3D draws the design mesh at the default surface level."""
+    surface = design_surface(result) if result.density.ndim == 3 else None
+    write_figure(path, design_figure(result, surface))
 
 
 def write_problem(result, path: Path) -> None:

@@ -1,0 +1,162 @@
+"""design.png: the part as it will be printed, with what acts on it.
+
+2D: the printed part (density ≥ 0.5 with its interfaces whole) over the grey
+design, interfaces outlined, keep-out regions hatched, supports, load arrows whose
+length follows the force, and the build plate with the build direction. 3D: the
+design mesh, shaded, from three views, with the same marks. matplotlib only, no
+display needed.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .files import pyplot
+from .regions import select_nodes
+
+ARROW_SHARE = 0.2  # the largest force is drawn this share of the domain's span
+LIGHT = np.array([0.4, -0.5, 0.75]) / np.linalg.norm([0.4, -0.5, 0.75])
+
+
+def _forces(result):
+    """(load-case index, case name, centre (dim,), total (dim,)) of every force."""
+    grid, pts = result.model.grid, result.model.grid.node_coords
+    out = []
+    for i, case in enumerate(result.problem.load_cases):
+        for force in case.forces:
+            nodes = select_nodes(force.region, grid)
+            out.append((i, case.name, pts[nodes].mean(axis=0), np.array(force.total, float)))
+    return out
+
+
+def _arrow_scale(result, forces) -> float:
+    largest = max((np.linalg.norm(f[3]) for f in forces), default=0.0)
+    return ARROW_SHARE * max(result.model.grid.size) / largest if largest > 0 else 0.0
+
+
+def _plate(size, direction: str):
+    """Axis index and coordinate of the build plate."""
+    axis = "xyz".index(direction[1])
+    return axis, (0.0 if direction[0] == "+" else size[axis])
+
+
+def _figure_2d(result):
+    plt = pyplot()
+    problem, model = result.problem, result.model
+    grid, size = model.grid, model.grid.size
+    fig, ax = plt.subplots(figsize=(7.5, 7.5 * size[1] / size[0] + 1.0))
+    shown = np.where(result.printed.density > 0.5, 1.0, 0.35 * result.density)
+    ax.imshow(
+        shown.T,
+        origin="lower",
+        extent=(0, size[0], 0, size[1]),
+        cmap="gray_r",
+        vmin=0,
+        vmax=1,
+        interpolation="nearest",
+    )
+    for kind, color, hatch in (("solid", "tab:blue", None), ("void", "tab:red", "//")):
+        mask = (model.solid if kind == "solid" else model.void).reshape(grid.shape)
+        if mask.any():
+            x = (np.arange(grid.shape[0]) + 0.5) * grid.h
+            y = (np.arange(grid.shape[1]) + 0.5) * grid.h
+            ax.contour(x, y, mask.T.astype(float), levels=[0.5], colors=color, linewidths=1.2)
+            if hatch:
+                ax.contourf(
+                    x, y, mask.T.astype(float), levels=[0.5, 1.5], colors="none", hatches=[hatch]
+                )
+            ax.plot(
+                [],
+                [],
+                color=color,
+                label="interface (kept solid)" if kind == "solid" else "keep-out region",
+            )
+    fixed = np.unique(model.fixed_dofs // grid.dim)
+    ax.plot(*grid.node_coords[fixed].T, "^", ms=3, color="tab:green", ls="none", label="supports")
+    forces = _forces(result)
+    scale = _arrow_scale(result, forces)
+    colors = ["tab:orange", "tab:purple", "tab:brown", "tab:pink", "tab:olive", "tab:cyan"]
+    for i, name, centre, total in forces:
+        color = colors[i % len(colors)]
+        ax.annotate(
+            "",
+            xy=centre,
+            xytext=centre - scale * total,
+            arrowprops={"arrowstyle": "->", "color": color, "lw": 2},
+        )
+        ax.plot([], [], color=color, label=f"{name}: {np.linalg.norm(total):.4g} N")
+    if problem.build is not None:
+        axis, at = _plate(size, problem.build.direction)
+        line = ([at, at], [0, size[1]]) if axis == 0 else ([0, size[0]], [at, at])
+        ax.plot(
+            *line,
+            color="k",
+            lw=5,
+            solid_capstyle="butt",
+            label=f"build plate, grown {problem.build.direction}",
+        )
+    ax.set_xlim(-0.05 * size[0], 1.05 * size[0])
+    ax.set_ylim(-0.05 * size[1], 1.05 * size[1])
+    ax.set_xlabel("x (mm)")
+    ax.set_ylabel("y (mm)")
+    ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.12), ncol=3, fontsize=8, frameon=False)
+    ax.set_title(f"{problem.name}: the printed part (grey: below ρ = 0.5, not printed)")
+    return fig
+
+
+def _figure_3d(result, surface):
+    from mpl_toolkits.mplot3d.art3d import Poly3DCollection
+
+    plt = pyplot()
+    problem, model = result.problem, result.model
+    size = model.grid.size
+    mesh = surface.mesh
+    tri = mesh.vertices[mesh.faces]
+    normals = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+    normals /= np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-12)
+    shade = 0.35 + 0.65 * np.clip(normals @ LIGHT, 0, 1)
+    colors = np.column_stack([0.55 * shade, 0.62 * shade, 0.72 * shade, np.ones_like(shade)])
+    forces = _forces(result)
+    scale = _arrow_scale(result, forces)
+    fixed = result.model.grid.node_coords[np.unique(model.fixed_dofs // 3)]
+    views = (("isometric", 25, -60), ("front (along y)", 0, -90), ("top (along z)", 90, -90))
+    fig = plt.figure(figsize=(15, 5.2))
+    for k, (title, elev, azim) in enumerate(views):
+        ax = fig.add_subplot(1, 3, k + 1, projection="3d")
+        ax.add_collection3d(
+            Poly3DCollection(tri, facecolors=colors, edgecolors=colors, linewidths=0.2)
+        )
+        ax.scatter(*fixed.T, s=2, color="tab:green", label="supports")
+        for _, _, centre, total in forces:
+            ax.quiver(*(centre - scale * total), *(scale * total), color="tab:orange", lw=2)
+        if problem.build is not None:
+            axis, at = _plate(size, problem.build.direction)
+            corners = np.zeros((4, 3))
+            others = [a for a in range(3) if a != axis]
+            corners[:, axis] = at
+            corners[:, others[0]] = [0, size[others[0]], size[others[0]], 0]
+            corners[:, others[1]] = [0, 0, size[others[1]], size[others[1]]]
+            ax.add_collection3d(Poly3DCollection([corners], facecolors=(0, 0, 0, 0.15)))
+        ax.set_xlim(0, size[0])
+        ax.set_ylim(0, size[1])
+        ax.set_zlim(0, size[2])
+        ax.set_box_aspect(size)
+        ax.view_init(elev, azim)
+        ax.set_title(title, fontsize=9)
+        ax.set_xlabel("x (mm)", fontsize=7)
+        ax.set_ylabel("y (mm)", fontsize=7)
+        ax.set_zlabel("z (mm)", fontsize=7)
+        ax.tick_params(labelsize=6)
+    build = f"; grown {problem.build.direction} from the shaded plate" if problem.build else ""
+    loads = ", ".join(f"{name} {np.linalg.norm(t):.4g} N" for _, name, _, t in forces)
+    fig.suptitle(
+        f"{problem.name}: the design mesh; supports green, loads orange ({loads}), "
+        f"arrow length ∝ force{build}",
+        fontsize=10,
+    )
+    return fig
+
+
+def design_figure(result, surface):
+    """The figure of design.png; `surface` is the design mesh (report.design_surface)."""
+    return _figure_2d(result) if result.density.ndim == 2 else _figure_3d(result, surface)
