@@ -43,16 +43,37 @@ def write_history_csv(result, path: Path) -> None:
 
 
 def write_history_png(result, path: Path) -> None:
-    fig, ax = plt.subplots(figsize=(6.4, 3.6))
-    it = [r["iteration"] for r in result.history]
-    ax.plot(it, [r["objective"] for r in result.history], color="tab:blue")
+    """Objective and material use against iteration, the material target as a
+    dashed line and each β step of the projection as a dotted one."""
+    history, opt = result.history, result.problem.optimization
+    fig, ax = plt.subplots(figsize=(7.2, 3.8))
+    it = [r["iteration"] for r in history]
+    ax.plot(it, [r["objective"] for r in history], color="tab:blue")
     ax.set_xlabel("iteration")
-    ax.set_ylabel("weighted compliance (N·mm)", color="tab:blue")
+    ax.set_ylabel("objective (weighted compliance, N·mm)", color="tab:blue")
     ax.set_yscale("log")
     ax2 = ax.twinx()
-    ax2.plot(it, [r["volume_fraction"] for r in result.history], color="tab:orange")
-    ax2.set_ylabel("volume fraction", color="tab:orange")
-    ax.set_title(f"{result.problem.name}: convergence")
+    ax2.plot(it, [r["volume_fraction"] for r in history], color="tab:orange")
+    ax2.set_ylabel("volume fraction of the design elements", color="tab:orange")
+    if opt.volume_fraction is not None:
+        ax2.axhline(opt.volume_fraction, color="tab:orange", ls="--", lw=1, label="target")
+    for before, row in zip(history, history[1:]):
+        if row["beta"] != before["beta"]:
+            ax.axvline(row["iteration"], color="grey", ls=":", lw=1)
+            ax.annotate(
+                f"β {row['beta']:g}",
+                (row["iteration"], 1),
+                xycoords=("data", "axes fraction"),
+                fontsize=7,
+                color="grey",
+                rotation=90,
+                va="top",
+                ha="right",
+            )
+    stop = result.stop_reason or ""
+    ax.set_title(
+        f"{result.problem.name}: convergence ({len(history)} iterations; {stop})", fontsize=9
+    )
     write_figure(path, fig)
 
 
