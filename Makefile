@@ -19,7 +19,9 @@ system-deps:
 	if [ -n "$$missing" ]; then \
 	  if [ "$$(id -u)" = 0 ]; then \
 	    echo "installing Debian packages:$$missing"; \
-	    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends $$missing; \
+	    log=$$(mktemp); \
+	    { apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq --no-install-recommends $$missing; } >$$log 2>&1 \
+	      || { cat $$log; rm -f $$log; exit 1; }; rm -f $$log; \
 	  else \
 	    echo "warning: Debian packages missing:$$missing (run as root, or install them); continuing"; \
 	  fi; \
@@ -28,8 +30,9 @@ system-deps:
 $(STAMP): pyproject.toml
 	@$(MAKE) --no-print-directory system-deps
 	@test -x $(PY) || $(PYTHON) -m venv $(VENV)
-	$(PY) -m pip install -q --upgrade pip
-	$(PY) -m pip install -q -e ".[test]"
+	@echo "installing topo and its Python packages into $(VENV) (log: $(VENV)/install.log)"
+	@$(PY) -m pip install -q --upgrade pip >$(VENV)/install.log 2>&1 || { cat $(VENV)/install.log; exit 1; }
+	@$(PY) -m pip install -q -e ".[test]" >>$(VENV)/install.log 2>&1 || { cat $(VENV)/install.log; exit 1; }
 	@touch $(STAMP)
 
 demo: $(STAMP)
