@@ -30,6 +30,9 @@ from . import (
     sweep,
     write_report,
 )
+from .orient import CAUTION as ORIENT_CAUTION
+from .orient import orient
+from .orient import write_outputs as write_orient
 
 
 @dataclass
@@ -199,6 +202,44 @@ def cmd_sweep(args, outputs: Outputs) -> int:
     return 0
 
 
+def cmd_orient(args, outputs: Outputs) -> int:
+    problem = _load(args)
+    dims = ("+x", "-x", "+y", "-y", "+z", "-z")[: 2 * problem.dim]
+    chosen = [d.strip() for d in args.directions.split(",")] if args.directions else list(dims)
+    for d in chosen:
+        if d not in dims:
+            raise ProblemError(
+                "--directions",
+                d,
+                f"not a build direction of a {problem.dim}D problem; choose from {', '.join(dims)}",
+            )
+    out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-orient"
+    outputs.folder = out
+    print(f"{problem.name}: one design per build direction ({', '.join(chosen)})", flush=True)
+    rows, best, reason = orient(
+        problem,
+        chosen,
+        jobs=args.jobs,
+        out=out,
+        scheduler=args.scheduler,
+        progress=lambda t: print(t, flush=True),
+    )
+    write_orient(problem, rows, best, reason, out)
+    for r in rows:
+        cost = r["printed_cost_per_part"]
+        print(
+            f"  {r['build.direction']}: compliance {r['compliance_Nmm']:.5g} N·mm, support "
+            f"{r['support_volume_mm3']:.4g} mm³, {r['layers']} layers, "
+            f"{'does not fit the plate' if cost is None else f'{cost:.4g} per part'}"
+            + (f"; checks FAILED: {r['checks_failed']}" if r["checks_failed"] else "")
+        )
+    print(f"recommended: {reason}")
+    print(f"table in {out}/orient.csv, pictures orient.png and cost.png")
+    print(ORIENT_CAUTION)
+    print(CAUTION)
+    return 0
+
+
 def cmd_bench(args, outputs: Outputs) -> int:
     report = run_benchmarks(quick=args.quick, only=args.case)
     if args.out:
@@ -277,6 +318,15 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--out", help="sweep folder (default outputs/NAME-sweep)")
     p.set_defaults(func=cmd_sweep)
+    p = sub.add_parser("orient", help="a design per build direction, with supports, time and cost")
+    common(p)
+    p.add_argument("--directions", help="comma-separated, e.g. +z,-z,+x (default: every axis)")
+    p.add_argument("--jobs", type=int, default=1, help="local worker processes (default 1)")
+    p.add_argument(
+        "--scheduler", help="address of a running Dask scheduler (needs dask.distributed)"
+    )
+    p.add_argument("--out", help="study folder (default outputs/NAME-orient)")
+    p.set_defaults(func=cmd_orient)
     p = sub.add_parser("bench", help="benchmark the standard cases (per-phase times, ratios)")
     p.add_argument("--quick", action="store_true", help="small cases only, for small machines")
     p.add_argument("--case", action="append", help="run only this case (repeatable)")

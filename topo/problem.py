@@ -24,6 +24,7 @@ from typing import Any
 
 import tomllib
 
+from .cost import CostRates
 from .materials import Material
 from .schema import SECTIONS, Reader
 
@@ -188,6 +189,7 @@ class Problem:
     warnings: tuple[str, ...] = ()
     deflections: tuple[DeflectionPoint, ...] = ()
     checks: Checks = Checks()
+    cost: CostRates = CostRates()
 
     @property
     def dim(self) -> int:
@@ -320,6 +322,7 @@ class _Parser(Reader):
         )
         self.unique([p.name for p in deflections], "deflection")
         checks = Checks(**self.read("checks", top["checks"] or {}, "checks", {}))
+        cost = CostRates(**self.read("cost", top["cost"] or {}, "cost", {"dim": 2}))
         return Problem(
             top["name"],
             top["description"],
@@ -335,6 +338,7 @@ class _Parser(Reader):
             tuple(self.warnings),
             deflections,
             checks,
+            cost,
         )
 
     def unique(self, names: list[str], key: str) -> None:
