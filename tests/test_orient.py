@@ -107,3 +107,11 @@ def test_study_recommends_a_direction_whose_checks_pass(tmp_path):
     assert [p.name for p in written] == ["orient.csv", "orient.png", "cost.png"]
     table = [r for r in csv.reader(open(tmp_path / "orient.csv")) if not r[0].startswith("#")]
     assert table[1 + best][-1] == "True" and sum(r[-1] == "True" for r in table[1:]) == 1
+
+
+def test_a_plate_smaller_than_the_domain_is_refused(tmp_path):
+    d = beam_problem(2, [30.0, 30.0], 1.0)  # 30 mm across in x and in y
+    d["cost"] = {"plate_size": [20.0, 20.0]}
+    with pytest.raises(ProblemError, match="cost.plate_size"):
+        orient(problem_from_dict(d), ["+x", "+y"], out=tmp_path)
+    assert not any(tmp_path.iterdir())  # refused before any run

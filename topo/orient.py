@@ -24,6 +24,7 @@ from .cost import (
 )
 from .printability import directions as all_directions
 from .printability import support_needed
+from .problem import ProblemError
 
 CAUTION = (
     "Cost and time figures are estimates for comparing options, not quotes; the "
@@ -94,6 +95,25 @@ def direction_figures(result, direction: str) -> dict:
     return row
 
 
+def _refuse_small_plate(problem, chosen: list[str]) -> None:
+    """A plate that cannot take the design domain in any chosen direction makes the
+    study pointless (the part may come out smaller, but no design is bounded by it)."""
+    dom, rates = problem.domain, problem.cost
+    size = tuple(dom.size) + ((dom.thickness,) if problem.dim == 2 else ())
+    for d in chosen:
+        axis = "xyz".index(d[1])
+        footprint = tuple(size[a] for a in range(3) if a != axis)
+        if parts_per_build(footprint, rates) > 0:
+            return
+    raise ProblemError(
+        problem.source,
+        "cost.plate_size",
+        f"{list(rates.plate_size)} mm is smaller than the design domain "
+        f"({' × '.join(f'{s:g}' for s in size)} mm) in every build direction "
+        f"studied ({', '.join(chosen)})",
+    )
+
+
 def recommend(rows: list[dict]) -> tuple[int | None, str]:
     """Index of the recommended direction and the reason in words. Only directions
     whose checks all pass and that fit the plate are eligible; among those within
@@ -135,6 +155,9 @@ def orient(
     if isinstance(problem, (str, Path)):
         problem = load_problem(problem)
     chosen = list(directions or all_directions(problem.dim))
+    _refuse_small_plate(problem, chosen)
+    if jobs < 1:
+        raise ProblemError("--jobs", str(jobs), "needs at least one worker process")
     root = Path(out) if out else Path("outputs") / f"{problem.name}-orient"
     rows = sweep(
         problem,
