@@ -19,6 +19,7 @@ import numpy as np
 from .checkpoint import Checkpoint, LoopState
 from .continuation import Continuation, density_change
 from .fem import Analysis, Model
+from .interrupts import Interrupts
 from .optimizers import make_optimizer
 from .printability import unreachable
 from .printed import PrintedPart, printed_part
@@ -44,6 +45,7 @@ class Result:
     stop_reason: str = ""
     summary: dict = field(default_factory=dict)
     printed: PrintedPart | None = None  # the thresholded design with interfaces whole
+    loop_ended: bool = False  # made by the design loop (not an analysis or a re-read run)
 
     def __post_init__(self):
         if self.printed is None:
@@ -169,9 +171,37 @@ def _optimize(
     continuation = Continuation(
         projection, opt.beta_max, opt.beta_interval, opt.tolerance, state.beta
     )
+    if state.finished is None:
+        with Interrupts() as interrupts:
+            parts = (chain, model, responses, optimizer, continuation)
+            _loop(state, parts, saved, callback, timer, interrupts)
+            interrupts.check()  # a signal during the last iteration stops before the export
+    result = _result(
+        problem,
+        model,
+        chain,
+        state,
+        state.finished["converged"],
+        state.finished["stop_reason"],
+        start,
+    )
+    result.loop_ended = True
+    result.summary = summarize(result)
+    return result
+
+
+def _loop(state: LoopState, parts, saved: Checkpoint, callback, timer: Timer, interrupts) -> None:
+    """Iterate until a stopping rule, the iteration limit or a numerical fault; then
+    record why in `state.finished` and save the checkpoint, so that a run interrupted
+    later (in the export) resumes to the export with no further iteration."""
+    chain, model, responses, optimizer, continuation = parts
+    opt = model.problem.optimization
     stop, stop_reason = None, "iteration limit"
+    whole = True  # state holds a whole iteration: safe to save
     try:
         for it in range(state.iteration + 1, opt.max_iterations + 1):
+            interrupts.check()
+            whole = False
             t0 = time.perf_counter()
             rho, ev, x = _iterate(state.x, chain, model, responses, optimizer, timer)
             if not (np.isfinite(ev.objective.value) and np.all(np.isfinite(x))):
@@ -192,6 +222,7 @@ def _optimize(
             state.history.append(row)
             stop = continuation.after(state, change)
             state.x, state.iteration = x, it
+            whole = True
             if saved.due(it):
                 saved.save(state)
             if callback:
@@ -200,14 +231,17 @@ def _optimize(
                 stop_reason = stop
                 break
     except FloatingPointError as exc:
+        # the optimizer may have moved past the last good design: its parts are not
+        # saved again, so a resume of this run repeats the fault the same way
         stop_reason = f"numerical fault: {exc}; the design is the last good one"
+        state.finished = {"stop_reason": stop_reason, "converged": False}
+        return
     except KeyboardInterrupt:
-        saved.save(state)
+        if whole:
+            saved.save(state)
         raise
-
-    result = _result(problem, model, chain, state, stop is not None, stop_reason, start)
-    result.summary = summarize(result)
-    return result
+    state.finished = {"stop_reason": stop_reason, "converged": stop is not None}
+    saved.save(state)
 
 
 def _result(

@@ -1,8 +1,9 @@
 """Writers for a Result, registered by output file name.
 
-Every file is written atomically (files.py), and summary.json goes last, so a folder
-with a summary is a finished run. The writers only write: the figures come from
-report.py and the Result is not changed.
+Every file is written atomically (files.py), and summary.json goes last. A whole
+export of a design loop's Result then writes finished.json (runfolder.py), the mark
+of a finished run; a re-export (`topo export`, load_run) never does. The writers
+only write: the figures come from report.py and the Result is not changed.
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ from . import mesh as meshing
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
 from .regions import select_nodes
 from .report import design_surface, run_summary
+from .runfolder import MARKER, mark_finished
 
 plt = pyplot()
 
@@ -248,4 +250,7 @@ def export(
     if only is None or SUMMARY in only:
         write_text(out / SUMMARY, summary_text)
         written.append(out / SUMMARY)
+    if only is None and getattr(result, "loop_ended", False):
+        mark_finished(out, result)
+        written.append(out / MARKER)
     return Exported(written, summary)
