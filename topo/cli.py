@@ -441,6 +441,8 @@ def _continue_hint(outputs: Outputs) -> str:
     out = outputs.folder
     if out is not None and (out / "checkpoint.npz").exists():
         return f"; continue with: topo run --resume {out}"
+    if out is not None:
+        return "; no checkpoint was saved yet: run the same command again"
     return ""
 
 
