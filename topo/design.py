@@ -148,6 +148,17 @@ def _refuse_unreachable(problem: Problem, model: Model) -> None:
         )
 
 
+def _refuse_empty_budget(problem: Problem, model: Model) -> None:
+    fraction, n = problem.optimization.volume_fraction, int(model.active.sum())
+    if fraction is not None and fraction * n < 1:
+        raise ProblemError(
+            problem.source,
+            "optimization.volume_fraction",
+            f"{fraction:g} of the {n} design elements is less than one element's material: "
+            f"the design would be empty; give at least {1 / n:.3g}",
+        )
+
+
 def _optimize(
     problem: Problem, callback, timer: Timer, checkpoint, resume, make, allow_unreachable
 ) -> Result:
@@ -162,6 +173,7 @@ def _optimize(
         raise ProblemError(
             problem.source, "passive", "no design elements: passive regions cover the whole domain"
         )
+    _refuse_empty_budget(problem, model)
     responses = Responses(problem, model, chain)
     optimizer = make(opt, model.active, responses.n_bounds, len(responses.constraints))
     saved = Checkpoint(

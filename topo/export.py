@@ -18,6 +18,7 @@ import numpy as np
 
 from . import mesh as meshing
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
+from .problem import field_name
 from .regions import select_nodes
 from .report import design_surface, run_summary
 from .runfolder import MARKER, mark_finished
@@ -153,10 +154,6 @@ def write_mesh(mesh: meshing.TriMesh, path: Path, fmt: str = "stl") -> None:
     write_meshio(path, m, fmt, **({} if fmt == "obj" else {"binary": True}))
 
 
-def _safe(name: str) -> str:
-    return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
-
-
 # Cut of the grey design's stress field: the level of the printed part and design.stl.
 GREY_STRESS_CUT = 0.5
 
@@ -182,7 +179,7 @@ def write_fields(result, path: Path) -> None:
     printed_vm = np.where(made[:, None], printed.analysis.von_mises, 0.0)
     grey_vm = np.where(grey_solid[:, None], grey.von_mises, 0.0)
     for i, case in enumerate(result.problem.load_cases):
-        name = _safe(case.name)
+        name = field_name(case.name)
         point_data[f"displacement_printed_{name}"] = _vectors(grid, printed.analysis, i)
         point_data[f"displacement_grey_{name}"] = _vectors(grid, grey, i)
         cell_data[f"von_mises_printed_{name}"] = [printed_vm[:, i]]
