@@ -147,6 +147,13 @@ def _resumable(out: Path) -> None:
 
 def cmd_export(args, outputs: Outputs) -> int:
     run = Path(args.run_dir)
+    if (run / runfolder.MARKER).exists() and not runfolder.finished(run):
+        raise ProblemError(
+            str(run / "density.npy"),
+            "",
+            f"damaged or changed since the run (it does not match {runfolder.MARKER}); "
+            "run the problem again into a new folder",
+        )
     if not runfolder.finished(run):
         more = (
             f"continue it with: topo run --resume {run}"

@@ -360,37 +360,78 @@ def check(problem: Problem) -> dict:
 
 def load_run(run_dir) -> Result:
     """A finished run folder (problem.json, density.npy, summary.json) as a Result,
-    with a fresh analysis of its density, for re-export without re-optimising."""
-    import json
-
+    with a fresh analysis of its density, for re-export without re-optimising.
+    A missing or damaged file raises a ProblemError that names it."""
     from .problem import problem_from_dict
 
     run = Path(run_dir)
     for name in ("problem.json", "density.npy"):
         if not (run / name).exists():
             raise FileNotFoundError(f"{run}: no {name}; is this a topo run folder?")
-    raw = json.loads((run / "problem.json").read_text())
-    problem = problem_from_dict(raw, source=str(run / "problem.json"))
-    result = analyze(problem, np.load(run / "density.npy"))
+    problem = problem_from_dict(
+        _read_json(run / "problem.json", dict), source=str(run / "problem.json")
+    )
+    result = analyze(problem, _read_density(run / "density.npy", problem.domain.shape))
     if (run / "summary.json").exists():
-        result.summary = json.loads((run / "summary.json").read_text())
+        result.summary = _read_json(run / "summary.json", dict)
     return result
 
 
+def _damaged(path: Path, why: str) -> ProblemError:
+    return ProblemError(
+        str(path),
+        "",
+        f"the file is damaged ({why}); run the problem again into a new folder "
+        "(or restore the file from a copy)",
+    )
+
+
+def _read_json(path: Path, kind: type):
+    import json
+
+    try:
+        value = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:  # truncated, emptied, not text
+        raise _damaged(path, f"{type(exc).__name__}: {exc}") from None
+    if not isinstance(value, kind):
+        raise _damaged(path, f"expected a JSON {kind.__name__}, got {type(value).__name__}")
+    return value
+
+
+def _read_density(path: Path, shape: tuple[int, ...]) -> np.ndarray:
+    try:
+        density = np.load(path, allow_pickle=False)
+    except Exception as exc:  # truncated, not .npy, pickled objects
+        raise _damaged(path, f"{type(exc).__name__}: {exc}") from None
+    if density.shape != tuple(shape) or density.dtype.kind != "f":
+        raise _damaged(path, f"{density.dtype} array of shape {density.shape}, the grid is {shape}")
+    if not np.all(np.isfinite(density)):
+        raise _damaged(path, "non-finite densities")
+    return density
+
+
 def load_run_problem(run_dir, overrides: list[tuple[str, object]] | None = None) -> Problem:
-    """The problem a run folder was made from (its problem.json or checkpoint)."""
+    """The problem a run folder was made from (its checkpoint or problem.json)."""
     import json
 
     from .problem import problem_from_dict
 
     run = Path(run_dir)
-    if (run / "problem.json").exists():
-        raw, source = json.loads((run / "problem.json").read_text()), run / "problem.json"
-    elif (run / "checkpoint.npz").exists():
-        raw, source = (
-            json.loads(str(np.load(run / "checkpoint.npz")["problem"])),
-            run / "checkpoint.npz",
-        )
+    if (run / "checkpoint.npz").exists():  # what a resume continues from
+        source = run / "checkpoint.npz"
+        try:
+            with np.load(source) as data:
+                raw = json.loads(str(data["problem"]))
+        except Exception as exc:  # truncated, emptied, bit-flipped
+            raise ProblemError(
+                str(source),
+                "",
+                f"the checkpoint is damaged ({type(exc).__name__}: {exc}). Delete it and run "
+                "the problem again without --resume",
+            ) from None
+    elif (run / "problem.json").exists():
+        source = run / "problem.json"
+        raw = _read_json(source, dict)
     else:
         raise FileNotFoundError(
             f"{run}: neither problem.json nor checkpoint.npz; is this a topo run folder?"
