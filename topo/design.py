@@ -355,7 +355,9 @@ def check(problem: Problem) -> dict:
     """Build the model without solving and report what it holds (`topo check`)."""
     from .report import model_report
 
-    return model_report(Model(problem))
+    model = Model(problem)
+    _refuse_empty_budget(problem, model)
+    return model_report(model)
 
 
 def load_run(run_dir) -> Result:
