@@ -382,3 +382,66 @@ def test_closed_stdout_ends_quietly(tmp_path, capsys, monkeypatch):
     assert capsys.readouterr().err == ""
     assert runfolder.finished(tmp_path / "run") is not None  # the run went on to the end
     assert not (tmp_path / "run" / "error.log").exists()
+
+
+# ------------------------------------------------------------------ loader fuzz
+
+from hypothesis import HealthCheck, given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from topo.problem import ProblemError, load_problem  # noqa: E402
+
+FUZZ = settings(
+    max_examples=300, deadline=None, derandomize=True, suppress_health_check=list(HealthCheck)
+)
+
+
+def loads_or_refuses(tmp_path, content) -> None:
+    f = write(tmp_path / "fuzz.toml", content)
+    try:
+        load_problem(f)
+    except ProblemError:
+        pass  # any other exception fails the test
+
+
+@FUZZ
+@given(st.binary(max_size=200))
+def test_fuzz_arbitrary_bytes(tmp_path_factory, data):
+    loads_or_refuses(tmp_path_factory.mktemp("f"), data)
+
+
+@FUZZ
+@given(st.integers(0, len(GOOD)), st.integers(0, 40), st.text(max_size=30))
+def test_fuzz_spliced_text(tmp_path_factory, at, cut, insert):
+    """The good file with a stretch replaced by random text (any Unicode)."""
+    loads_or_refuses(tmp_path_factory.mktemp("f"), GOOD[:at] + insert + GOOD[at + cut :])
+
+
+VALUES = st.one_of(
+    st.floats(allow_nan=False),
+    st.integers(-(2**63), 2**63 - 1),
+    st.sampled_from(["1e308", "-1e308", "1e-320", "inf", "nan", '"x"', "true", "[]", "{}"]),
+)
+
+
+@FUZZ
+@given(
+    st.sampled_from(
+        [
+            "20.0, 10.0",
+            "1.0",
+            "2.0",
+            "0.4",
+            "12",
+            "0.0, -10.0",
+            "20.0, 5.0",
+        ]
+    ),
+    VALUES,
+)
+def test_fuzz_one_value(tmp_path_factory, original, value):
+    """One number of the good file replaced by an extreme or wrong-typed value."""
+    text = value if isinstance(value, str) else repr(value)
+    if isinstance(value, float) and not np.isfinite(value):
+        text = "inf" if value > 0 else "-inf"
+    loads_or_refuses(tmp_path_factory.mktemp("f"), GOOD.replace(original, text, 1))

@@ -362,6 +362,12 @@ class _Parser(Reader):
         shape = []
         for i, s in enumerate(size):
             n = s / h
+            if not math.isfinite(n) or n > MAX_ELEMENTS:
+                self.fail(
+                    "domain.element_size",
+                    f"{h:g} mm makes {n:g} elements along axis {i}, more than topo handles "
+                    f"({MAX_ELEMENTS:,}); use a coarser element_size",
+                )
             if abs(n - round(n)) > 1e-6 * max(1.0, n) or round(n) < 1:
                 self.fail(
                     f"domain.size[{i}]",
