@@ -445,3 +445,50 @@ def test_fuzz_one_value(tmp_path_factory, original, value):
     if isinstance(value, float) and not np.isfinite(value):
         text = "inf" if value > 0 else "-inf"
     loads_or_refuses(tmp_path_factory.mktemp("f"), GOOD.replace(original, text, 1))
+
+
+def test_a_full_disk_keeps_the_last_checkpoint_and_says_so(tmp_path, capsys, monkeypatch):
+    from topo import files
+
+    f = write(
+        tmp_path / "p.toml",
+        GOOD.replace("max_iterations = 12", "max_iterations = 12\ncheckpoint_interval = 2"),
+    )
+    out = tmp_path / "run"
+    real_mkstemp = files.tempfile.mkstemp
+    saves = {"n": 0}
+
+    def full_after_first(prefix, suffix, dir):
+        fd, tmp = real_mkstemp(prefix=prefix, suffix=suffix, dir=dir)
+        if prefix.startswith(".checkpoint.npz"):
+            saves["n"] += 1
+            if saves["n"] > 1:  # the disk is full from the second save on
+                os.close(fd)
+                fd = os.open("/dev/full", os.O_WRONLY)  # every write: ENOSPC
+        return fd, tmp
+
+    with monkeypatch.context() as m:
+        m.setattr(files.tempfile, "mkstemp", full_after_first)
+        code, err = call(["run", f, "--out", out, "--quiet"], capsys)
+    assert code == 2, err
+    assert f"cannot write {out / 'checkpoint.npz'}: No space left on device" in err
+    assert f"topo run --resume {out}" in err and "Traceback" not in err
+    assert not (out / "error.log").exists()
+    assert sorted(p.name for p in out.iterdir()) == ["checkpoint.npz"]  # of iteration 2
+    assert call(["run", "--resume", out, "--quiet"], capsys)[0] == 0
+
+
+def test_a_lock_that_cannot_be_made_is_refused_before_the_loop(tmp_path, capsys, monkeypatch):
+    """What a folder without write permission gives (also when running as root)."""
+    f = write(tmp_path / "p.toml", GOOD)
+    real_open = os.open
+
+    def refuse_lock(path, *a, **k):
+        if str(path).endswith(runfolder.LOCK):
+            raise PermissionError(13, "Permission denied", str(path))
+        return real_open(path, *a, **k)
+
+    monkeypatch.setattr(runfolder.os, "open", refuse_lock)
+    code, err = call(["run", f, "--out", tmp_path / "run", "--quiet"], capsys)
+    assert code == 2 and "--out" in err and "not writable (Permission denied)" in err
+    assert not (tmp_path / "run").exists()

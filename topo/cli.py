@@ -5,6 +5,7 @@ given, and main puts error.log there."""
 from __future__ import annotations
 
 import argparse
+import errno
 import json
 import math
 import os
@@ -408,9 +409,10 @@ def _at_least(low: int):
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Exit codes: 0 success, 2 input error (one message, no traceback), 1 internal
-    error (the traceback goes to error.log in the output folder), 3 a check of the
-    printed part failed under `run --strict`."""
+    """Exit codes: 0 success, 2 input error or a file that cannot be written (one
+    message, no traceback), 1 internal error (the traceback goes to error.log in the
+    output folder), 3 a check of the printed part failed under `run --strict`,
+    130 interrupted (Ctrl-C or SIGTERM; the message says how to continue)."""
     args = build_parser().parse_args(argv)
     outputs = Outputs(argv=tuple(sys.argv[1:] if argv is None else argv))
     terminate_as_interrupt()
@@ -428,6 +430,14 @@ def main(argv: list[str] | None = None) -> int:
     except Exception as exc:  # the one place that turns crashes into exit 1
         import traceback
 
+        if isinstance(exc, OSError) and exc.errno in WRITE_FAULTS:
+            print(
+                f"error: cannot write {exc.filename}: {exc.strerror}; the files written "
+                "before are kept" + _continue_hint(outputs),
+                file=sys.stderr,
+            )
+            return 2
+
         text = traceback.format_exc()
         try:
             out = Path(outputs.folder or "outputs")
@@ -440,6 +450,10 @@ def main(argv: list[str] | None = None) -> int:
             where = f"traceback above; no error.log: {why}"
         print(f"internal error: {type(exc).__name__}: {exc} ({where})", file=sys.stderr)
         return 1
+
+
+# a full disk, a quota, a read-only or forbidden folder: the user's to fix
+WRITE_FAULTS = (errno.ENOSPC, errno.EDQUOT, errno.EROFS, errno.EACCES, errno.EPERM)
 
 
 def _continue_hint(outputs: Outputs) -> str:
