@@ -492,3 +492,26 @@ def test_a_lock_that_cannot_be_made_is_refused_before_the_loop(tmp_path, capsys,
     code, err = call(["run", f, "--out", tmp_path / "run", "--quiet"], capsys)
     assert code == 2 and "--out" in err and "not writable (Permission denied)" in err
     assert not (tmp_path / "run").exists()
+
+
+def test_a_stopped_parallel_sweep_stops_its_workers(tmp_path, capsys, monkeypatch):
+    """Ctrl-C reaching the sweep's process alone (not its workers): the workers are
+    stopped too, and the table of the finished runs is written. One run takes 5
+    iterations, the other would take 3000; the stop comes as the short one is done."""
+    import multiprocessing as mp
+
+    f = write(tmp_path / "p.toml", GOOD.replace("max_iterations = 12", "tolerance = 1e-12"))
+    out = tmp_path / "sweep"
+    argv = ["sweep", f, "--vary", "optimization.max_iterations=5,3000", "--jobs", "2"]
+
+    def stop_on_first_result(text):
+        if text.startswith("[1/2]"):
+            raise KeyboardInterrupt  # as SIGINT to this process would, while it waits
+
+    monkeypatch.setattr("topo.cli._print", stop_on_first_result)
+    code, err = call([*argv, "--out", out], capsys)
+    assert code == 130 and "continue with the same command" in err
+    rows = (out / "sweep.csv").read_text().splitlines()
+    assert len(rows) == 2 and rows[1].startswith("5,")
+    assert mp.active_children() == []  # no worker runs on
+    assert runfolder.finished(out / "max_iterations-3000") is None
