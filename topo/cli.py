@@ -116,6 +116,8 @@ def cmd_run(args, outputs: Outputs) -> int:
         checkpoint = out / "checkpoint.npz"
         if args.resume:
             _print(f"resuming from {checkpoint}")
+        else:
+            runfolder.unmark(out)
         result = optimize(
             problem,
             callback=None if args.quiet else _progress,
@@ -415,7 +417,7 @@ def main(argv: list[str] | None = None) -> int:
     130 interrupted (Ctrl-C or SIGTERM; the message says how to continue)."""
     args = build_parser().parse_args(argv)
     outputs = Outputs(argv=tuple(sys.argv[1:] if argv is None else argv))
-    terminate_as_interrupt()
+    restore = terminate_as_interrupt()
     try:
         return args.func(args, outputs)
     except (ProblemError, FileNotFoundError) as exc:
@@ -450,6 +452,8 @@ def main(argv: list[str] | None = None) -> int:
             where = f"traceback above; no error.log: {why}"
         print(f"internal error: {type(exc).__name__}: {exc} ({where})", file=sys.stderr)
         return 1
+    finally:
+        restore()
 
 
 # a full disk, a quota, a read-only or forbidden folder: the user's to fix

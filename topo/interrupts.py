@@ -49,11 +49,14 @@ class Interrupts:
             raise KeyboardInterrupt
 
 
-def terminate_as_interrupt() -> None:
-    """SIGTERM raises KeyboardInterrupt, as Ctrl-C does (main thread only)."""
-    if threading.current_thread() is threading.main_thread():
+def terminate_as_interrupt():
+    """SIGTERM raises KeyboardInterrupt, as Ctrl-C does (main thread only); returns
+    the function that puts the former handler back."""
+    if threading.current_thread() is not threading.main_thread():
+        return lambda: None
 
-        def _raise(signum, frame):
-            raise KeyboardInterrupt
+    def _raise(signum, frame):
+        raise KeyboardInterrupt
 
-        signal.signal(signal.SIGTERM, _raise)
+    old = signal.signal(signal.SIGTERM, _raise)
+    return lambda: signal.signal(signal.SIGTERM, old)

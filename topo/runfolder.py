@@ -146,6 +146,11 @@ def mark_finished(folder, result) -> None:
     )
 
 
+def unmark(folder) -> None:
+    """A new run into a folder: the mark of an earlier run there no longer holds."""
+    (Path(folder) / MARKER).unlink(missing_ok=True)
+
+
 def finished(folder) -> dict | None:
     """The marker of a finished run whose density.npy is the one the run wrote, or None."""
     folder = Path(folder)

@@ -59,16 +59,18 @@ def run_one(
 
     if blas_threads:
         _limit_blas(blas_threads)
-    from .runfolder import OutputFolder
+    from .runfolder import OutputFolder, unmark
 
     problem = problem_from_dict(raw, params, source=source)
     out = Path(out_dir)
     with OutputFolder(out):
+        unmark(out)  # of an earlier run of other values, if any
         checkpoint = out / "checkpoint.npz"
         # a direction that cannot reach a load still runs: its failing load-path check
         # keeps it off the trade-off front, and the table says why
         result = optimize(
             problem,
+            callback=_check_stop,
             checkpoint=checkpoint,
             resume=_resumable(checkpoint, problem),
             allow_unreachable=True,
@@ -252,7 +254,11 @@ def _run_all(todo, raw, source, jobs, scheduler, record) -> None:
         from concurrent.futures import as_completed as done_first
 
         threads = max(1, (os.cpu_count() or 1) // jobs)  # jobs × threads ≤ cores
-        pool = ProcessPoolExecutor(jobs, mp_context=mp.get_context("spawn"))
+        context = mp.get_context("spawn")
+        stop = context.Event()
+        pool = ProcessPoolExecutor(
+            jobs, mp_context=context, initializer=_worker_init, initargs=(stop,)
+        )
         try:
             futures = {
                 pool.submit(run_one, raw, source, params, folder, threads): i
@@ -261,7 +267,7 @@ def _run_all(todo, raw, source, jobs, scheduler, record) -> None:
             for fut in done_first(futures):
                 record(futures[fut], fut.result())
         except KeyboardInterrupt:
-            _stop_workers(pool)
+            stop.set()  # the running runs save a checkpoint and stop
             raise
         finally:
             pool.shutdown(wait=True, cancel_futures=True)
@@ -270,14 +276,26 @@ def _run_all(todo, raw, source, jobs, scheduler, record) -> None:
             record(i, run_one(raw, source, params, folder))
 
 
-def _stop_workers(pool) -> None:
-    """SIGTERM to each worker: its run saves a checkpoint and stops (interrupts.py);
-    a signal to the sweep's process alone would otherwise leave them running."""
+# set by the sweep's process when it is stopped; each worker's run checks it after
+# every iteration (a whole iteration: the checkpoint it saves is exact)
+_STOP = None
+
+
+def _worker_init(stop) -> None:
+    """Workers leave Ctrl-C to the sweep's process, which stops them through `stop`:
+    a signal landing in a worker between runs could kill it in the middle of the
+    pool's queue and hang the pool. During a run the loop's own handler
+    (interrupts.py) still stops it cleanly."""
     import signal
 
-    for proc in list(getattr(pool, "_processes", {}).values()):
-        if proc.is_alive():
-            os.kill(proc.pid, signal.SIGTERM)
+    global _STOP
+    _STOP = stop
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _check_stop(row: dict) -> None:
+    if _STOP is not None and _STOP.is_set():
+        raise KeyboardInterrupt
 
 
 def write_table(rows: list[dict], path: Path) -> None:
