@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 
 from problems import tiny_bracket_toml
+from topo import runfolder
 from topo.cli import main
 
 SMALL = (
@@ -138,7 +139,9 @@ def test_export_writes_the_summary_without_changing_the_result(small, tmp_path):
     on_disk = json.loads((tmp_path / "summary.json").read_text())
     assert on_disk == written.summary and on_disk["mesh"]["faces"] > 0
     assert {k: v for k, v in on_disk.items() if k != "mesh"} == json.loads(json.dumps(before))
-    assert written.files[-1] == tmp_path / "summary.json"  # last: it marks a finished folder
+    # summary last of the outputs; then the mark of a finished run, over density.npy
+    assert written.files[-2:] == [tmp_path / "summary.json", tmp_path / "finished.json"]
+    assert runfolder.finished(tmp_path)["iterations"] == 5
 
 
 def test_strict_json_writer_refuses_non_finite_numbers_and_leaves_no_file(tmp_path):

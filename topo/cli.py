@@ -5,7 +5,11 @@ given, and main puts error.log there."""
 from __future__ import annotations
 
 import argparse
+import errno
 import json
+import math
+import os
+import shlex
 import sys
 from dataclasses import dataclass
 from pathlib import Path
@@ -27,9 +31,11 @@ from . import (
     parse_override,
     report,
     run_benchmarks,
+    runfolder,
     sweep,
     write_report,
 )
+from .interrupts import terminate_as_interrupt
 from .orient import CAUTION as ORIENT_CAUTION
 from .orient import orient
 from .orient import write_outputs as write_orient
@@ -38,14 +44,30 @@ from .orient import write_outputs as write_orient
 @dataclass
 class Outputs:
     """The output folder of the command in progress, once it is known (for error.log
-    and the resume hint)."""
+    and the resume hint), and the command that continues it after an interruption."""
 
     folder: Path | None = None
+    resume: str | None = None
+    argv: tuple[str, ...] = ()
 
 
 def _say(lines) -> None:
     for line in lines:
-        print(line, flush=True)
+        _print(line)
+
+
+def _print(text: str) -> None:
+    """print to stdout; once stdout is a closed pipe (`topo run ... | head`) the rest
+    goes to /dev/null and the command carries on."""
+    try:
+        print(text, flush=True)
+    except BrokenPipeError:
+        _drop_stdout()
+
+
+def _drop_stdout() -> None:
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, sys.stdout.fileno())
 
 
 def _load(args):
@@ -68,13 +90,15 @@ def _progress(row: dict) -> None:
 
 def cmd_run(args, outputs: Outputs) -> int:
     if args.resume:
-        problem = load_run_problem(args.resume, [parse_override(x) for x in (args.set or [])])
         out = Path(args.resume)
+        _resumable(out)
+        problem = load_run_problem(out, [parse_override(x) for x in (args.set or [])])
     else:
         if not args.file:
             raise ProblemError("topo run", "FILE", "give a problem file, or --resume RUN_DIR")
         problem = _load(args)
         out = _out_dir(args, problem)
+    runfolder.check_target(out)
     _warn(problem)
     est = estimate_resources(problem)
     _say([report.format_plan(problem, est)])
@@ -91,21 +115,24 @@ def cmd_run(args, outputs: Outputs) -> int:
             f"{est['available_bytes'] / 2**30:.1f} GiB are free{hint} "
             "(--force runs anyway)",
         )
-    out.mkdir(parents=True, exist_ok=True)
-    outputs.folder = out
-    checkpoint = out / "checkpoint.npz"
-    if args.resume:
-        print(f"resuming from {checkpoint}", flush=True)
-    result = optimize(
-        problem,
-        callback=None if args.quiet else _progress,
-        checkpoint=checkpoint,
-        resume=bool(args.resume),
-        allow_unreachable=args.allow_unreachable,
-    )
-    s = export(result, out, iso=args.iso, smooth=args.smooth, mesh_format=args.mesh_format).summary
-    if checkpoint.exists():
-        checkpoint.unlink()  # the run is complete; summary.json marks it
+    with runfolder.OutputFolder(out):
+        outputs.folder = out
+        checkpoint = out / "checkpoint.npz"
+        if args.resume:
+            _print(f"resuming from {checkpoint}")
+        else:
+            runfolder.unmark(out)
+        result = optimize(
+            problem,
+            callback=None if args.quiet else _progress,
+            checkpoint=checkpoint,
+            resume=bool(args.resume),
+            allow_unreachable=args.allow_unreachable,
+        )
+        s = export(
+            result, out, iso=args.iso, smooth=args.smooth, mesh_format=args.mesh_format
+        ).summary
+        checkpoint.unlink(missing_ok=True)  # the run is complete; finished.json marks it
     _say(report.format_run(s, args.mesh_format) + [f"outputs in {out}/", CAUTION])
     if s["stop_reason"].startswith("numerical fault"):
         print(f"error: {s['stop_reason']}", file=sys.stderr)
@@ -125,21 +152,49 @@ def cmd_report(args, outputs: Outputs) -> int:
     return 0
 
 
+def _resumable(out: Path) -> None:
+    if not (out / "checkpoint.npz").exists() and runfolder.finished(out):
+        raise ProblemError(
+            str(out), "--resume", "the run is finished (finished.json); nothing to resume"
+        )
+    if not out.is_dir():
+        raise ProblemError(str(out), "--resume", "no such run folder")
+
+
 def cmd_export(args, outputs: Outputs) -> int:
-    result = load_run(args.run_dir)
-    s = export(
-        result,
-        args.run_dir,
-        only=["fields.vtu", "summary.json"],
-        iso=args.iso,
-        smooth=args.smooth,
-        mesh_format=args.mesh_format,
-    ).summary
+    run = Path(args.run_dir)
+    if (run / runfolder.MARKER).exists() and not runfolder.finished(run):
+        raise ProblemError(
+            str(run / "density.npy"),
+            "",
+            f"damaged or changed since the run (it does not match {runfolder.MARKER}); "
+            "run the problem again into a new folder",
+        )
+    if not runfolder.finished(run):
+        more = (
+            f"continue it with: topo run --resume {run}"
+            if (run / "checkpoint.npz").exists()
+            else "run the problem again"
+        )
+        raise ProblemError(
+            str(run),
+            "RUN_DIR",
+            f"not a finished run (no {runfolder.MARKER} matching its density.npy); {more}",
+        )
+    with runfolder.OutputFolder(run, "RUN_DIR"):
+        result = load_run(run)
+        s = export(
+            result,
+            run,
+            only=["fields.vtu", "summary.json"],
+            iso=args.iso,
+            smooth=args.smooth,
+            mesh_format=args.mesh_format,
+        ).summary
     _say(
         [
             report.format_mesh(s["mesh"], args.mesh_format),
-            f"re-exported design.{args.mesh_format}, fields.vtu and summary.json "
-            f"in {args.run_dir}/",
+            f"re-exported design.{args.mesh_format}, fields.vtu and summary.json in {run}/",
         ]
     )
     return 0
@@ -158,12 +213,35 @@ def cmd_check(args, outputs: Outputs) -> int:
 
 def cmd_analyze(args, outputs: Outputs) -> int:
     problem = _load(args)
-    density = np.load(args.design) if args.design else None
-    result = analyze(problem, density)
+    density = _design(args.design, problem) if args.design else None
     out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-analysis"
-    s = export(result, out, only=["problem.json", "summary.json"], mesh=False).summary
+    runfolder.check_target(out)
+    result = analyze(problem, density)
+    with runfolder.OutputFolder(out):
+        s = export(result, out, only=["problem.json", "summary.json"], mesh=False).summary
     _say(report.format_analysis(s, args.design) + [f"summary in {out}/summary.json"])
     return 0
+
+
+def _design(path: str, problem) -> np.ndarray:
+    """A density.npy for `analyze --design`: readable, the problem's grid, finite."""
+    try:
+        density = np.load(path, allow_pickle=False)
+    except FileNotFoundError:
+        raise ProblemError(path, "--design", "no such file") from None
+    except Exception as exc:  # truncated, not .npy, pickled objects
+        raise ProblemError(
+            path, "--design", f"not a readable .npy array ({type(exc).__name__}: {exc})"
+        ) from None
+    shape = problem.domain.shape
+    if not isinstance(density, np.ndarray) or density.shape != shape:
+        got = getattr(density, "shape", type(density).__name__)
+        raise ProblemError(
+            path, "--design", f"design of shape {got}, the problem's grid is {shape}"
+        )
+    if density.dtype.kind not in "fiub" or not np.all(np.isfinite(density)):
+        raise ProblemError(path, "--design", "densities must be finite numbers in [0, 1]")
+    return density
 
 
 def _parse_vary(text: str) -> tuple[str, list]:
@@ -181,24 +259,25 @@ def cmd_sweep(args, outputs: Outputs) -> int:
     problem = _load(args)
     vary = dict(_parse_vary(v) for v in args.vary)
     out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-sweep"
-    outputs.folder = out
+    runfolder.check_target(out)
     n = int(np.prod([len(v) for v in vary.values()]))
     where = f"on {args.scheduler}" if args.scheduler else f"with {args.jobs} local job(s)"
-    print(f"{problem.name}: sweeping {', '.join(vary)} ({n} runs) {where}", flush=True)
-    rows = sweep(
-        problem,
-        vary,
-        jobs=args.jobs,
-        out=out,
-        scheduler=args.scheduler,
-        progress=lambda text: print(text, flush=True),
-    )
+    with runfolder.OutputFolder(out):
+        outputs.folder = out
+        # finished runs are kept, interrupted ones resume from their checkpoints
+        outputs.resume = shlex.join(["topo", *outputs.argv]) if outputs.argv else None
+        _print(f"{problem.name}: sweeping {', '.join(vary)} ({n} runs) {where}")
+        rows = sweep(
+            problem, vary, jobs=args.jobs, out=out, scheduler=args.scheduler, progress=_print
+        )
     ran = sum(r["ran"] for r in rows)
-    print(
-        f"{ran} run(s) made, {len(rows) - ran} already finished; table in {out}/sweep.csv, "
-        f"trade-off in {out}/sweep.png"
+    _say(
+        [
+            f"{ran} run(s) made, {len(rows) - ran} already finished; table in "
+            f"{out}/sweep.csv, trade-off in {out}/sweep.png",
+            CAUTION,
+        ]
     )
-    print(CAUTION)
     return 0
 
 
@@ -312,7 +391,9 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="KEY=V1,V2,...",
         help="a dotted key and its values, e.g. optimization.volume_fraction=0.2,0.3",
     )
-    p.add_argument("--jobs", type=int, default=1, help="local worker processes (default 1)")
+    p.add_argument(
+        "--jobs", type=_at_least(1), default=1, help="local worker processes (default 1)"
+    )
     p.add_argument(
         "--scheduler", help="address of a running Dask scheduler (needs dask.distributed)"
     )
@@ -345,10 +426,12 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def mesh_options(p, format_flag: str = "--mesh-format") -> None:
-    p.add_argument("--iso", type=float, default=0.5, help="density of the surface (default 0.5)")
+    p.add_argument(
+        "--iso", type=_fraction, default=0.5, help="density of the surface, in (0, 1) (default 0.5)"
+    )
     p.add_argument(
         "--smooth",
-        type=int,
+        type=_at_least(0),
         default=0,
         metavar="N",
         help="Taubin smoothing passes on the mesh (default 0)",
@@ -362,33 +445,93 @@ def mesh_options(p, format_flag: str = "--mesh-format") -> None:
     )
 
 
+def _fraction(text: str) -> float:
+    """--iso: a number strictly between 0 and 1 (the densities lie in [0, 1], so a
+    surface at 0, 1 or beyond is empty or the whole box)."""
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number in (0, 1), got {text!r}") from None
+    if not (math.isfinite(value) and 0 < value < 1):
+        raise argparse.ArgumentTypeError(
+            f"must lie in (0, 1), got {text!r}: densities lie in [0, 1], so that surface "
+            "would be empty or the whole box"
+        )
+    return value
+
+
+def _at_least(low: int):
+    def whole(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
+        if value < low:
+            raise argparse.ArgumentTypeError(f"must be at least {low}, got {value}")
+        return value
+
+    return whole
+
+
 def main(argv: list[str] | None = None) -> int:
-    """Exit codes: 0 success, 2 input error (one message, no traceback), 1 internal
-    error (the traceback goes to error.log in the output folder), 3 a check of the
-    printed part failed under `run --strict`."""
+    """Exit codes: 0 success, 2 input error or a file that cannot be written (one
+    message, no traceback), 1 internal error (the traceback goes to error.log in the
+    output folder), 3 a check of the printed part failed under `run --strict`,
+    130 interrupted (Ctrl-C or SIGTERM; the message says how to continue)."""
     args = build_parser().parse_args(argv)
-    outputs = Outputs()
+    outputs = Outputs(argv=tuple(sys.argv[1:] if argv is None else argv))
+    restore = terminate_as_interrupt()
     try:
         return args.func(args, outputs)
     except (ProblemError, FileNotFoundError) as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        out = outputs.folder
-        print(
-            "interrupted" + (f"; continue with: topo run --resume {out}" if out else ""),
-            file=sys.stderr,
-        )
+        print("interrupted" + _continue_hint(outputs), file=sys.stderr)
         return 130
+    except BrokenPipeError:  # stdout closed by its reader: nothing more to say
+        _drop_stdout()
+        return 0
     except Exception as exc:  # the one place that turns crashes into exit 1
         import traceback
 
-        out = Path(outputs.folder or "outputs")
-        out.mkdir(parents=True, exist_ok=True)
-        log = out / "error.log"
-        log.write_text(traceback.format_exc())
-        print(f"internal error: {type(exc).__name__}: {exc} (traceback in {log})", file=sys.stderr)
+        if isinstance(exc, OSError) and exc.errno in WRITE_FAULTS:
+            print(
+                f"error: cannot write {exc.filename}: {exc.strerror}; the files written "
+                "before are kept" + _continue_hint(outputs),
+                file=sys.stderr,
+            )
+            return 2
+
+        text = traceback.format_exc()
+        try:
+            out = Path(outputs.folder or "outputs")
+            out.mkdir(parents=True, exist_ok=True)
+            log = out / "error.log"
+            log.write_text(text)
+            where = f"traceback in {log}"
+        except OSError as why:  # no folder to log into (e.g. a file named outputs)
+            sys.stderr.write(text)
+            where = f"traceback above; no error.log: {why}"
+        print(f"internal error: {type(exc).__name__}: {exc} ({where})", file=sys.stderr)
         return 1
+    finally:
+        restore()
+
+
+# a full disk, a quota, a read-only or forbidden folder: the user's to fix
+WRITE_FAULTS = (errno.ENOSPC, errno.EDQUOT, errno.EROFS, errno.EACCES, errno.EPERM)
+
+
+def _continue_hint(outputs: Outputs) -> str:
+    if outputs.resume:
+        return f"; continue with the same command: {outputs.resume}"
+    out = outputs.folder
+    if out is not None and (out / "checkpoint.npz").exists():
+        return f"; continue with: topo run --resume {out}"
+    if out is not None:
+        return "; no checkpoint was saved yet: run the same command again"
+    return ""
 
 
 if __name__ == "__main__":

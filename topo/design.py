@@ -20,6 +20,7 @@ from .checkpoint import Checkpoint, LoopState
 from .continuation import Continuation, density_change
 from .fem import Analysis, Model
 from .integrity import unreachable_regions
+from .interrupts import Interrupts
 from .optimizers import make_optimizer
 from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
@@ -51,6 +52,7 @@ class Result:
     stop_reason: str = ""
     summary: dict = field(default_factory=dict)
     printed: PrintedPart | None = None  # the thresholded design with interfaces whole
+    loop_ended: bool = False  # made by the design loop (not an analysis or a re-read run)
 
     def __post_init__(self):
         if self.printed is None:
@@ -151,6 +153,17 @@ def _refuse_unreachable(problem: Problem, model: Model) -> None:
         )
 
 
+def _refuse_empty_budget(problem: Problem, model: Model) -> None:
+    fraction, n = problem.optimization.volume_fraction, int(model.active.sum())
+    if fraction is not None and fraction * n < 1:
+        raise ProblemError(
+            problem.source,
+            "optimization.volume_fraction",
+            f"{fraction:g} of the {n} design elements is less than one element's material: "
+            f"the design would be empty; give at least {1 / n:.3g}",
+        )
+
+
 def _optimize(
     problem: Problem, callback, timer: Timer, checkpoint, resume, make, allow_unreachable
 ) -> Result:
@@ -165,6 +178,7 @@ def _optimize(
         raise ProblemError(
             problem.source, "passive", "no design elements: passive regions cover the whole domain"
         )
+    _refuse_empty_budget(problem, model)
     responses = Responses(problem, model, chain)
     optimizer = make(opt, model.active, responses.n_bounds, len(responses.constraints))
     saved = Checkpoint(
@@ -174,9 +188,37 @@ def _optimize(
     continuation = Continuation(
         projection, opt.beta_max, opt.beta_interval, opt.tolerance, state.beta
     )
+    if state.finished is None:
+        with Interrupts() as interrupts:
+            parts = (chain, model, responses, optimizer, continuation)
+            _loop(state, parts, saved, callback, timer, interrupts)
+            interrupts.check()  # a signal during the last iteration stops before the export
+    result = _result(
+        problem,
+        model,
+        chain,
+        state,
+        state.finished["converged"],
+        state.finished["stop_reason"],
+        start,
+    )
+    result.loop_ended = True
+    result.summary = summarize(result)
+    return result
+
+
+def _loop(state: LoopState, parts, saved: Checkpoint, callback, timer: Timer, interrupts) -> None:
+    """Iterate until a stopping rule, the iteration limit or a numerical fault; then
+    record why in `state.finished` and save the checkpoint, so that a run interrupted
+    later (in the export) resumes to the export with no further iteration."""
+    chain, model, responses, optimizer, continuation = parts
+    opt = model.problem.optimization
     stop, stop_reason = None, "iteration limit"
+    whole = True  # state holds a whole iteration: safe to save
     try:
         for it in range(state.iteration + 1, opt.max_iterations + 1):
+            interrupts.check()
+            whole = False
             t0 = time.perf_counter()
             rho, ev, x = _iterate(state.x, chain, model, responses, optimizer, timer)
             if not (np.isfinite(ev.objective.value) and np.all(np.isfinite(x))):
@@ -197,6 +239,7 @@ def _optimize(
             state.history.append(row)
             stop = continuation.after(state, change)
             state.x, state.iteration = x, it
+            whole = True
             if saved.due(it):
                 saved.save(state)
             if callback:
@@ -205,14 +248,17 @@ def _optimize(
                 stop_reason = stop
                 break
     except FloatingPointError as exc:
+        # the optimizer may have moved past the last good design: its parts are not
+        # saved again, so a resume of this run repeats the fault the same way
         stop_reason = f"numerical fault: {exc}; the design is the last good one"
+        state.finished = {"stop_reason": stop_reason, "converged": False}
+        return
     except KeyboardInterrupt:
-        saved.save(state)
+        if whole:
+            saved.save(state)
         raise
-
-    result = _result(problem, model, chain, state, stop is not None, stop_reason, start)
-    result.summary = summarize(result)
-    return result
+    state.finished = {"stop_reason": stop_reason, "converged": stop is not None}
+    saved.save(state)
 
 
 def _result(
@@ -314,42 +360,85 @@ def check(problem: Problem) -> dict:
     """Build the model without solving and report what it holds (`topo check`)."""
     from .report import model_report
 
-    return model_report(Model(problem))
+    model = Model(problem)
+    _refuse_empty_budget(problem, model)
+    return model_report(model)
 
 
 def load_run(run_dir) -> Result:
     """A finished run folder (problem.json, density.npy, summary.json) as a Result,
-    with a fresh analysis of its density, for re-export without re-optimising."""
-    import json
-
+    with a fresh analysis of its density, for re-export without re-optimising.
+    A missing or damaged file raises a ProblemError that names it."""
     from .problem import problem_from_dict
 
     run = Path(run_dir)
     for name in ("problem.json", "density.npy"):
         if not (run / name).exists():
             raise FileNotFoundError(f"{run}: no {name}; is this a topo run folder?")
-    raw = json.loads((run / "problem.json").read_text())
-    problem = problem_from_dict(raw, source=str(run / "problem.json"))
-    result = analyze(problem, np.load(run / "density.npy"))
+    problem = problem_from_dict(
+        _read_json(run / "problem.json", dict), source=str(run / "problem.json")
+    )
+    result = analyze(problem, _read_density(run / "density.npy", problem.domain.shape))
     if (run / "summary.json").exists():
-        result.summary = json.loads((run / "summary.json").read_text())
+        result.summary = _read_json(run / "summary.json", dict)
     return result
 
 
+def _damaged(path: Path, why: str) -> ProblemError:
+    return ProblemError(
+        str(path),
+        "",
+        f"the file is damaged ({why}); run the problem again into a new folder "
+        "(or restore the file from a copy)",
+    )
+
+
+def _read_json(path: Path, kind: type):
+    import json
+
+    try:
+        value = json.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, ValueError) as exc:  # truncated, emptied, not text
+        raise _damaged(path, f"{type(exc).__name__}: {exc}") from None
+    if not isinstance(value, kind):
+        raise _damaged(path, f"expected a JSON {kind.__name__}, got {type(value).__name__}")
+    return value
+
+
+def _read_density(path: Path, shape: tuple[int, ...]) -> np.ndarray:
+    try:
+        density = np.load(path, allow_pickle=False)
+    except Exception as exc:  # truncated, not .npy, pickled objects
+        raise _damaged(path, f"{type(exc).__name__}: {exc}") from None
+    if density.shape != tuple(shape) or density.dtype.kind != "f":
+        raise _damaged(path, f"{density.dtype} array of shape {density.shape}, the grid is {shape}")
+    if not np.all(np.isfinite(density)):
+        raise _damaged(path, "non-finite densities")
+    return density
+
+
 def load_run_problem(run_dir, overrides: list[tuple[str, object]] | None = None) -> Problem:
-    """The problem a run folder was made from (its problem.json or checkpoint)."""
+    """The problem a run folder was made from (its checkpoint or problem.json)."""
     import json
 
     from .problem import problem_from_dict
 
     run = Path(run_dir)
-    if (run / "problem.json").exists():
-        raw, source = json.loads((run / "problem.json").read_text()), run / "problem.json"
-    elif (run / "checkpoint.npz").exists():
-        raw, source = (
-            json.loads(str(np.load(run / "checkpoint.npz")["problem"])),
-            run / "checkpoint.npz",
-        )
+    if (run / "checkpoint.npz").exists():  # what a resume continues from
+        source = run / "checkpoint.npz"
+        try:
+            with np.load(source) as data:
+                raw = json.loads(str(data["problem"]))
+        except Exception as exc:  # truncated, emptied, bit-flipped
+            raise ProblemError(
+                str(source),
+                "",
+                f"the checkpoint is damaged ({type(exc).__name__}: {exc}). Delete it and run "
+                "the problem again without --resume",
+            ) from None
+    elif (run / "problem.json").exists():
+        source = run / "problem.json"
+        raw = _read_json(source, dict)
     else:
         raise FileNotFoundError(
             f"{run}: neither problem.json nor checkpoint.npz; is this a topo run folder?"

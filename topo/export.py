@@ -1,8 +1,9 @@
 """Writers for a Result, registered by output file name.
 
-Every file is written atomically (files.py), and summary.json goes last, so a folder
-with a summary is a finished run. The writers only write: the figures come from
-report.py and the Result is not changed.
+Every file is written atomically (files.py), and summary.json goes last. A whole
+export of a design loop's Result then writes finished.json (runfolder.py), the mark
+of a finished run; a re-export (`topo export`, load_run) never does. The writers
+only write: the figures come from report.py and the Result is not changed.
 """
 
 from __future__ import annotations
@@ -18,8 +19,10 @@ import numpy as np
 from . import mesh as meshing
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
 from .pictures import design_figure
+from .problem import field_name
 from .report import design_surface, run_summary
 from .review import build_report
+from .runfolder import MARKER, mark_finished
 
 plt = pyplot()
 
@@ -98,10 +101,6 @@ def write_mesh(mesh: meshing.TriMesh, path: Path, fmt: str = "stl") -> None:
     write_meshio(path, m, fmt, **({} if fmt == "obj" else {"binary": True}))
 
 
-def _safe(name: str) -> str:
-    return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
-
-
 # Cut of the grey design's stress field: the level of the printed part and design.stl.
 GREY_STRESS_CUT = 0.5
 
@@ -127,7 +126,7 @@ def write_fields(result, path: Path) -> None:
     printed_vm = np.where(made[:, None], printed.analysis.von_mises, 0.0)
     grey_vm = np.where(grey_solid[:, None], grey.von_mises, 0.0)
     for i, case in enumerate(result.problem.load_cases):
-        name = _safe(case.name)
+        name = field_name(case.name)
         point_data[f"displacement_printed_{name}"] = _vectors(grid, printed.analysis, i)
         point_data[f"displacement_grey_{name}"] = _vectors(grid, grey, i)
         cell_data[f"von_mises_printed_{name}"] = [printed_vm[:, i]]
@@ -199,4 +198,7 @@ def export(
     if only is None or SUMMARY in only:
         write_text(out / SUMMARY, summary_text)
         written.append(out / SUMMARY)
+    if only is None and result.loop_ended:
+        mark_finished(out, result)
+        written.append(out / MARKER)
     return Exported(written, summary)

@@ -122,15 +122,29 @@ class Model:
             out.append(Probe(d.name, nodes, unit_direction(d.direction, self.dim), cases, d.limit))
         return out
 
-    def _loads(self) -> np.ndarray:
-        f = np.zeros((self.grid.n_dofs, len(self.problem.load_cases)))
-        # nodes every one of whose elements is in a void region carry no material
+    def _void_nodes(self) -> np.ndarray:
+        """Nodes every one of whose elements is in a void region: no material there."""
         void_nodes = np.ones(self.grid.n_nodes, dtype=bool)
         np.logical_and.at(
             void_nodes,
             self.grid.element_nodes.ravel(),
             np.repeat(self.void, self.grid.element_nodes.shape[1]),
         )
+        return void_nodes
+
+    def _check_supports_in_void(self, void_nodes: np.ndarray) -> None:
+        for i, nodes in enumerate(self.support_nodes):
+            if void_nodes[nodes].all():
+                raise ProblemError(
+                    self.problem.source,
+                    f"support[{i}].region",
+                    "the support lies inside a void (keep-out) region: no material can rest on it",
+                )
+
+    def _loads(self) -> np.ndarray:
+        f = np.zeros((self.grid.n_dofs, len(self.problem.load_cases)))
+        void_nodes = self._void_nodes()
+        self._check_supports_in_void(void_nodes)
         for c, case in enumerate(self.problem.load_cases):
             for j, force in enumerate(case.forces):
                 key = f"load_case[{c}].force[{j}]"

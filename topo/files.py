@@ -20,16 +20,21 @@ os.umask(_UMASK)
 def atomic_write(path: Path, data: bytes) -> None:
     """Write bytes to `path` through a temporary file in the same folder."""
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    except OSError as exc:
+        raise OSError(exc.errno, exc.strerror, str(path)) from None
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
         os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; give the usual mode
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
         if os.path.exists(tmp):
             os.unlink(tmp)
+        if isinstance(exc, OSError) and exc.filename is None:  # a full disk: say which file
+            raise OSError(exc.errno, exc.strerror, str(path)) from None
         raise
 
 

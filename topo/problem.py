@@ -29,6 +29,9 @@ from .materials import Material
 from .schema import SECTIONS, Reader
 
 MAX_ELEMENTS = 20_000_000  # far above what fits in memory on a workstation
+# common practice puts the filter radius at 1.5–4 elements; each filter pass costs
+# (2R/h)^dim operations per element, so far beyond that a run is impractically slow
+MAX_FILTER_ELEMENTS = 25
 
 
 class ProblemError(ValueError):
@@ -207,6 +210,13 @@ def load_problem(path: str | Path, overrides: dict[str, Any] | None = None) -> P
         text = path.read_text(encoding="utf-8")
     except OSError as exc:
         raise ProblemError(source, "", f"cannot read the file ({exc.strerror})") from None
+    except UnicodeDecodeError as exc:
+        raise ProblemError(
+            source,
+            "",
+            f"not UTF-8 text (byte 0x{exc.object[exc.start]:02x} at offset {exc.start}): "
+            "a problem file is TOML text; is this the right file?",
+        ) from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -225,6 +235,11 @@ def problem_from_dict(
     for key, value in (overrides or {}).items():
         apply_override(data, key, value, source)
     return _Parser(source).problem(data)
+
+
+def field_name(name: str) -> str:
+    """A name as it appears in output field and column names (fields.vtu)."""
+    return "".join(c if c.isalnum() or c in "-_" else "_" for c in name)
 
 
 def parse_override(text: str) -> tuple[str, Any]:
@@ -311,10 +326,13 @@ class _Parser(Reader):
         loads = tuple(
             self.load_case(c, f"load_case[{i}]", dim) for i, c in enumerate(top["load_case"])
         )
+        self.unique([s.name for s in supports], "support")
         self.unique([c.name for c in loads], "load_case")
+        self.unique([c.name for c in loads], "load_case", field_name, "as field names")
         passives = tuple(
             self.passive(p, f"passive[{i}]", dim) for i, p in enumerate(top["passive"])
         )
+        self.unique([p.name for p in passives], "passive")
         names = [c.name for c in loads]
         deflections = tuple(
             self.deflection(p, f"deflection[{i}]", dim, names, opt.optimizer)
@@ -341,12 +359,15 @@ class _Parser(Reader):
             cost,
         )
 
-    def unique(self, names: list[str], key: str) -> None:
-        seen = set()
+    def unique(self, names: list[str], key: str, form=None, how: str = "") -> None:
+        """Refuse two entries with one name (or one `form(name)`, said `how`)."""
+        seen = {}
         for i, n in enumerate(names):
-            if n in seen:
-                self.fail(f"{key}[{i}].name", f"duplicate name {n!r}")
-            seen.add(n)
+            k = form(n) if form else n
+            if k in seen:
+                other = f" (as {seen[k]!r} {how}: {k!r})" if how else ""
+                self.fail(f"{key}[{i}].name", f"duplicate name {n!r}{other}")
+            seen[k] = n
 
     def domain(self, value) -> Domain:
         dim = len(self.read("domain", value, "domain", {}, ("size",))["size"])
@@ -355,6 +376,12 @@ class _Parser(Reader):
         shape = []
         for i, s in enumerate(size):
             n = s / h
+            if not math.isfinite(n) or n > MAX_ELEMENTS:
+                self.fail(
+                    "domain.element_size",
+                    f"{h:g} mm makes {n:g} elements along axis {i}, more than topo handles "
+                    f"({MAX_ELEMENTS:,}); use a coarser element_size",
+                )
             if abs(n - round(n)) > 1e-6 * max(1.0, n) or round(n) < 1:
                 self.fail(
                     f"domain.size[{i}]",
@@ -398,6 +425,14 @@ class _Parser(Reader):
                 'a stress constraint needs optimizer = "mma" or "gcmma"',
             )
         h, radius = domain.element_size, got["filter_radius"]
+        if radius > max(domain.size) or radius > MAX_FILTER_ELEMENTS * h:
+            self.fail(
+                "optimization.filter_radius",
+                f"{radius:g} mm is {radius / h:.3g} elements; at most the domain's longest "
+                f"side ({max(domain.size):g} mm) and {MAX_FILTER_ELEMENTS} elements "
+                f"({MAX_FILTER_ELEMENTS * h:g} mm): a wider filter blurs the design into grey "
+                "and each pass costs (2R/h)^dim per element (common practice: 1.5–4 elements)",
+            )
         if radius < h:
             self.warnings.append(
                 f"{self.source}: optimization.filter_radius: {radius} mm is below one "

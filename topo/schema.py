@@ -70,6 +70,7 @@ class Key:
     dims: tuple[int, ...] = (2, 3)  # other dimensions refuse the key
     hint: str = ""  # what to give when the key is missing
     check: Callable[[Any], str | None] | None = None  # extra test: a fault or None
+    why: str = ""  # the reason for the bounds, said when a value lies outside them
 
     def allowed(self, dim: int | None) -> tuple:
         return self.choices(dim or 3) if callable(self.choices) else self.choices
@@ -98,9 +99,23 @@ def _preset_known(name: str) -> str | None:
     return f"unknown preset {name!r} (presets: {', '.join(PRESETS)}){tip}"
 
 
+MAX_NAME = 100  # characters; folder names get suffixes and must stay below 255 bytes
+
+
+def _label(name: str) -> str | None:
+    """A name printed in reports, tables and field names: one line, not too long."""
+    if not name.strip():
+        return "must not be empty"
+    if any(ord(c) < 32 or ord(c) == 127 for c in name):
+        return f"must be one line of text without control characters, got {name!r}"
+    if len(name) > MAX_NAME:
+        return f"is {len(name)} characters long; at most {MAX_NAME}"
+    return None
+
+
 def _plain_name(name: str) -> str | None:
     bad = not name or any(c in name for c in "/\\\0") or name in (".", "..")
-    return f"must be a plain folder name, got {name!r}" if bad else None
+    return f"must be a plain folder name, got {name!r}" if bad else _label(name)
 
 
 def _from_preset(field: str, otherwise: Any = REQUIRED) -> Rule:
@@ -114,6 +129,7 @@ def _from_preset(field: str, otherwise: Any = REQUIRED) -> Rule:
 
 _GIVE = f"give a preset or the value (presets: {', '.join(PRESETS)})"
 _ENTRY_NAME = Rule("its key path, e.g. passive[1]", lambda env: env["where"])
+
 _POSITIVE = "(0, inf)"
 
 SCHEMA: tuple[Section, ...] = (
@@ -193,8 +209,10 @@ SCHEMA: tuple[Section, ...] = (
                 "Young's modulus E",
                 "MPa",
                 _from_preset("youngs_modulus"),
-                _POSITIVE,
+                "[1, 1.2e6]",
                 hint=_GIVE,
+                why="solids lie between soft elastomers (about 1 MPa) and diamond (about "
+                "1.2e6 MPa; both recalled from memory): is the value in MPa?",
             ),
             Key(
                 "poissons_ratio",
@@ -381,7 +399,7 @@ SCHEMA: tuple[Section, ...] = (
         "support",
         "a fixed region",
         (
-            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME, check=_label),
             Key("region", REGION, "the fixed nodes"),
             Key(
                 "fix",
@@ -397,7 +415,7 @@ SCHEMA: tuple[Section, ...] = (
         "load_case",
         "forces applied together",
         (
-            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME, check=_label),
             Key(
                 "weight", NUMBER, "weight in the weighted compliance", default=1.0, bounds=_POSITIVE
             ),
@@ -415,7 +433,15 @@ SCHEMA: tuple[Section, ...] = (
         "a force shared evenly by the nodes of a region",
         (
             Key("region", REGION, "the loaded nodes"),
-            Key("total", VECTOR, "total force on the region", "N"),
+            Key(
+                "total",
+                VECTOR,
+                "total force on the region",
+                "N",
+                bounds="[-1e9, 1e9]",
+                why="1e9 N is the weight of about 100,000 tonnes, beyond any bracket; larger "
+                "forces overflow the compliance (N·mm): is the value in N?",
+            ),
         ),
         many=True,
     ),
@@ -423,7 +449,7 @@ SCHEMA: tuple[Section, ...] = (
         "passive",
         "a region kept solid or void",
         (
-            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME, check=_label),
             Key("kind", STRING, "solid or void", choices=("solid", "void")),
             Key("region", REGION, "the elements"),
         ),
@@ -433,7 +459,7 @@ SCHEMA: tuple[Section, ...] = (
         "deflection",
         "a point (or a small region, averaged) whose movement along a direction is signed off",
         (
-            Key("name", STRING, "name in the reports", default=_ENTRY_NAME),
+            Key("name", STRING, "name in the reports", default=_ENTRY_NAME, check=_label),
             Key("region", REGION, "the nodes whose mean displacement is taken, e.g. a point"),
             Key(
                 "direction",
@@ -688,11 +714,11 @@ class Reader:
     def value(self, key: Key, value, where: str, dim: int | None):
         kind = key.kind
         if kind == NUMBER:
-            return self.number(value, where, key.bounds)
+            return self.number(value, where, key.bounds, key.why)
         if kind == INTEGER:
             if isinstance(value, bool) or not isinstance(value, int):
                 self.fail(where, f"expected a whole number, got {value!r}")
-            return int(self.bounded(value, value, where, key.bounds))
+            return int(self.bounded(value, value, where, key.bounds, key.why))
         if kind == BOOL:
             if not isinstance(value, bool):
                 self.fail(where, f"expected true or false, got {value!r}")
@@ -700,7 +726,7 @@ class Reader:
         if kind == STRING:
             return self.string(value, where, key.allowed(dim) or None)
         if kind == VECTOR:
-            return self.vector(value, where, dim, key.bounds)
+            return self.vector(value, where, dim, key.bounds, key.why)
         if kind == LIST:
             choices = key.allowed(dim)
             if not isinstance(value, list) or not value:
@@ -734,15 +760,18 @@ class Reader:
                 self.fail(f"{where}.{k}" if where else k, f"unknown key{tip}")
         return value
 
-    def number(self, value, where: str, bounds: str = "") -> float:
+    def number(self, value, where: str, bounds: str = "", why: str = "") -> float:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             self.fail(where, f"expected a number, got {value!r}")
-        x = float(value)
+        try:
+            x = float(value)
+        except OverflowError:  # an integer beyond any float
+            x = math.inf
         if not math.isfinite(x):
             self.fail(where, f"must be finite, got {value!r}")
-        return self.bounded(x, value, where, bounds)
+        return self.bounded(x, value, where, bounds, why)
 
-    def bounded(self, x, value, where: str, bounds: str):
+    def bounded(self, x, value, where: str, bounds: str, why: str = ""):
         if bounds:
             lo, hi, lo_open, hi_open = interval(bounds)
             if x < lo or x > hi or (lo_open and x == lo) or (hi_open and x == hi):
@@ -750,7 +779,7 @@ class Reader:
                     rule = "be positive" if lo == 0 and lo_open else f"be at least {lo:g}"
                 else:
                     rule = f"lie in {bounds}"
-                self.fail(where, f"must {rule}, got {value!r}")
+                self.fail(where, f"must {rule}, got {value!r}" + (f": {why}" if why else ""))
         return x
 
     def string(self, value, where: str, choices: tuple[str, ...] | None = None) -> str:
@@ -764,13 +793,15 @@ class Reader:
             )
         return value
 
-    def vector(self, value, where: str, dim: int | None, bounds: str = "") -> tuple[float, ...]:
+    def vector(
+        self, value, where: str, dim: int | None, bounds: str = "", why: str = ""
+    ) -> tuple[float, ...]:
         lengths = (dim,) if dim else (2, 3)
         if not isinstance(value, list) or len(value) not in lengths:
             self.fail(
                 where, f"expected a list of {' or '.join(map(str, lengths))} numbers, got {value!r}"
             )
-        return tuple(self.number(v, f"{where}[{i}]", bounds) for i, v in enumerate(value))
+        return tuple(self.number(v, f"{where}[{i}]", bounds, why) for i, v in enumerate(value))
 
 
 # ------------------------------------------------------------ settings in effect

@@ -1,9 +1,10 @@
 """Parameter sweeps: the cartesian product of values of any dotted keys, each run in
 a folder named after its parameters, on local worker processes or a Dask cluster.
 
-Calls only the public API. A run whose folder already holds a finished summary.json
-made from the same resolved problem is read back, not run again, so an interrupted
-sweep completes only what is missing.
+Calls only the public API. A run whose folder is marked finished (runfolder.py) and
+holds the same resolved problem is read back, not run again; a run stopped part-way
+resumes from its checkpoint, so re-running an interrupted sweep's command completes
+only what is missing. A stopped sweep writes the table of the runs it has.
 """
 
 from __future__ import annotations
@@ -58,11 +59,36 @@ def run_one(
 
     if blas_threads:
         _limit_blas(blas_threads)
+    from .runfolder import OutputFolder, unmark
+
     problem = problem_from_dict(raw, params, source=source)
-    # a direction that cannot reach a load still runs: its failing load-path check
-    # keeps it off the trade-off front, and the table says why
-    written = export(optimize(problem, allow_unreachable=True), out_dir)
+    out = Path(out_dir)
+    with OutputFolder(out):
+        unmark(out)  # of an earlier run of other values, if any
+        checkpoint = out / "checkpoint.npz"
+        # a direction that cannot reach a load still runs: its failing load-path check
+        # keeps it off the trade-off front, and the table says why
+        result = optimize(
+            problem,
+            callback=_check_stop,
+            checkpoint=checkpoint,
+            resume=_resumable(checkpoint, problem),
+            allow_unreachable=True,
+        )
+        written = export(result, out)
+        checkpoint.unlink(missing_ok=True)
     return row_of(params, written.summary, out_dir, ran=True)
+
+
+def _resumable(checkpoint: Path, problem) -> bool:
+    """A checkpoint of this very problem (any other is stale and is overwritten)."""
+    if not checkpoint.exists():
+        return False
+    try:
+        with np.load(checkpoint) as data:
+            return json.loads(str(data["problem"])) == json.loads(json.dumps(problem.raw))
+    except Exception:  # damaged: start again
+        return False
 
 
 def row_of(params: dict, summary: dict, out_dir: str, ran: bool) -> dict:
@@ -104,13 +130,18 @@ def _largest(values) -> float | None:
 
 def _finished(expected: dict, out_dir: Path) -> dict | None:
     """The summary of a finished run of exactly the resolved problem `expected`,
-    if there is one."""
+    if there is one: its loop ended (finished.json), not merely a summary written."""
+    from .runfolder import finished
+
     summary, resolved = out_dir / "summary.json", out_dir / "problem.json"
-    if not (summary.exists() and resolved.exists()):
+    if finished(out_dir) is None:
         return None
-    if json.loads(resolved.read_text()) != json.loads(json.dumps(expected)):
+    try:
+        if json.loads(resolved.read_text()) != json.loads(json.dumps(expected)):
+            return None
+        return json.loads(summary.read_text())
+    except (OSError, ValueError):  # damaged: run it again
         return None
-    return json.loads(summary.read_text())
 
 
 def eligible(row: dict) -> bool:
@@ -186,6 +217,23 @@ def sweep(
             f"{row['iterations']} iterations, {row['runtime_s']:.1f} s"
         )
 
+    try:
+        _run_all(todo, raw, source, jobs, scheduler, record)
+    except KeyboardInterrupt:
+        done = [r for r in rows if r is not None]
+        if done:
+            write_table(done, root / "sweep.csv")
+        say(
+            f"stopped: {len(done)} of {len(combos)} runs finished, in {root / 'sweep.csv'}; "
+            "the same sweep command again runs the rest"
+        )
+        raise
+    write_table(rows, root / "sweep.csv")
+    write_plot(rows, list(vary), root / "sweep.png")
+    return rows
+
+
+def _run_all(todo, raw, source, jobs, scheduler, record) -> None:
     if todo and scheduler:
         from dask.distributed import Client, as_completed
 
@@ -194,27 +242,60 @@ def sweep(
                 client.submit(run_one, raw, source, params, folder, 1, pure=False): i
                 for i, params, folder in todo
             }
-            for fut in as_completed(futures):
-                record(futures[fut], fut.result())
+            try:
+                for fut in as_completed(futures):
+                    record(futures[fut], fut.result())
+            except KeyboardInterrupt:
+                client.cancel(list(futures))
+                raise
     elif todo and jobs > 1:
         import multiprocessing as mp
         from concurrent.futures import ProcessPoolExecutor
         from concurrent.futures import as_completed as done_first
 
         threads = max(1, (os.cpu_count() or 1) // jobs)  # jobs × threads ≤ cores
-        with ProcessPoolExecutor(jobs, mp_context=mp.get_context("spawn")) as pool:
+        context = mp.get_context("spawn")
+        stop = context.Event()
+        pool = ProcessPoolExecutor(
+            jobs, mp_context=context, initializer=_worker_init, initargs=(stop,)
+        )
+        try:
             futures = {
                 pool.submit(run_one, raw, source, params, folder, threads): i
                 for i, params, folder in todo
             }
             for fut in done_first(futures):
                 record(futures[fut], fut.result())
+        except KeyboardInterrupt:
+            stop.set()  # the running runs save a checkpoint and stop
+            raise
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
     else:
         for i, params, folder in todo:
             record(i, run_one(raw, source, params, folder))
-    write_table(rows, root / "sweep.csv")
-    write_plot(rows, list(vary), root / "sweep.png")
-    return rows
+
+
+# set by the sweep's process when it is stopped; each worker's run checks it after
+# every iteration (a whole iteration: the checkpoint it saves is exact)
+_STOP = None
+
+
+def _worker_init(stop) -> None:
+    """Workers leave Ctrl-C to the sweep's process, which stops them through `stop`:
+    a signal landing in a worker between runs could kill it in the middle of the
+    pool's queue and hang the pool. During a run the loop's own handler
+    (interrupts.py) still stops it cleanly."""
+    import signal
+
+    global _STOP
+    _STOP = stop
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def _check_stop(row: dict) -> None:
+    if _STOP is not None and _STOP.is_set():
+        raise KeyboardInterrupt
 
 
 def write_table(rows: list[dict], path: Path) -> None:
