@@ -149,7 +149,7 @@ def orient(
 ) -> tuple[list[dict], int | None, str]:
     """Optimise one design per build direction (the overhang layer on) and return
     the rows, the recommended row's index and the reason."""
-    from . import load_problem, load_run
+    from . import load_problem, load_run, problem_from_dict
     from .sweep import sweep
 
     if isinstance(problem, (str, Path)):
@@ -159,9 +159,12 @@ def orient(
     if jobs < 1:
         raise ProblemError("--jobs", str(jobs), "needs at least one worker process")
     root = Path(out) if out else Path("outputs") / f"{problem.name}-orient"
+    # every direction with the overhang layer on, whatever the file says
+    overrides = {"build.direction": chosen[0], "build.overhang_filter": True}
+    base = problem_from_dict(problem.raw, overrides, problem.source)
     rows = sweep(
-        problem,
-        {"build.direction": chosen, "build.overhang_filter": [True]},
+        base,
+        {"build.direction": chosen},
         jobs=jobs,
         out=root,
         scheduler=scheduler,
