@@ -85,7 +85,9 @@ def _out_dir(args, problem) -> Path:
 
 
 def _progress(row: dict) -> None:
-    _say(report.format_progress(row))
+    """Every iteration on a terminal; in a pipe or a log, the first and every tenth."""
+    if sys.stdout.isatty() or row["iteration"] == 1 or row["iteration"] % 10 == 0:
+        _say(report.format_progress(row))
 
 
 def cmd_run(args, outputs: Outputs) -> int:

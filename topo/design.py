@@ -215,6 +215,7 @@ def _loop(state: LoopState, parts, saved: Checkpoint, callback, timer: Timer, in
     opt = model.problem.optimization
     stop, stop_reason = None, "iteration limit"
     whole = True  # state holds a whole iteration: safe to save
+    loop_start = time.perf_counter()
     try:
         for it in range(state.iteration + 1, opt.max_iterations + 1):
             interrupts.check()
@@ -235,6 +236,7 @@ def _loop(state: LoopState, parts, saved: Checkpoint, callback, timer: Timer, in
                 continuation.beta,
                 time.perf_counter() - t0,
                 model,
+                time.perf_counter() - loop_start,
             )
             state.history.append(row)
             stop = continuation.after(state, change)
@@ -318,6 +320,7 @@ def _history_row(
     beta,
     seconds: float,
     model: Model,
+    elapsed: float,
 ) -> dict:
     return {
         "iteration": it,
@@ -330,6 +333,9 @@ def _history_row(
         "seconds": seconds,
         "solver_iterations": model.system.iterations,
         "solver": model.system.name,
+        "max_iterations": model.problem.optimization.max_iterations,
+        "elapsed": elapsed,  # seconds since this process started the loop
+        "constraints": {r.name: r.g for r in ev.constraints},
     }
 
 

@@ -263,15 +263,25 @@ def format_plan(problem, est: dict) -> str:
 
 
 def format_progress(row: dict) -> list[str]:
-    """One history row of the loop (the first also names the solver)."""
+    """One history row of the loop (the first also names the solver): iteration n of
+    the limit, the figures, the constraint values g = v/L − 1 of a constrained run
+    beyond the material budget, and the time so far and at most left (the run may
+    stop earlier on its tolerance)."""
     lines = [f"solver: {row['solver']}"] if row["iteration"] == 1 else []
     beta = f"  beta {row['beta']:5.1f}" if row["beta"] is not None else ""
     if row["solver_iterations"]:
         beta += f"  cg {row['solver_iterations']:3d}"
+    others = {k: g for k, g in row.get("constraints", {}).items() if k != "material"}
+    limits = "".join(f"  {k} {g:+.3f}" for k, g in others.items())
+    n, of = row["iteration"], row.get("max_iterations")
+    timing = f"{row['seconds']:.2f} s"
+    if of and "elapsed" in row:
+        left = row["elapsed"] / n * (of - n)
+        timing += f", {row['elapsed']:.0f} s so far, at most {left:.0f} s left"
     lines.append(
-        f"iter {row['iteration']:4d}  compliance {row['objective']:.6e} N·mm  "
-        f"volume {row['volume_fraction']:.4f}  change {row['change']:.4f}{beta}  "
-        f"{row['seconds']:.2f} s"
+        f"iter {n:4d}{f'/{of}' if of else ''}  compliance {row['objective']:.6e} N·mm  "
+        f"volume {row['volume_fraction']:.4f}  change {row['change']:.4f}{beta}{limits}  "
+        f"{timing}"
     )
     return lines
 
