@@ -46,9 +46,10 @@ def write_history_csv(result, path: Path) -> None:
 
 
 def write_history_png(result, path: Path) -> None:
-    """Objective and material use against iteration, the material target as a
-    dashed line and each β step of the projection as a dotted one."""
-    history, opt = result.history, result.problem.optimization
+    """The objective against iteration; every constraint (material budget, stress,
+    deflection limits) as the share of its limit with the limit dashed; each β step
+    of the projection dotted."""
+    history = result.history
     fig, ax = plt.subplots(figsize=(7.2, 3.8))
     it = [r["iteration"] for r in history]
     ax.plot(it, [r["objective"] for r in history], color="tab:blue")
@@ -56,10 +57,18 @@ def write_history_png(result, path: Path) -> None:
     ax.set_ylabel("objective (weighted compliance, N·mm)", color="tab:blue")
     ax.set_yscale("log")
     ax2 = ax.twinx()
-    ax2.plot(it, [r["volume_fraction"] for r in history], color="tab:orange")
-    ax2.set_ylabel("volume fraction of the design elements", color="tab:orange")
-    if opt.volume_fraction is not None:
-        ax2.axhline(opt.volume_fraction, color="tab:orange", ls="--", lw=1, label="target")
+    names = list(history[0].get("constraints", {"material": None})) if history else []
+    colors = ["tab:orange", "tab:red", "tab:green", "tab:purple", "tab:brown", "tab:pink"]
+    for k, name in enumerate(names):
+        # each constraint as the share of its limit, v/L = g + 1; the limit is 1
+        use = [
+            1.0 + r["constraints"][name] if "constraints" in r else 1.0 + r["constraint"]
+            for r in history
+        ]
+        ax2.plot(it, use, color=colors[k % len(colors)], lw=1.2, label=name)
+    ax2.axhline(1.0, color="k", ls="--", lw=1, label="limit")
+    ax2.set_ylabel("value / limit of each constraint")
+    ax2.legend(fontsize=7, loc="center right")
     for before, row in zip(history, history[1:]):
         if row["beta"] != before["beta"]:
             ax.axvline(row["iteration"], color="grey", ls=":", lw=1)
