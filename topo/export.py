@@ -18,7 +18,7 @@ import numpy as np
 
 from . import mesh as meshing
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
-from .pictures import design_figure
+from .pictures import design_figure, stress_figure
 from .problem import field_name
 from .report import design_surface, run_summary
 from .review import build_report
@@ -96,6 +96,12 @@ def write_design_png(result, path: Path) -> None:
     write_figure(path, design_figure(result, surface))
 
 
+def write_stress_png(result, path: Path) -> None:
+    """The printed part's von Mises stress, the peak marked (pictures.py)."""
+    surface = design_surface(result) if result.density.ndim == 3 else None
+    write_figure(path, stress_figure(result, surface))
+
+
 def write_problem(result, path: Path) -> None:
     """The resolved problem (overrides applied), so a run folder can be re-read."""
     write_text(path, strict_json(result.problem.raw))
@@ -161,6 +167,7 @@ EXPORTERS: dict[str, Callable] = {
     "history.csv": write_history_csv,
     "history.png": write_history_png,
     "design.png": write_design_png,
+    "stress.png": write_stress_png,
     "fields.vtu": write_fields,
 }
 SUMMARY = "summary.json"

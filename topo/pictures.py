@@ -160,3 +160,65 @@ def _figure_3d(result, surface):
 def design_figure(result, surface):
     """The figure of design.png; `surface` is the design mesh (report.design_surface)."""
     return _figure_2d(result) if result.density.ndim == 2 else _figure_3d(result, surface)
+
+
+def stress_figure(result, surface):
+    """stress.png: the printed part's von Mises stress (largest over the load cases)
+    at element centres, MPa, with the peak marked; 3D on the design mesh, each
+    triangle coloured by the element it lies in."""
+    plt = pyplot()
+    problem, model = result.problem, result.model
+    grid = model.grid
+    printed = result.printed.density.ravel() > 0.5
+    vm = np.where(printed, result.printed.analysis.von_mises.max(axis=1), np.nan)
+    peak = int(np.nanargmax(vm)) if printed.any() else None
+    title = (
+        f"{problem.name}: von Mises stress of the printed part at element centres, MPa "
+        f"(largest over the load cases)"
+    )
+    if grid.dim == 2:
+        size = grid.size
+        fig, ax = plt.subplots(figsize=(7.5, 7.5 * size[1] / size[0] + 1.0))
+        image = ax.imshow(
+            vm.reshape(grid.shape).T,
+            origin="lower",
+            cmap="viridis",
+            extent=(0, size[0], 0, size[1]),
+            interpolation="nearest",
+        )
+        ax.set_xlabel("x (mm)")
+        ax.set_ylabel("y (mm)")
+    else:
+        from mpl_toolkits.mplot3d.art3d import Poly3DCollection
+
+        tri = surface.mesh.vertices[surface.mesh.faces]
+        # the element under each triangle: half an element inwards from its centroid
+        # (the mesh is closed with outward normals)
+        normals = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+        normals /= np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-12)
+        inside = tri.mean(axis=1) - 0.5 * grid.h * normals
+        cells = np.clip((inside / grid.h).astype(int), 0, np.array(grid.shape) - 1)
+        index = np.ravel_multi_index(cells.T, grid.shape)
+        values = np.nan_to_num(vm[index], nan=0.0)
+        norm = plt.Normalize(0.0, np.nanmax(vm) if peak is not None else 1.0)
+        fig = plt.figure(figsize=(8, 6))
+        ax = fig.add_subplot(projection="3d")
+        colors = plt.get_cmap("viridis")(norm(values))
+        ax.add_collection3d(
+            Poly3DCollection(tri, facecolors=colors, edgecolors=colors, linewidths=0.2)
+        )
+        ax.set_xlim(0, grid.size[0])
+        ax.set_ylim(0, grid.size[1])
+        ax.set_zlim(0, grid.size[2])
+        ax.set_box_aspect(grid.size)
+        ax.view_init(25, -60)
+        image = plt.cm.ScalarMappable(norm=norm, cmap="viridis")
+    fig.colorbar(image, ax=ax, shrink=0.7, label="von Mises (MPa)")
+    if peak is not None:
+        centre = grid.element_centers[peak]
+        ax.plot(*[[c] for c in centre], "r*", ms=12, label=f"peak {vm[peak]:.4g} MPa")
+        ax.legend(loc="upper right", fontsize=8)
+    ax.set_title(
+        title + "\nstepped grid: peaks at holes, corners and loads are not converged", fontsize=8
+    )
+    return fig

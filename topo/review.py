@@ -15,7 +15,11 @@ import platform
 from importlib import metadata
 from pathlib import Path
 
-PICTURES = (("design.png", "The design"), ("history.png", "Convergence"))
+PICTURES = (
+    ("design.png", "The design"),
+    ("stress.png", "Stress of the printed part"),
+    ("history.png", "Convergence"),
+)
 STYLE = """
 body { font-family: sans-serif; max-width: 60em; margin: 2em auto; color: #222; }
 table { border-collapse: collapse; margin: 0.5em 0 1.5em; }
