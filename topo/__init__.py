@@ -13,6 +13,7 @@ from .export import MESH_FORMATS, Exported, export
 from .problem import Problem, ProblemError, load_problem, parse_override, problem_from_dict
 from .report import CAUTION, run_summary, summarize
 from .sweep import sweep
+from .verification import Verification, verify, write_verification
 
 __all__ = [
     "CAUTION",
@@ -35,5 +36,8 @@ __all__ = [
     "run_summary",
     "summarize",
     "sweep",
+    "Verification",
+    "verify",
+    "write_verification",
 ]
 __version__ = "0.1.0"

@@ -170,6 +170,13 @@ class Checks:
 
 
 @dataclass(frozen=True)
+class Report:
+    """What is reported after a run."""
+
+    verify: bool = False  # body-fitted verification of the printed part
+
+
+@dataclass(frozen=True)
 class Problem:
     name: str
     description: str
@@ -185,6 +192,7 @@ class Problem:
     warnings: tuple[str, ...] = ()
     deflections: tuple[DeflectionPoint, ...] = ()
     checks: Checks = Checks()
+    report: Report = Report()
 
     @property
     def dim(self) -> int:
@@ -310,6 +318,7 @@ class _Parser(Reader):
         )
         self.unique([p.name for p in deflections], "deflection")
         checks = Checks(**self.read("checks", top["checks"] or {}, "checks", {}))
+        report = Report(**self.read("report", top["report"] or {}, "report", {"dim": dim}))
         return Problem(
             top["name"],
             top["description"],
@@ -325,6 +334,7 @@ class _Parser(Reader):
             tuple(self.warnings),
             deflections,
             checks,
+            report,
         )
 
     def unique(self, names: list[str], key: str) -> None:

@@ -138,6 +138,7 @@ SCHEMA: tuple[Section, ...] = (
             Key("passive", TABLES, "regions kept solid or void", default=()),
             Key("deflection", TABLES, "deflections reported (and limited) at points", default=()),
             Key("checks", TABLE, "thresholds of the sign-off checks", default=None),
+            Key("report", TABLE, "what is reported after a run", default=None),
         ),
     ),
     Section(
@@ -474,6 +475,21 @@ SCHEMA: tuple[Section, ...] = (
                 "largest allowed share of printed elements that need support structures",
                 default=0.0,
                 bounds="[0, 1]",
+            ),
+        ),
+    ),
+    Section(
+        "report",
+        "what is reported after a run (optional table)",
+        (
+            Key(
+                "verify",
+                BOOL,
+                "after the run, verify the printed part with a body-fitted analysis "
+                "(verify.json/.vtu/.png; the headline stress then comes from it); 2D only, 3D "
+                "verification is not available yet",
+                default=False,
+                dims=(2,),
             ),
         ),
     ),

@@ -14,12 +14,11 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass
 
-import numpy as np
-
 from ..problem import ProblemError
 from .figures import verification_figures
 from .mesher import mesh_2d
 from .outline import GeometryError, domain_less_voids, printed_outline
+from .output import write_verification
 from .plane import solve_plane
 from .sizing import SizeField
 
@@ -75,4 +74,4 @@ def verify(result, exact: bool = False, base_size: float | None = None) -> Verif
     return Verification(figures, levels[-1][2], problem)
 
 
-__all__ = ["Verification", "verify"]
+__all__ = ["Verification", "verify", "write_verification"]

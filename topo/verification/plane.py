@@ -45,6 +45,7 @@ class Mapping:
     measure: float  # mm² (area), mm (boundary), 0 (node)
     nodes: int
     point_like: bool
+    applied: list | None = None  # forces: the sum of the nodal forces, N (= the total)
 
 
 @dataclass
@@ -90,7 +91,6 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
         asm,
         condense,
     )
-    from skfem.helpers import sym_grad
     from skfem.models.elasticity import lame_parameters, linear_elasticity
 
     dom, mat = problem.domain, problem.material
@@ -100,6 +100,7 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
 
     def tol_of(region) -> float:
         return fine_tol if repr(region) in exact else tol
+
     m = MeshTri2(mesh.points.T.copy(), mesh.cells.T.copy())
     elem = ElementVector(ElementTriP2())
     basis = Basis(m, elem, intorder=4)
@@ -151,7 +152,9 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
                         "or boundary edge of the body-fitted mesh"
                     )
                 loads[2 * node : 2 * node + 2, c] += total
-                mappings.append(Mapping(name, "force", region, "node", 0.0, 1, True))
+                mappings.append(
+                    Mapping(name, "force", region, "node", 0.0, 1, True, total.tolist())
+                )
                 continue
             density = total / measure  # N per mm² of area or per mm of edge: sums to total
 
@@ -159,16 +162,18 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
             def spread_load(v, w, d=density):
                 return d[0] * v[0] + d[1] * v[1]
 
-            loads[:, c] += asm(spread_load, part)
+            vector = asm(spread_load, part)
+            loads[:, c] += vector
             small = measure < (h * h if spread == "area" else h)
             count = len(inside) if spread == "area" else len(edges)
-            mappings.append(Mapping(name, "force", region, spread, float(measure), count, bool(small)))
+            applied = [float(vector[0::2].sum()), float(vector[1::2].sum())]
+            mappings.append(
+                Mapping(name, "force", region, spread, float(measure), count, bool(small), applied)
+            )
 
     fixed = []
     for i, s in enumerate(problem.supports):
-        nodes, how = _node_set(
-            points, s.region, tol_of(s.region), size, f"support[{i}] ({s.name})"
-        )
+        nodes, how = _node_set(points, s.region, tol_of(s.region), size, f"support[{i}] ({s.name})")
         for axis in s.fix:
             if axis in AXIS:
                 fixed.append(2 * nodes + AXIS[axis])

@@ -147,7 +147,8 @@ def region_outline(region, n: int = 64) -> np.ndarray | None:
             return None
         s = np.linspace(0, 1, n // 4, endpoint=False)[:, None]
         c = [lo, [hi[0], lo[1]], hi, [lo[0], hi[1]]]
-        return np.concatenate([np.array(c[i]) + s * (np.array(c[(i + 1) % 4]) - c[i]) for i in range(4)])
+        sides = [np.array(c[i]) + s * (np.array(c[(i + 1) % 4]) - c[i]) for i in range(4)]
+        return np.concatenate(sides)
     return None
 
 
@@ -175,7 +176,8 @@ def _region_curves(kernel, region) -> list[int]:
         return [kernel.addLine(pts[i], pts[(i + 1) % 4]) for i in range(4)]
     (cx, cy), r = region.center[:2], region.radius
     centre = kernel.addPoint(cx, cy, 0.0)
-    pts = [kernel.addPoint(cx + r * dx, cy + r * dy, 0.0) for dx, dy in ((1, 0), (0, 1), (-1, 0), (0, -1))]
+    quarters = ((1, 0), (0, 1), (-1, 0), (0, -1))
+    pts = [kernel.addPoint(cx + r * dx, cy + r * dy, 0.0) for dx, dy in quarters]
     return [kernel.addCircleArc(pts[i], centre, pts[(i + 1) % 4]) for i in range(4)]
 
 

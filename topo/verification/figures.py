@@ -166,7 +166,7 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
         else "the printed design (density >= 0.5 plus passive solids), outline smoothed "
         "by a Gaussian blur of 0.6 elements and contoured at 0.5",
         "analysis": "plane stress, quadratic triangles (scikit-fem), meshes by gmsh; "
-        "stresses recovered at the nodes by L2 projection",
+        "nodal stresses averaged from the elements around each node",
         "thickness_mm": problem.domain.thickness,
         "base_size_mm": base,
         "meshes": [
@@ -189,6 +189,7 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
                 "measure": m.measure,
                 "nodes_or_cells": m.nodes,
                 "point_like": m.point_like,
+                "applied_total_N": m.applied,
             }
             for m in finest.mappings
         ],
