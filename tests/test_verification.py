@@ -318,3 +318,63 @@ def test_verify_command_on_a_3d_run_says_not_available(tmp_path, capsys):
     assert main(["verify", str(folder)]) == 2
     assert "3D is not available yet" in capsys.readouterr().err
     assert not list(folder.glob("verify*"))
+
+
+def test_mesher_failure_is_an_internal_error_with_a_log(tmp_path, monkeypatch, capsys):
+    from topo import verification
+    from topo.verification.mesher import MeshingError
+
+    def fail(*args, **kwargs):
+        raise MeshingError("gmsh failed to mesh the outline: test")
+
+    monkeypatch.setattr(verification, "mesh_2d", fail)
+    folder = tmp_path / "run"
+    _run_folder(folder, cantilever(depth=6.0, length=20.0), np.ones((20, 6)))
+    before = (folder / "summary.json").read_text()
+    assert main(["verify", str(folder)]) == 1
+    assert "gmsh failed" in capsys.readouterr().err
+    assert "MeshingError" in (folder / "error.log").read_text()
+    assert not list(folder.glob("verify*"))
+    assert (folder / "summary.json").read_text() == before
+
+
+RUN_FILE = """
+name = "short-beam"
+[domain]
+size = [30.0, 10.0]
+element_size = 1.0
+thickness = 2.0
+[material]
+preset = "316L"
+[optimization]
+volume_fraction = 0.5
+max_iterations = 15
+[[support]]
+region = { face = "x-min" }
+[[load_case]]
+name = "down"
+  [[load_case.force]]
+  region = { box = { min = [27.0, 3.0], max = [30.0, 7.0] } }
+  total = [0.0, -100.0]
+[[passive]]
+kind = "solid"
+region = { box = { min = [26.0, 2.0], max = [30.0, 8.0] } }
+[report]
+verify = true
+"""
+
+
+def test_report_verify_runs_after_a_design(tmp_path, capsys):
+    problem = tmp_path / "beam.toml"
+    problem.write_text(RUN_FILE)
+    out = tmp_path / "out"
+    code = main(["run", str(problem), "--out", str(out), "--quiet"])
+    said = capsys.readouterr().out
+    assert code == 0, said
+    assert "body-fitted verification" in said
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["stress_source"].startswith("body-fitted")
+    body = json.loads((out / "verify.json").read_text())
+    (load,) = [m for m in body["load_mapping"] if m["role"] == "force"]
+    assert load["spread"] == "area"
+    assert load["applied_total_N"] == pytest.approx([0.0, -100.0], abs=1e-9)
