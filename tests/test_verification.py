@@ -212,19 +212,60 @@ def test_support_outside_the_body_is_refused():
         verify(topo.analyze(problem_from_dict(d)), exact=True)
 
 
-def test_three_dimensional_problem_is_refused():
+def test_three_dimensional_cantilever_matches_timoshenko_beam():
+    L, B, H, P, E, nu = 30.0, 4.0, 6.0, 100.0, 200000.0, 0.3
     d = {
-        "domain": {"size": [4.0, 2.0, 2.0], "element_size": 1.0},
+        "name": "beam-3d",
+        "domain": {"size": [L, B, H], "element_size": 1.0},
+        "material": {"youngs_modulus": E, "poissons_ratio": nu, "density": 7800.0},
+        "optimization": {"volume_fraction": 0.5},
+        "support": [{"name": "wall", "region": {"face": "x-min"}}],
+        "load_case": [
+            {"name": "tip", "force": [{"region": {"face": "x-max"}, "total": [0, 0, -P]}]}
+        ],
+        "deflection": [{"name": "end", "region": {"face": "x-max"}, "direction": "-z"}],
+    }
+    ver = verify(topo.analyze(problem_from_dict(d)), exact=True)
+    inertia = B * H**3 / 12
+    shear = E / (2 * (1 + nu))
+    # Timoshenko & Gere, as in the 2D test: bending plus shear (κ = 5/6)
+    delta = P * L**3 / (3 * E * inertia) + P * L / (5 / 6 * shear * B * H)
+    case = ver.figures["load_cases"][0]
+    assert case["deflections_mm"]["end"] == pytest.approx(delta, rel=0.03)
+    sol = ver.solution
+    node = np.argmin(np.linalg.norm(sol.points - [L / 2, B / 2, H], axis=1))
+    x = sol.points[node, 0]
+    assert sol.stress[node, 0, 0] == pytest.approx(P * (L - x) * (H / 2) / inertia, rel=0.03)
+    assert [m["spread"] for m in ver.figures["load_mapping"]][0] == "boundary"
+
+
+def test_printed_3d_block_is_meshed_and_written(tmp_path):
+    from topo.verification.surface import printed_surface
+
+    with pytest.raises(GeometryError, match="separate pieces"):
+        two = np.zeros((12, 4, 4))
+        two[0:5, 1:3, 1:3] = 1
+        two[7:12, 1:3, 1:3] = 1
+        printed_surface(two, 1.0)
+    d = {
+        "name": "block",
+        "domain": {"size": [12.0, 4.0, 4.0], "element_size": 1.0},
         "material": {"preset": "316L"},
         "optimization": {"volume_fraction": 0.5},
-        "support": [{"region": {"face": "x-min"}}],
-        "load_case": [{"force": [{"region": {"point": [4, 1, 1]}, "total": [0, -1, 0]}]}],
+        "support": [{"name": "wall", "region": {"face": "x-min"}}],
+        "load_case": [
+            {"name": "tip", "force": [{"region": {"face": "x-max"}, "total": [0, 0, -50]}]}
+        ],
     }
-    result = topo.analyze(problem_from_dict(d))
-    with pytest.raises(ProblemError, match="3D is not available yet"):
-        verify(result)
-    with pytest.raises(ProblemError, match="only 2D problems take a verify"):
-        problem_from_dict({**d, "report": {"verify": True}})
+    folder = tmp_path / "run"
+    _run_folder(folder, d, np.ones((12, 4, 4)))
+    assert main(["verify", str(folder)]) == 0
+    mesh = meshio.read(folder / "verify.vtu")
+    assert "tetra10" in mesh.cells_dict
+    body = json.loads((folder / "verify.json").read_text())
+    (load,) = [m for m in body["load_mapping"] if m["role"] == "force"]
+    assert load["applied_total_N"] == pytest.approx([0.0, 0.0, -50.0], abs=1e-9)
+    assert (folder / "verify.png").read_bytes()[:4] == b"\x89PNG"
 
 
 PLATE_FILE = """
@@ -304,22 +345,6 @@ def test_verify_command_on_a_run(tmp_path, capsys):
     assert "verify_convergence" in names and names.count("safety_factor") == 1
 
 
-def test_verify_command_on_a_3d_run_says_not_available(tmp_path, capsys):
-    d = {
-        "name": "cube",
-        "domain": {"size": [4.0, 2.0, 2.0], "element_size": 1.0},
-        "material": {"preset": "316L"},
-        "optimization": {"volume_fraction": 0.5},
-        "support": [{"region": {"face": "x-min"}}],
-        "load_case": [{"force": [{"region": {"point": [4, 1, 1]}, "total": [0, -1, 0]}]}],
-    }
-    folder = tmp_path / "run"
-    _run_folder(folder, d, np.ones((4, 2, 2)))
-    assert main(["verify", str(folder)]) == 2
-    assert "3D is not available yet" in capsys.readouterr().err
-    assert not list(folder.glob("verify*"))
-
-
 def test_mesher_failure_is_an_internal_error_with_a_log(tmp_path, monkeypatch, capsys):
     from topo import verification
     from topo.verification.mesher import MeshingError
@@ -327,7 +352,7 @@ def test_mesher_failure_is_an_internal_error_with_a_log(tmp_path, monkeypatch, c
     def fail(*args, **kwargs):
         raise MeshingError("gmsh failed to mesh the outline: test")
 
-    monkeypatch.setattr(verification, "mesh_2d", fail)
+    monkeypatch.setattr(verification, "make_mesh", fail)
     folder = tmp_path / "run"
     _run_folder(folder, cantilever(depth=6.0, length=20.0), np.ones((20, 6)))
     before = (folder / "summary.json").read_text()
@@ -378,3 +403,10 @@ def test_report_verify_runs_after_a_design(tmp_path, capsys):
     (load,) = [m for m in body["load_mapping"] if m["role"] == "force"]
     assert load["spread"] == "area"
     assert load["applied_total_N"] == pytest.approx([0.0, -100.0], abs=1e-9)
+
+
+def test_geometry_volume_matches_the_plate(plate):
+    # the exact plate less its hole: 100 × 40 − π 2.5², thickness 1 (straight chords
+    # of the quadratic elements' corners cut the hole by well under a percent)
+    expected = 100.0 * 40.0 - np.pi * 2.5**2
+    assert plate.figures["volume_mm3"] == pytest.approx(expected, rel=1e-3)

@@ -76,10 +76,6 @@ def cmd_run(args, outputs: Outputs) -> int:
     _warn(problem)
     est = estimate_resources(problem)
     _say([report.format_plan(problem, est)])
-    if args.verify and problem.dim != 2:
-        raise ProblemError(
-            problem.source, "--verify", "3D body-fitted verification is not available yet (2D only)"
-        )
     if est["available_bytes"] and est["memory_bytes"] > est["available_bytes"] and not args.force:
         hint = (
             f"; domain.element_size = {est['fitting_element_size']} mm would fit"
@@ -309,9 +305,7 @@ def build_parser() -> argparse.ArgumentParser:
         "--out", default="outputs/bench.json", help="JSON results (default outputs/bench.json)"
     )
     p.set_defaults(func=cmd_bench)
-    p = sub.add_parser(
-        "verify", help="body-fitted verification of a finished run's printed part (2D)"
-    )
+    p = sub.add_parser("verify", help="body-fitted verification of a finished run's printed part")
     p.add_argument("run_dir", help="a run folder written by `topo run`")
     p.add_argument("--strict", action="store_true", help="exit with status 3 when any check fails")
     p.set_defaults(func=cmd_verify)
@@ -326,7 +320,7 @@ def verify_option(p) -> None:
     p.add_argument(
         "--verify",
         action="store_true",
-        help="then verify with a body-fitted quadratic mesh (verify.json/.vtu/.png; 2D)",
+        help="then verify with a body-fitted quadratic mesh (verify.json/.vtu/.png)",
     )
 
 

@@ -426,17 +426,17 @@ def format_verification(v: dict, folder) -> list[str]:
     fine = v["meshes"][-1]
     lines = [
         f"body-fitted verification of {v['geometry']}:",
-        f"  {v['analysis']}; finest mesh {fine['triangles']} triangles, "
+        f"  {v['analysis']}; finest mesh {fine['elements']} elements, "
         f"{fine['free_dofs']} free dofs; {v['runtime_s']:.1f} s",
     ]
     for c in v["load_cases"]:
         change = c["change_to_previous_mesh"]["max_von_mises"]
         grid = c["verified_vs_grid"]["max_von_mises"]
-        x, y = c["peak_location_mm"]
+        where = ", ".join(f"{v:.2f}" for v in c["peak_location_mm"])
         near = c["nearest_region"]
         lines.append(
             f"  {c['name']}: peak von Mises {_num(c['max_von_mises_MPa'])} MPa at "
-            f"({x:.2f}, {y:.2f}) mm, {near['distance_mm']:.2f} mm from {near['name']}"
+            f"({where}) mm, {near['distance_mm']:.2f} mm from {near['name']}"
             + (f"; {100 * change:+.2f} % against the previous mesh" if change is not None else "")
             + (
                 f"; {100 * grid:+.1f} % against the grid's {_num(c['grid']['max_von_mises_MPa'])}"

@@ -486,10 +486,8 @@ SCHEMA: tuple[Section, ...] = (
                 "verify",
                 BOOL,
                 "after the run, verify the printed part with a body-fitted analysis "
-                "(verify.json/.vtu/.png; the headline stress then comes from it); 2D only, 3D "
-                "verification is not available yet",
+                "(verify.json/.vtu/.png; the headline stress then comes from it)",
                 default=False,
-                dims=(2,),
             ),
         ),
     ),

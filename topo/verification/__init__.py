@@ -16,14 +16,19 @@ from dataclasses import dataclass
 
 from ..problem import ProblemError
 from .figures import verification_figures
-from .mesher import mesh_2d
+from .mesher import make_mesh
 from .outline import GeometryError, domain_less_voids, printed_outline
 from .output import write_verification
 from .plane import solve_plane
 from .sizing import SizeField
+from .surface import printed_surface
 
 LEVELS = (("coarse", 2.0), ("default", 1.0), ("fine", 0.6))
+# 3D: a fine mesh at 0.6 had over a million dofs on the demo bracket (CHOLMOD ran
+# out of time and memory); 0.75 keeps it to a few hundred thousand
+LEVELS_3D = (("coarse", 1.5), ("default", 1.0), ("fine", 0.75))
 BASE = 2.0  # base element size in grid elements: quadratic elements need fewer
+BASE_3D = 2.0  # … in 3D (1.0 gave 98,000 tetrahedra on the demo bracket before refining)
 
 
 @dataclass
@@ -39,31 +44,27 @@ def verify(result, exact: bool = False, base_size: float | None = None) -> Verif
     (3D, empty or disconnected design, a region reaching no node)."""
     problem = result.problem
     source = problem.source
-    if problem.dim != 2:
-        raise ProblemError(
-            source,
-            "verify",
-            "body-fitted verification is available for 2D problems only; 3D is not available yet",
-        )
     start = time.perf_counter()
     h = problem.domain.element_size
-    base = base_size or BASE * h
+    base = base_size or (BASE if problem.dim == 2 else BASE_3D) * h
     try:
         if exact:
             geometry, tol = domain_less_voids(problem), 1e-6 * max(problem.domain.size)
-        else:
+        elif problem.dim == 2:
             geometry, tol = printed_outline(result.printed.density, h), 0.5 * h * (1 + 1e-9)
+        else:
+            geometry, tol = printed_surface(result.printed.density, h), 0.5 * h * (1 + 1e-9)
         geometry.embed = [s.region for s in problem.supports] + [
             f.region for c in problem.load_cases for f in c.forces
         ]
         embedded = geometry.embedded()
         field = SizeField(problem, base)
-        first = solve_plane(mesh_2d(geometry, field), problem, tol, embedded)
+        first = solve_plane(make_mesh(geometry, field, problem.dim), problem, tol, embedded)
         field.refine_by_stress(first.points, first.von_mises)
         levels = []
-        for name, scale in LEVELS:
+        for name, scale in LEVELS if problem.dim == 2 else LEVELS_3D:
             t0 = time.perf_counter()
-            mesh = mesh_2d(geometry, field.scaled(scale))
+            mesh = make_mesh(geometry, field.scaled(scale), problem.dim)
             t1 = time.perf_counter()
             sol = solve_plane(mesh, problem, tol, embedded)
             levels.append((name, scale, sol, t1 - t0, time.perf_counter() - t1))

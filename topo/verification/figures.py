@@ -11,7 +11,7 @@ from ..printed import finite_or_none, relative_gap
 from .sizing import region_distance
 
 CONVERGENCE_LIMIT = 0.05  # largest change of a peak between the two finest meshes
-STRESS_SOURCE = "body-fitted verification (verify.json): quadratic triangles, finest mesh"
+STRESS_SOURCE = "body-fitted verification (verify.json): quadratic elements, finest mesh"
 
 
 def _row(name: str, ok: bool | None, value, limit, detail: str) -> dict:
@@ -105,6 +105,18 @@ def _changes(fine: dict, other: dict) -> dict:
     }
 
 
+def mesh_volume(points: np.ndarray, cells: np.ndarray, thickness: float | None) -> float:
+    """Volume of the mesh (mm³) from its straight-sided corner simplices; 2D: area
+    times the thickness."""
+    if points.shape[1] == 2:
+        a, b, c = (points[cells[:, k]] for k in range(3))
+        u, v = b - a, c - a
+        area = 0.5 * np.abs(u[:, 0] * v[:, 1] - u[:, 1] * v[:, 0]).sum()
+        return float(area * thickness)
+    a, b, c, d = (points[cells[:, k]] for k in range(4))
+    return float(np.abs(np.einsum("ij,ij->i", np.cross(b - a, c - a), d - a)).sum() / 6)
+
+
 def verification_figures(result, levels, exact: bool, base: float, runtime: float) -> dict:
     problem = result.problem
     h = problem.domain.element_size
@@ -163,17 +175,27 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
     return {
         "geometry": "the domain less its void regions, exact"
         if exact
-        else "the printed design (density >= 0.5 plus passive solids), outline smoothed "
-        "by a Gaussian blur of 0.6 elements and contoured at 0.5",
-        "analysis": "plane stress, quadratic triangles (scikit-fem), meshes by gmsh; "
-        "nodal stresses averaged from the elements around each node",
+        else "the printed design (density >= 0.5 plus passive solids), smoothed by a "
+        "Gaussian blur of 0.6 elements and contoured at 0.5",
+        "analysis": (
+            "plane stress, quadratic triangles"
+            if problem.dim == 2
+            else "linear elasticity, quadratic tetrahedra"
+        )
+        + " (scikit-fem), meshes by gmsh; nodal stresses averaged from the elements "
+        "around each node",
         "thickness_mm": problem.domain.thickness,
+        "volume_mm3": mesh_volume(finest.points, finest.cells, problem.domain.thickness),
+        "volume_gap_to_grid": relative_gap(
+            mesh_volume(finest.points, finest.cells, problem.domain.thickness),
+            (result.summary or {}).get("volume_mm3"),
+        ),
         "base_size_mm": base,
         "meshes": [
             {
                 "name": name,
                 "size_scale": scale,
-                "triangles": int(len(sol.cells)),
+                "elements": int(len(sol.cells)),
                 "nodes": int(len(sol.points)),
                 "free_dofs": int(sol.dofs),
                 "mesh_s": round(tm, 3),

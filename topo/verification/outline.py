@@ -233,7 +233,56 @@ class DomainLessVoids:
         _embed(gmsh, curves, surface)
 
 
-def domain_less_voids(problem) -> DomainLessVoids:
+@dataclass
+class BoxLessVoids:
+    """The problem's domain box minus its void regions (3D), exact (OpenCASCADE)."""
+
+    size: tuple[float, float, float]
+    voids: list
+    h: float
+    embed: list = field(default_factory=list)  # not used in 3D
+
+    def embedded(self) -> list:
+        return []
+
+    def build(self, gmsh) -> None:
+        occ = gmsh.model.occ
+        body = occ.addBox(0.0, 0.0, 0.0, *self.size)
+        tools = [_solid(occ, r) for r in self.voids]
+        if tools:
+            out, _ = occ.cut([(3, body)], [(3, t) for t in tools])
+            if len(out) != 1:
+                occ.synchronize()
+                raise GeometryError(
+                    f"the domain less its void regions is in {len(out)} separate pieces"
+                )
+        occ.synchronize()
+
+
+def _solid(occ, region) -> int:
+    if isinstance(region, Sphere):
+        return occ.addSphere(*region.center, region.radius)
+    if isinstance(region, Cylinder):
+        a = "xyz".index(region.axis)
+        start = np.array(region.center, dtype=float)
+        start[a] -= region.length / 2
+        span = np.zeros(3)
+        span[a] = region.length
+        return occ.addCylinder(*start, *span, region.radius)
+    if isinstance(region, Box):
+        lo, hi = np.array(region.min), np.array(region.max)
+        return occ.addBox(*lo, *(hi - lo))
+    raise GeometryError(f"a void region of kind {type(region).__name__.lower()} has no exact shape")
+
+
+def domain_less_voids(problem):
+    """The domain less its void regions, exact: a 2D or a 3D geometry."""
+    if problem.dim == 3:
+        return BoxLessVoids(
+            tuple(problem.domain.size),
+            [p.region for p in problem.passives if p.kind == "void"],
+            problem.domain.element_size,
+        )
     return DomainLessVoids(
         tuple(problem.domain.size),
         [p.region for p in problem.passives if p.kind == "void"],

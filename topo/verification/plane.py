@@ -31,7 +31,7 @@ from ..regions import _inside  # the same membership test the grid uses
 from .mesher import TriMesh6
 from .outline import GeometryError
 
-AXIS = {"x": 0, "y": 1}
+AXIS = {"x": 0, "y": 1, "z": 2}
 
 
 @dataclass
@@ -61,11 +61,12 @@ class PlaneSolution:
 
 
 def _where(region, pts: np.ndarray, tol: float, size) -> np.ndarray:
-    return _inside(region, pts, tol, SimpleNamespace(dim=2, size=tuple(size)))
+    return _inside(region, pts, tol, SimpleNamespace(dim=len(size), size=tuple(size)))
 
 
 def _nearest(points: np.ndarray, region: Point) -> int:
-    return int(np.argmin(np.linalg.norm(points - np.array(region.point[:2]), axis=1)))
+    dim = points.shape[1]
+    return int(np.argmin(np.linalg.norm(points - np.array(region.point[:dim]), axis=1)))
 
 
 def _node_set(points, region, tol, size, what: str) -> tuple[np.ndarray, str]:
@@ -82,33 +83,41 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
     the mesh, so their nodes are selected without the tolerance `tol`."""
     from skfem import (
         Basis,
+        ElementTetP2,
         ElementTriP2,
         ElementVector,
         FacetBasis,
         Functional,
         LinearForm,
+        MeshTet2,
         MeshTri2,
         asm,
         condense,
     )
-    from skfem.models.elasticity import lame_parameters, linear_elasticity
+    from skfem.models.elasticity import lame_parameters
 
     dom, mat = problem.domain, problem.material
-    size, t, h = dom.size, dom.thickness, dom.element_size
+    size, h = dom.size, dom.element_size
+    dim = len(size)
+    t = dom.thickness if dim == 2 else 1.0
     exact = {repr(r) for r in embedded}
     fine_tol = 1e-6 * max(size)
 
     def tol_of(region) -> float:
         return fine_tol if repr(region) in exact else tol
 
-    m = MeshTri2(mesh.points.T.copy(), mesh.cells.T.copy())
-    elem = ElementVector(ElementTriP2())
-    basis = Basis(m, elem, intorder=4)
-    scalar = basis.with_element(ElementTriP2())
-    points = scalar.doflocs.T  # node j carries dofs 2j (x) and 2j + 1 (y)
+    mesh_type, p2 = (MeshTri2, ElementTriP2) if dim == 2 else (MeshTet2, ElementTetP2)
+    m = mesh_type(mesh.points.T.copy(), mesh.cells.T.copy())
+    elem = ElementVector(p2())
+    # degree 2 integrates the stiffness of a straight-sided quadratic element exactly;
+    # 2D elements may be curved at the boundary, and 2D is cheap
+    basis = Basis(m, elem, intorder=4 if dim == 2 else 2)
+    scalar = basis.with_element(p2())
+    points = scalar.doflocs.T  # node j carries dofs dim·j + component
     lam, mu = lame_parameters(mat.youngs_modulus, mat.poissons_ratio)
-    lam = 2 * lam * mu / (lam + 2 * mu)  # plane stress
-    stiffness = asm(linear_elasticity(lam, mu), basis) * t
+    if dim == 2:
+        lam = 2 * lam * mu / (lam + 2 * mu)  # plane stress
+    stiffness = asm(_elasticity(lam, mu), basis) * t
     n_cases = len(problem.load_cases)
     loads = np.zeros((basis.N, n_cases))
     mappings: list[Mapping] = []
@@ -124,7 +133,7 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
     for c, case in enumerate(problem.load_cases):
         for j, force in enumerate(case.forces):
             name = case.name if j == 0 else f"{case.name}[{j}]"
-            total = np.array(force.total[:2], dtype=float)
+            total = np.array(force.total[:dim], dtype=float)
             region = force.region
             inside = (
                 np.flatnonzero(_where(region, centroids, 0.0, size))
@@ -138,11 +147,11 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
             )
             if len(inside):
                 part = Basis(m, elem, elements=inside, intorder=4)
-                measure = asm(one, part.with_element(ElementTriP2()))
-                spread = "area"
+                measure = asm(one, part.with_element(p2()))
+                spread = "area" if dim == 2 else "volume"
             elif len(edges):
                 part = FacetBasis(m, elem, facets=edges, intorder=4)
-                measure = asm(one, part.with_element(ElementTriP2()))
+                measure = asm(one, part.with_element(p2()))
                 spread = "boundary"
             else:
                 node = _nearest(points, region) if isinstance(region, Point) else None
@@ -151,22 +160,25 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
                         f"load_case[{c}].force[{j}] ({name}): the region reaches no element "
                         "or boundary edge of the body-fitted mesh"
                     )
-                loads[2 * node : 2 * node + 2, c] += total
+                loads[dim * node : dim * node + dim, c] += total
                 mappings.append(
                     Mapping(name, "force", region, "node", 0.0, 1, True, total.tolist())
                 )
                 continue
-            density = total / measure  # N per mm² of area or per mm of edge: sums to total
+            # N per unit of area or volume (body force), of edge length or surface
+            # area (traction): integrates to the total
+            density = total / measure
 
             @LinearForm
             def spread_load(v, w, d=density):
-                return d[0] * v[0] + d[1] * v[1]
+                return sum(d[k] * v[k] for k in range(len(d)))
 
             vector = asm(spread_load, part)
             loads[:, c] += vector
-            small = measure < (h * h if spread == "area" else h)
-            count = len(inside) if spread == "area" else len(edges)
-            applied = [float(vector[0::2].sum()), float(vector[1::2].sum())]
+            power = dim if spread != "boundary" else dim - 1
+            small = measure < h**power
+            count = len(inside) if spread != "boundary" else len(edges)
+            applied = [float(vector[k::dim].sum()) for k in range(dim)]
             mappings.append(
                 Mapping(name, "force", region, spread, float(measure), count, bool(small), applied)
             )
@@ -176,7 +188,7 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
         nodes, how = _node_set(points, s.region, tol_of(s.region), size, f"support[{i}] ({s.name})")
         for axis in s.fix:
             if axis in AXIS:
-                fixed.append(2 * nodes + AXIS[axis])
+                fixed.append(dim * nodes + AXIS[axis])
         span = np.ptp(points[nodes], axis=0).max() if len(nodes) > 1 else 0.0
         mappings.append(
             Mapping(s.name, "support", s.region, how, float(span), len(nodes), bool(span < h))
@@ -190,18 +202,17 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
     if not np.all(np.isfinite(u)):
         raise FloatingPointError("the body-fitted solve returned non-finite displacements")
 
-    stress = _nodal_stress(m, elem, u, lam, mu, fixed, len(points))
-    sx, sy, txy = stress[:, 0], stress[:, 1], stress[:, 2]
-    vm = np.sqrt(np.maximum(sx**2 - sx * sy + sy**2 + 3 * txy**2, 0.0))
+    stress = _nodal_stress(m, elem, p2, u, lam, mu, fixed, len(points))
+    vm = _von_mises(stress)
 
-    disp = u.reshape(len(points), 2, n_cases)
+    disp = u.reshape(len(points), dim, n_cases)
     probes = []
     names = [c.name for c in problem.load_cases]
     for i, d in enumerate(problem.deflections):
         nodes, _ = _node_set(
             points, d.region, tol_of(d.region), size, f"deflection[{i}] ({d.name})"
         )
-        direction = _unit(d.direction)
+        direction = _unit(d.direction, dim)
         cases = range(n_cases) if d.load_case is None else [names.index(d.load_case)]
         probes.append(
             {
@@ -215,28 +226,61 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
     )
 
 
-def _nodal_stress(m, elem, u, lam, mu, fixed, n_nodes) -> np.ndarray:
-    """Stresses (n_nodes, 3, n_cases) at the nodes: each element's stress (linear in
-    a quadratic element) evaluated at its six nodes, averaged over the elements
-    around a node. Elements whose every dof is fixed (inside a support region held
-    whole, such as a bolt) carry no stress and stay out of the average, so the
-    stress beside them is not diluted."""
-    from skfem import Basis, ElementTriP2
+def _elasticity(lam: float, mu: float):
+    """Isotropic linear elasticity, σ(u):ε(v) = 2μ ε(u):ε(v) + λ tr ε(u) tr ε(v)."""
+    from skfem import BilinearForm
+    from skfem.helpers import ddot, sym_grad, trace
+
+    @BilinearForm
+    def form(u, v, w):
+        eu, ev = sym_grad(u), sym_grad(v)
+        return 2.0 * mu * ddot(eu, ev) + lam * trace(eu) * trace(ev)
+
+    return form
+
+
+# stress components kept: 2D σx, σy, τxy; 3D σx, σy, σz, τyz, τxz, τxy
+COMPONENTS = {2: ((0, 0), (1, 1), (0, 1)), 3: ((0, 0), (1, 1), (2, 2), (1, 2), (0, 2), (0, 1))}
+
+
+def _von_mises(stress: np.ndarray) -> np.ndarray:
+    """von Mises stress of nodal stresses (n, 3 or 6, n_cases)."""
+    if stress.shape[1] == 3:
+        sx, sy, txy = stress[:, 0], stress[:, 1], stress[:, 2]
+        return np.sqrt(np.maximum(sx**2 - sx * sy + sy**2 + 3 * txy**2, 0.0))
+    sx, sy, sz, tyz, txz, txy = (stress[:, k] for k in range(6))
+    return np.sqrt(
+        np.maximum(
+            0.5 * ((sx - sy) ** 2 + (sy - sz) ** 2 + (sz - sx) ** 2)
+            + 3 * (tyz**2 + txz**2 + txy**2),
+            0.0,
+        )
+    )
+
+
+def _nodal_stress(m, elem, p2, u, lam, mu, fixed, n_nodes) -> np.ndarray:
+    """Stresses (n_nodes, 3 or 6, n_cases) at the nodes: each element's stress
+    (linear in a quadratic element) evaluated at its nodes, averaged over the
+    elements around a node. Elements whose every dof is fixed (inside a support
+    region held whole, such as a bolt) carry no stress and stay out of the average,
+    so the stress beside them is not diluted."""
+    from skfem import Basis
     from skfem.helpers import sym_grad
 
-    ref = ElementTriP2().doflocs.T  # the six reference nodes, in element-dof order
+    ref = p2().doflocs.T  # the reference nodes, in element-dof order
     at_nodes = Basis(m, elem, quadrature=(ref, np.ones(ref.shape[1])))
-    dofs = at_nodes.with_element(ElementTriP2()).element_dofs  # (6, n_elements)
+    dofs = at_nodes.with_element(p2()).element_dofs  # (nodes per element, n_elements)
     held = np.zeros(u.shape[0], dtype=bool)
     held[fixed] = True
-    vector_dofs = at_nodes.element_dofs  # (12, n_elements)
-    active = ~held[vector_dofs].all(axis=0)
+    active = ~held[at_nodes.element_dofs].all(axis=0)
     count = np.bincount(dofs[:, active].ravel(), minlength=n_nodes).astype(float)
-    out = np.zeros((n_nodes, 3, u.shape[1]))
+    dim = m.p.shape[0]
+    pairs = COMPONENTS[dim]
+    out = np.zeros((n_nodes, len(pairs), u.shape[1]))
     for c in range(u.shape[1]):
-        eps = sym_grad(at_nodes.interpolate(u[:, c]))  # (2, 2, n_elements, 6)
-        tr = eps[0, 0] + eps[1, 1]
-        comps = (2 * mu * eps[0, 0] + lam * tr, 2 * mu * eps[1, 1] + lam * tr, 2 * mu * eps[0, 1])
+        eps = sym_grad(at_nodes.interpolate(u[:, c]))  # (dim, dim, n_elements, nodes)
+        tr = sum(eps[k, k] for k in range(dim))
+        comps = [2 * mu * eps[i, j] + (lam * tr if i == j else 0.0) for i, j in pairs]
         for k, comp in enumerate(comps):
             total = np.bincount(
                 dofs[:, active].ravel(), weights=comp[active].T.ravel(), minlength=n_nodes
@@ -245,12 +289,12 @@ def _nodal_stress(m, elem, u, lam, mu, fixed, n_nodes) -> np.ndarray:
     return out
 
 
-def _unit(direction) -> np.ndarray:
+def _unit(direction, dim: int) -> np.ndarray:
     if isinstance(direction, str):
-        vec = np.zeros(2)
+        vec = np.zeros(dim)
         vec["xyz".index(direction.lstrip("+-"))] = -1.0 if direction.startswith("-") else 1.0
         return vec
-    vec = np.asarray(direction[:2], dtype=float)
+    vec = np.asarray(direction[:dim], dtype=float)
     return vec / np.linalg.norm(vec)
 
 

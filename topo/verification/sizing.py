@@ -19,15 +19,22 @@ RASTER_POINTS = 2_000_000  # largest raster of the tabulated field
 
 
 def region_distance(region, pts: np.ndarray, size) -> np.ndarray:
-    """Distance (mm) of each 2D point to a region (0 inside)."""
-    pts = np.atleast_2d(pts)[:, :2]
+    """Distance (mm) of each point (2D or 3D, as the domain) to a region (0 inside)."""
+    dim = len(size)
+    pts = np.atleast_2d(pts)[:, :dim]
     if isinstance(region, Point):
-        return np.linalg.norm(pts - np.array(region.point[:2]), axis=1)
+        return np.linalg.norm(pts - np.array(region.point[:dim]), axis=1)
+    if isinstance(region, Cylinder) and dim == 3:
+        a = "xyz".index(region.axis)
+        rel = pts - np.array(region.center)
+        radial = np.maximum(np.linalg.norm(np.delete(rel, a, axis=1), axis=1) - region.radius, 0)
+        along = np.maximum(np.abs(rel[:, a]) - region.length / 2, 0)
+        return np.hypot(radial, along)
     if isinstance(region, (Cylinder, Sphere)):
-        gap = np.linalg.norm(pts - np.array(region.center[:2]), axis=1) - region.radius
+        gap = np.linalg.norm(pts - np.array(region.center[:dim]), axis=1) - region.radius
         return np.maximum(gap, 0.0)
     if isinstance(region, Box):
-        lo, hi = np.array(region.min[:2]), np.array(region.max[:2])
+        lo, hi = np.array(region.min[:dim]), np.array(region.max[:dim])
         return np.linalg.norm(np.maximum(np.maximum(lo - pts, pts - hi), 0.0), axis=1)
     if isinstance(region, Face):
         a = "xyz".index(region.face[0])
@@ -48,11 +55,11 @@ class SizeField:
         ]
         self.scale = 1.0
         step = base * REGION_FACTOR * STRESS_STEPS[0][1] / 2
-        step = max(step, np.sqrt(self.size[0] * self.size[1] / RASTER_POINTS))
+        step = max(step, (np.prod(self.size) / RASTER_POINTS) ** (1 / len(self.size)))
         self.step = step
         self.shape = tuple(int(np.ceil(s / step)) + 1 for s in self.size)
-        gx, gy = (np.arange(n) * step for n in self.shape)
-        self.raster = np.column_stack([a.ravel() for a in np.meshgrid(gx, gy, indexing="ij")])
+        axes = (np.arange(n) * step for n in self.shape)
+        self.raster = np.column_stack([a.ravel() for a in np.meshgrid(*axes, indexing="ij")])
         near = np.zeros(len(self.raster), dtype=bool)
         for r in self.regions:
             near |= region_distance(r, self.raster, self.size) <= REGION_BAND * base
@@ -74,7 +81,8 @@ class SizeField:
         other.scale = scale
         return other
 
-    def __call__(self, x: float, y: float) -> float:
-        i = min(max(int(round(x / self.step)), 0), self.shape[0] - 1)
-        j = min(max(int(round(y / self.step)), 0), self.shape[1] - 1)
-        return float(self.table[i, j]) * self.scale
+    def __call__(self, *xyz: float) -> float:
+        index = tuple(
+            min(max(int(round(v / self.step)), 0), n - 1) for v, n in zip(xyz, self.shape)
+        )
+        return float(self.table[index]) * self.scale
