@@ -1,12 +1,12 @@
 """Verification analysis on the smooth geometry: body-fitted quadratic meshes,
 converged stress and deflection for sign-off (`topo verify`).
 
-The geometry is the printed design's smooth outline (outline.py), or, for a plain
-analysis, the domain less its void regions exactly. A first mesh (base size,
-finer at loads and supports) is solved; its stress guides a second size field,
-finer where the stress is high (sizing.py). That field is meshed three times, at
-twice, once and 0.6 times its sizes, and each mesh solved (plane.py): the finest gives
-the figures, the other two their convergence. 2D (plane stress) only as yet.
+The geometry is the printed design's smooth outline (outline.py) or surface
+(surface.py, 3D), or, for a plain analysis, the domain less its void regions
+exactly. A first mesh (base size, finer at loads and supports) is solved; its
+stress guides a second size field, finer where the stress is high (sizing.py).
+That field is meshed three times (LEVELS, LEVELS_3D) and each mesh solved
+(elastic.py): the finest gives the figures, the other two their convergence.
 """
 
 from __future__ import annotations
@@ -15,11 +15,11 @@ import time
 from dataclasses import dataclass
 
 from ..problem import ProblemError
+from .elastic import solve_elastic
 from .figures import verification_figures
 from .mesher import make_mesh
 from .outline import GeometryError, domain_less_voids, printed_outline
 from .output import write_verification
-from .plane import solve_plane
 from .sizing import SizeField
 from .surface import printed_surface
 
@@ -34,7 +34,7 @@ BASE_3D = 2.0  # … in 3D (1.0 gave 98,000 tetrahedra on the demo bracket befor
 @dataclass
 class Verification:
     figures: dict  # what verify.json holds
-    solution: object  # PlaneSolution of the finest mesh
+    solution: object  # elastic.Solution of the finest mesh
     problem: object
 
 
@@ -59,14 +59,14 @@ def verify(result, exact: bool = False, base_size: float | None = None) -> Verif
         ]
         embedded = geometry.embedded()
         field = SizeField(problem, base)
-        first = solve_plane(make_mesh(geometry, field, problem.dim), problem, tol, embedded)
+        first = solve_elastic(make_mesh(geometry, field, problem.dim), problem, tol, embedded)
         field.refine_by_stress(first.points, first.von_mises)
         levels = []
         for name, scale in LEVELS if problem.dim == 2 else LEVELS_3D:
             t0 = time.perf_counter()
             mesh = make_mesh(geometry, field.scaled(scale), problem.dim)
             t1 = time.perf_counter()
-            sol = solve_plane(mesh, problem, tol, embedded)
+            sol = solve_elastic(mesh, problem, tol, embedded)
             levels.append((name, scale, sol, t1 - t0, time.perf_counter() - t1))
     except GeometryError as exc:
         what = "domain less voids" if exact else "printed design"

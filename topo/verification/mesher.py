@@ -28,9 +28,6 @@ class QuadraticMesh:
     cells: np.ndarray
 
 
-TriMesh6 = QuadraticMesh
-
-
 def make_mesh(geometry, size: Callable[..., float], dim: int = 2) -> QuadraticMesh:
     """Mesh `geometry` (an object with build(gmsh)) with element sizes size(x, y[, z])."""
     import gmsh

@@ -1,21 +1,26 @@
-"""Plane-stress linear elasticity on quadratic triangles (scikit-fem), with the
-problem's supports, loads and deflection points mapped onto the body-fitted mesh.
+"""Linear elasticity on quadratic triangles (plane stress, the problem's thickness)
+or tetrahedra, with scikit-fem; the problem's supports, loads and deflection
+points mapped onto the body-fitted mesh.
 
 How a region reaches the mesh (same rules for every mesh, so the convergence
 study compares like with like):
 
 - a force whose region holds part of the body (element centroids inside it) is
-  spread as a uniform body force over that area: total / (area · thickness);
-- otherwise, over the boundary edges whose midpoints lie within `tol` of the
-  region, as a uniform traction: total / (length · thickness);
-- a `point` region, or a region that reaches neither, goes to the nearest node.
+  spread as a uniform body force over that area (2D, "area") or volume (3D,
+  "volume");
+- otherwise, over the boundary edges (2D) or faces (3D) whose midpoints lie
+  within `tol` of the region, as a uniform traction ("boundary");
+- a `point` region goes to the nearest node ("node"); any other region that
+  reaches neither is refused (GeometryError).
 Each is integrated with the quadratic shape functions (consistent loads), so the
-nodal forces sum to the stated total exactly. Supports fix the listed directions
-of every node within `tol` of the region (a point: the nearest node). Deflection
-points average the displacement of the nodes within `tol` (a point: the nearest).
+nodal forces sum to the stated total exactly (Mapping.applied). Supports fix the
+listed directions of every node within `tol` of the region (a point: the nearest
+node). Deflection points average the displacement of the nodes within `tol` (a
+point: the nearest). A region whose outline is drawn into the mesh (`embedded`)
+is selected without the tolerance.
 
 Stresses are recovered at the nodes by averaging the element stresses there (see
-_nodal_stress), then von Mises σ_v = √(σx² − σxσy + σy² + 3τxy²).
+_nodal_stress), then the von Mises stress of the averaged components.
 """
 
 from __future__ import annotations
@@ -28,7 +33,7 @@ import scipy.sparse.linalg as spla
 
 from ..problem import Point
 from ..regions import _inside  # the same membership test the grid uses
-from .mesher import TriMesh6
+from .mesher import QuadraticMesh
 from .outline import GeometryError
 
 AXIS = {"x": 0, "y": 1, "z": 2}
@@ -49,7 +54,7 @@ class Mapping:
 
 
 @dataclass
-class PlaneSolution:
+class Solution:
     points: np.ndarray  # (n, 2) mm, every node of the quadratic mesh
     cells: np.ndarray  # (m, 6)
     displacement: np.ndarray  # (n, 2, n_cases) mm
@@ -78,7 +83,7 @@ def _node_set(points, region, tol, size, what: str) -> tuple[np.ndarray, str]:
     return nodes, "nodes"
 
 
-def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSolution:
+def solve_elastic(mesh: QuadraticMesh, problem, tol: float, embedded=()) -> Solution:
     """Solve every load case on `mesh`. Regions in `embedded` have their outline in
     the mesh, so their nodes are selected without the tolerance `tol`."""
     from skfem import (
@@ -221,7 +226,7 @@ def solve_plane(mesh: TriMesh6, problem, tol: float, embedded=()) -> PlaneSoluti
                 "cases": {c: float(disp[nodes, :, c].mean(axis=0) @ direction) for c in cases},
             }
         )
-    return PlaneSolution(
+    return Solution(
         points, scalar.element_dofs.T.copy(), disp, vm, stress, probes, mappings, len(free)
     )
 
