@@ -159,13 +159,13 @@ def cmd_analyze(args, outputs: Outputs) -> int:
     out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-analysis"
     outputs.folder = out
     s = export(result, out, only=["problem.json", "summary.json"], mesh=False).summary
-    lines = report.format_analysis(s, args.design)
+    verified = []
     if args.verify:
         # a design file is verified as printed; without one, the exact domain less voids
         ver = verify(result, exact=args.design is None)
-        write_verification(ver, out, s)
-        lines += report.format_verification(ver.figures, out)
-    _say(lines + [f"summary in {out}/summary.json"])
+        s = write_verification(ver, out, s)
+        verified = report.format_verification(ver.figures, out)
+    _say(report.format_analysis(s, args.design) + verified + [f"summary in {out}/summary.json"])
     return 0
 
 

@@ -437,6 +437,11 @@ def format_verification(v: dict, folder) -> list[str]:
         lines.append(
             f"  {c['name']}: peak von Mises {_num(c['max_von_mises_MPa'])} MPa at "
             f"({where}) mm, {near['distance_mm']:.2f} mm from {near['name']}"
+            + (
+                f" (also near {', '.join(near['within_one_element'][1:])})"
+                if len(near["within_one_element"]) > 1
+                else ""
+            )
             + (f"; {100 * change:+.2f} % against the previous mesh" if change is not None else "")
             + (
                 f"; {100 * grid:+.1f} % against the grid's {_num(c['grid']['max_von_mises_MPa'])}"

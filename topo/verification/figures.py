@@ -74,12 +74,18 @@ def _named_regions(problem) -> list[tuple[str, object]]:
 
 
 def nearest_region(problem, point: np.ndarray) -> dict:
+    """The named region nearest a point, and every one within a grid element of it."""
     rows = [
         (float(region_distance(r, point[None, :], problem.domain.size)[0]), name)
         for name, r in _named_regions(problem)
     ]
     dist, name = min(rows)
-    return {"name": name, "distance_mm": dist}
+    h = problem.domain.element_size
+    return {
+        "name": name,
+        "distance_mm": dist,
+        "within_one_element": [n for d, n in sorted(rows) if d <= h],
+    }
 
 
 def _case(sol, c: int) -> dict:
@@ -163,6 +169,10 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
                     "max_displacement": relative_gap(
                         top["max_displacement_mm"], grid_fig["max_displacement_mm"]
                     ),
+                    "deflections": {
+                        k: relative_gap(v, grid_fig["deflections_mm"].get(k))
+                        for k, v in top["deflections_mm"].items()
+                    },
                 },
             }
         )
