@@ -8,7 +8,9 @@ import numpy as np
 
 from ..checks import FAIL, NA, PASS, failed
 from ..printed import finite_or_none, relative_gap
+from .outline import BLUR
 from .sizing import region_distance
+from .surface import BLUR_3D
 
 CONVERGENCE_LIMIT = 0.05  # largest change of a peak between the two finest meshes
 STRESS_SOURCE = "body-fitted verification (verify.json): quadratic elements, finest mesh"
@@ -186,7 +188,8 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
         "geometry": "the domain less its void regions, exact"
         if exact
         else "the printed design (density >= 0.5 plus passive solids), smoothed by a "
-        "Gaussian blur of 0.6 elements and contoured at 0.5",
+        f"Gaussian blur of {BLUR if problem.dim == 2 else BLUR_3D} elements and contoured "
+        "at 0.5",
         "analysis": (
             "plane stress, quadratic triangles"
             if problem.dim == 2
