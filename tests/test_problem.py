@@ -159,6 +159,7 @@ def full_problem():
     d["deflection"] = [{"region": {"point": [20.0, 2.5]}, "direction": "-y", "limit": 1.0}]
     d["checks"] = {"safety_factor": 1.5}
     d["cost"] = {"batch": 20}
+    d["report"] = {"verify": False}
     return d
 
 
@@ -180,6 +181,7 @@ PLACES = {
     "deflection": ("deflection.0.", "deflection[0].", lambda p: p.deflections[0]),
     "checks": ("checks.", "checks.", lambda p: p.checks),
     "cost": ("cost.", "cost.", lambda p: p.cost),
+    "report": ("report.", "report.", lambda p: p.report),
     "region": ("support.0.region.", "support[0].region.", lambda p: p.supports[0].region),
     "region.box": (
         "passive.0.region.box.",

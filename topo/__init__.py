@@ -14,6 +14,7 @@ from .problem import Problem, ProblemError, load_problem, parse_override, proble
 from .report import CAUTION, run_summary, summarize
 from .review import write_report
 from .sweep import sweep
+from .verification import Verification, verify, write_verification
 
 __all__ = [
     "CAUTION",
@@ -37,5 +38,8 @@ __all__ = [
     "summarize",
     "sweep",
     "write_report",
+    "Verification",
+    "verify",
+    "write_verification",
 ]
 __version__ = "0.1.0"

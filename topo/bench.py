@@ -206,9 +206,36 @@ def case_scale(shape: tuple[int, int, int], iterations: int) -> dict:
 
 # Run only when named with --case: each is too long for a routine run
 # (durations: DEVELOPERS.md, "Benchmarks").
+def case_verify(demo: str) -> dict:
+    """Body-fitted verification of a demo bracket (problems/NAME.toml): the design
+    is optimised first (not timed), then verified; time and peak memory of the
+    process (which includes the optimisation's)."""
+    from pathlib import Path
+
+    from .design import optimize
+    from .problem import load_problem
+    from .verification import verify
+
+    problem = load_problem(Path(__file__).resolve().parent.parent / "problems" / f"{demo}.toml")
+    result = optimize(problem)
+    start = time.perf_counter()
+    figures = verify(result).figures
+    return {
+        "verify_s": time.perf_counter() - start,
+        "meshes": figures["meshes"],
+        "max_von_mises_MPa": figures["max_von_mises_MPa"],
+        "grid_max_von_mises_MPa": result.summary["max_von_mises_MPa"],
+        "checks_failed": figures["checks_failed"],
+    }
+
+
+# Run only when named with --case: each takes from ten minutes to over half an
+# hour on two cores (the long comparison is dominated by its direct run).
 ON_REQUEST = {
     "scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100)),
     "compare-3d-60x30x30-long": (case_compare, ((60, 30, 30), 50)),
+    "verify-2d-demo": (case_verify, ("bracket-2d",)),
+    "verify-3d-demo": (case_verify, ("bracket-3d",)),
 }
 
 
@@ -259,6 +286,14 @@ def _phases(r: dict) -> str:
 def format_case(name: str, r: dict) -> str:
     if "error" in r:
         return f"{name}: FAILED {r['error']}"
+    if "verify_s" in r:
+        fine = r["meshes"][-1]
+        return (
+            f"{name}: verification {r['verify_s']:.1f} s, finest mesh {fine['elements']} "
+            f"elements ({fine['free_dofs']} dofs, mesh {fine['mesh_s']:.1f} s, solve "
+            f"{fine['solve_s']:.1f} s); peak {r['max_von_mises_MPa']:.4g} MPa against the "
+            f"grid's {r['grid_max_von_mises_MPa']:.4g}; peak memory {r['peak_memory_MB']:.0f} MB"
+        )
     if "direct" in r:
         lines = [f"{name}: {r['iterations']} iterations each"]
         for kind in ("iterative", "direct"):

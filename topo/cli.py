@@ -33,7 +33,9 @@ from . import (
     run_benchmarks,
     runfolder,
     sweep,
+    verify,
     write_report,
+    write_verification,
 )
 from .interrupts import terminate_as_interrupt
 from .orient import CAUTION as ORIENT_CAUTION
@@ -135,12 +137,20 @@ def cmd_run(args, outputs: Outputs) -> int:
             result, out, iso=args.iso, smooth=args.smooth, mesh_format=args.mesh_format
         ).summary
         checkpoint.unlink(missing_ok=True)  # the run is complete; finished.json marks it
-    _say(report.format_run(s, args.mesh_format) + [f"outputs in {out}/", CAUTION])
+        verified = None
+        if args.verify or problem.report.verify:
+            ver = verify(result)
+            s = write_verification(ver, out, s)
+            verified = report.format_verification(ver.figures, out)
+            write_report(out)  # with the verified figures
+    lines = report.format_run(s, args.mesh_format) + (verified or [])
+    _say(lines + [f"outputs in {out}/", CAUTION])
     if s["stop_reason"].startswith("numerical fault"):
         print(f"error: {s['stop_reason']}", file=sys.stderr)
         return 1
-    if args.strict and s["checks_failed"]:
-        print(f"error: checks failed: {', '.join(s['checks_failed'])} (--strict)", file=sys.stderr)
+    failed = s["checks_failed"]
+    if args.strict and failed:
+        print(f"error: checks failed: {', '.join(failed)} (--strict)", file=sys.stderr)
         return 3
     return 0
 
@@ -219,9 +229,29 @@ def cmd_analyze(args, outputs: Outputs) -> int:
     out = Path(args.out) if args.out else Path("outputs") / f"{problem.name}-analysis"
     runfolder.check_target(out)
     result = analyze(problem, density)
+    outputs.folder = out
     with runfolder.OutputFolder(out):
         s = export(result, out, only=["problem.json", "summary.json"], mesh=False).summary
-    _say(report.format_analysis(s, args.design) + [f"summary in {out}/summary.json"])
+        verified = []
+        if args.verify:
+            # a design file is verified as printed; without one, the exact domain less voids
+            ver = verify(result, exact=args.design is None)
+            s = write_verification(ver, out, s)
+            verified = report.format_verification(ver.figures, out)
+    _say(report.format_analysis(s, args.design) + verified + [f"summary in {out}/summary.json"])
+    return 0
+
+
+def cmd_verify(args, outputs: Outputs) -> int:
+    result = load_run(args.run_dir)
+    outputs.folder = Path(args.run_dir)
+    ver = verify(result)
+    s = write_verification(ver, args.run_dir, result.summary or None)
+    lines = report.format_verification(ver.figures, args.run_dir)
+    _say(lines + (report.format_checks(s) if s else []))
+    if args.strict and s["checks_failed"]:
+        print(f"error: checks failed: {', '.join(s['checks_failed'])} (--strict)", file=sys.stderr)
+        return 3
     return 0
 
 
@@ -373,6 +403,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--out", help="output folder (default outputs/NAME)")
     p.add_argument("--quiet", action="store_true", help="no progress lines")
+    verify_option(p)
     mesh_options(p)
     p.set_defaults(func=cmd_run)
     p = sub.add_parser("check", help="build the model and print it, without solving")
@@ -383,6 +414,7 @@ def build_parser() -> argparse.ArgumentParser:
     common(p)
     p.add_argument("--design", help="density.npy of a design (default: the full domain)")
     p.add_argument("--out", help="output folder (default outputs/NAME-analysis)")
+    verify_option(p)
     p.set_defaults(func=cmd_analyze)
     p = sub.add_parser("sweep", help="run the cartesian product of values of one or more keys")
     common(p)
@@ -417,6 +449,10 @@ def build_parser() -> argparse.ArgumentParser:
         "--out", default="outputs/bench.json", help="JSON results (default outputs/bench.json)"
     )
     p.set_defaults(func=cmd_bench)
+    p = sub.add_parser("verify", help="body-fitted verification of a finished run's printed part")
+    p.add_argument("run_dir", help="a run folder written by `topo run`")
+    p.add_argument("--strict", action="store_true", help="exit with status 3 when any check fails")
+    p.set_defaults(func=cmd_verify)
     p = sub.add_parser("export", help="re-export the mesh and fields of a finished run")
     p.add_argument("run_dir", help="a run folder written by `topo run`")
     mesh_options(p, "--format")
@@ -425,6 +461,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("run_dir", help="a run folder written by `topo run`")
     p.set_defaults(func=cmd_report)
     return ap
+
+
+def verify_option(p) -> None:
+    p.add_argument(
+        "--verify",
+        action="store_true",
+        help="then verify with a body-fitted quadratic mesh (verify.json/.vtu/.png)",
+    )
 
 
 def mesh_options(p, format_flag: str = "--mesh-format") -> None:

@@ -177,6 +177,13 @@ class Checks:
 
 
 @dataclass(frozen=True)
+class Report:
+    """What is reported after a run."""
+
+    verify: bool = False  # body-fitted verification of the printed part
+
+
+@dataclass(frozen=True)
 class Problem:
     name: str
     description: str
@@ -193,6 +200,7 @@ class Problem:
     deflections: tuple[DeflectionPoint, ...] = ()
     checks: Checks = Checks()
     cost: CostRates = CostRates()
+    report: Report = Report()
 
     @property
     def dim(self) -> int:
@@ -341,6 +349,7 @@ class _Parser(Reader):
         self.unique([p.name for p in deflections], "deflection")
         checks = Checks(**self.read("checks", top["checks"] or {}, "checks", {}))
         cost = CostRates(**self.read("cost", top["cost"] or {}, "cost", {"dim": 2}))
+        report = Report(**self.read("report", top["report"] or {}, "report", {"dim": dim}))
         return Problem(
             top["name"],
             top["description"],
@@ -357,6 +366,7 @@ class _Parser(Reader):
             deflections,
             checks,
             cost,
+            report,
         )
 
     def unique(self, names: list[str], key: str, form=None, how: str = "") -> None:

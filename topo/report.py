@@ -25,6 +25,8 @@ PRINTED_NOTE = (
     "passive solid region whole, minus the void regions, re-analysed for every load case; "
     "the optimiser's figures of the grey density field are under 'optimizer'"
 )
+# where the headline stress comes from; `topo verify` replaces it (verification/figures.py)
+GRID_STRESS_SOURCE = "grid: element centres of the printed part (not converged at stress raisers)"
 NOTES = {
     "max_displacement_mm": "the largest nodal displacement magnitude (not along any direction)",
     "deflections": "mean displacement of the named nodes along the stated direction",
@@ -84,6 +86,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "load_cases": printed["load_cases"],
         "max_von_mises_MPa": printed["max_von_mises_MPa"],
         "safety_factor": printed["safety_factor"],
+        "stress_source": GRID_STRESS_SOURCE,
         "required_safety_factor": problem.checks.safety_factor,
         "deflections": figures["deflections"],
         "optimizer": grey,
@@ -434,4 +437,42 @@ def format_check(rep: dict) -> list[str]:
         f"  estimated memory {rep['memory_estimate_MB']} MB, "
         f"{rep['seconds_per_iteration_estimate']:.2g} s per iteration"
     )
+    return lines
+
+
+def format_verification(v: dict, folder) -> list[str]:
+    """The figures of a body-fitted verification (verify.json) for the console."""
+    fine = v["meshes"][-1]
+    lines = [
+        f"body-fitted verification of {v['geometry']}:",
+        f"  {v['analysis']}; finest mesh {fine['elements']} elements, "
+        f"{fine['free_dofs']} free dofs; {v['runtime_s']:.1f} s",
+    ]
+    for c in v["load_cases"]:
+        change = c["change_to_previous_mesh"]["max_von_mises"]
+        grid = c["verified_vs_grid"]["max_von_mises"]
+        where = ", ".join(f"{v:.2f}" for v in c["peak_location_mm"])
+        near = c["nearest_region"]
+        lines.append(
+            f"  {c['name']}: peak von Mises {_num(c['max_von_mises_MPa'])} MPa at "
+            f"({where}) mm, {near['distance_mm']:.2f} mm from {near['name']}"
+            + (
+                f" (also near {', '.join(near['within_one_element'][1:])})"
+                if len(near["within_one_element"]) > 1
+                else ""
+            )
+            + (f"; {100 * change:+.2f} % against the previous mesh" if change is not None else "")
+            + (
+                f"; {100 * grid:+.1f} % against the grid's {_num(c['grid']['max_von_mises_MPa'])}"
+                " MPa"
+                if grid is not None
+                else ""
+            )
+        )
+        lines.append(
+            f"    max displacement {_num(c['max_displacement_mm'])} mm, safety factor "
+            f"{_num(c['safety_factor'], '.3g')}"
+            + "".join(f", {k} {_num(d)} mm" for k, d in c["deflections_mm"].items())
+        )
+    lines.append(f"verify.json, verify.vtu, verify.png in {folder}/")
     return lines

@@ -155,6 +155,7 @@ SCHEMA: tuple[Section, ...] = (
             Key("deflection", TABLES, "deflections reported (and limited) at points", default=()),
             Key("checks", TABLE, "thresholds of the sign-off checks", default=None),
             Key("cost", TABLE, "rates of the cost estimates of `topo orient`", default=None),
+            Key("report", TABLE, "what is reported after a run", default=None),
         ),
     ),
     Section(
@@ -578,6 +579,19 @@ SCHEMA: tuple[Section, ...] = (
                 "parts the per-part figures are for",
                 default=10,
                 bounds="[1, inf)",
+            ),
+        ),
+    ),
+    Section(
+        "report",
+        "what is reported after a run (optional table)",
+        (
+            Key(
+                "verify",
+                BOOL,
+                "after the run, verify the printed part with a body-fitted analysis "
+                "(verify.json/.vtu/.png; the headline stress then comes from it)",
+                default=False,
             ),
         ),
     ),
