@@ -49,7 +49,7 @@ def test_report_is_well_formed_and_holds_the_summary_figures(tmp_path):
     parser.feed(text)
     parser.close()
     assert parser.stack == []  # every element closed
-    assert text.count("data:image/png;base64,") == 3  # design, stress and history embedded
+    assert text.count("data:image/png;base64,") == 4  # design, stress, deflection, history
     by_header = {tuple(t[0]): t[1:] for t in parser.tables}
     checks = by_header[("status", "check", "value", "limit", "what was checked")]
     assert [(r[0], r[1], r[2]) for r in checks] == [
@@ -83,7 +83,7 @@ def test_pictures_are_made_for_2d_and_3d_designs(tmp_path):
         ]
         out = tmp_path / f"d{dim}"
         export(optimize(problem_from_dict(d)), out)
-        for name in ("design.png", "stress.png", "history.png"):
+        for name in ("design.png", "stress.png", "deflection.png", "history.png"):
             data = (out / name).read_bytes()
             assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 10_000, (dim, name)
         assert "data:image/png;base64," in (out / "report.html").read_text()

@@ -247,6 +247,8 @@ def cmd_verify(args, outputs: Outputs) -> int:
     outputs.folder = Path(args.run_dir)
     ver = verify(result)
     s = write_verification(ver, args.run_dir, result.summary or None)
+    if s:
+        write_report(args.run_dir)  # the review document with the verified figures
     lines = report.format_verification(ver.figures, args.run_dir)
     _say(lines + (report.format_checks(s) if s else []))
     if args.strict and s["checks_failed"]:

@@ -18,7 +18,7 @@ import numpy as np
 
 from . import mesh as meshing
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
-from .pictures import design_figure, stress_figure
+from .pictures import deflection_figure, design_figure, stress_figure
 from .problem import field_name
 from .report import design_surface, run_summary
 from .review import build_report
@@ -102,6 +102,12 @@ def write_stress_png(result, path: Path) -> None:
     write_figure(path, stress_figure(result, surface))
 
 
+def write_deflection_png(result, path: Path) -> None:
+    """How far the printed part moves, the largest marked (pictures.py)."""
+    surface = design_surface(result) if result.density.ndim == 3 else None
+    write_figure(path, deflection_figure(result, surface))
+
+
 def write_problem(result, path: Path) -> None:
     """The resolved problem (overrides applied), so a run folder can be re-read."""
     write_text(path, strict_json(result.problem.raw))
@@ -168,6 +174,7 @@ EXPORTERS: dict[str, Callable] = {
     "history.png": write_history_png,
     "design.png": write_design_png,
     "stress.png": write_stress_png,
+    "deflection.png": write_deflection_png,
     "fields.vtu": write_fields,
 }
 SUMMARY = "summary.json"

@@ -162,25 +162,17 @@ def design_figure(result, surface):
     return _figure_2d(result) if result.density.ndim == 2 else _figure_3d(result, surface)
 
 
-def stress_figure(result, surface):
-    """stress.png: the printed part's von Mises stress (largest over the load cases)
-    at element centres, MPa, with the peak marked; 3D on the design mesh, each
-    triangle coloured by the element it lies in."""
+def _field_figure(result, surface, values: np.ndarray, label: str, title: str):
+    """A per-element field of the printed part (NaN where nothing is printed), its
+    peak marked: an image in 2D, the design mesh coloured in 3D."""
     plt = pyplot()
-    problem, model = result.problem, result.model
-    grid = model.grid
-    printed = result.printed.density.ravel() > 0.5
-    vm = np.where(printed, result.printed.analysis.von_mises.max(axis=1), np.nan)
-    peak = int(np.nanargmax(vm)) if printed.any() else None
-    title = (
-        f"{problem.name}: von Mises stress of the printed part at element centres, MPa "
-        f"(largest over the load cases)"
-    )
+    grid = result.model.grid
+    peak = int(np.nanargmax(values)) if np.isfinite(values).any() else None
     if grid.dim == 2:
         size = grid.size
         fig, ax = plt.subplots(figsize=(7.5, 7.5 * size[1] / size[0] + 1.0))
         image = ax.imshow(
-            vm.reshape(grid.shape).T,
+            values.reshape(grid.shape).T,
             origin="lower",
             cmap="viridis",
             extent=(0, size[0], 0, size[1]),
@@ -198,12 +190,11 @@ def stress_figure(result, surface):
         normals /= np.maximum(np.linalg.norm(normals, axis=1, keepdims=True), 1e-12)
         inside = tri.mean(axis=1) - 0.5 * grid.h * normals
         cells = np.clip((inside / grid.h).astype(int), 0, np.array(grid.shape) - 1)
-        index = np.ravel_multi_index(cells.T, grid.shape)
-        values = np.nan_to_num(vm[index], nan=0.0)
-        norm = plt.Normalize(0.0, np.nanmax(vm) if peak is not None else 1.0)
+        shown = np.nan_to_num(values[np.ravel_multi_index(cells.T, grid.shape)], nan=0.0)
+        norm = plt.Normalize(0.0, values[peak] if peak is not None else 1.0)
         fig = plt.figure(figsize=(8, 6))
         ax = fig.add_subplot(projection="3d")
-        colors = plt.get_cmap("viridis")(norm(values))
+        colors = plt.get_cmap("viridis")(norm(shown))
         ax.add_collection3d(
             Poly3DCollection(tri, facecolors=colors, edgecolors=colors, linewidths=0.2)
         )
@@ -213,12 +204,44 @@ def stress_figure(result, surface):
         ax.set_box_aspect(grid.size)
         ax.view_init(25, -60)
         image = plt.cm.ScalarMappable(norm=norm, cmap="viridis")
-    fig.colorbar(image, ax=ax, shrink=0.7, label="von Mises (MPa)")
+    fig.colorbar(image, ax=ax, shrink=0.7, label=label)
     if peak is not None:
         centre = grid.element_centers[peak]
-        ax.plot(*[[c] for c in centre], "r*", ms=12, label=f"peak {vm[peak]:.4g} MPa")
+        ax.plot(*[[c] for c in centre], "r*", ms=12, label=f"peak {values[peak]:.4g}")
         ax.legend(loc="upper right", fontsize=8)
-    ax.set_title(
-        title + "\nstepped grid: peaks at holes, corners and loads are not converged", fontsize=8
-    )
+    ax.set_title(f"{result.problem.name}: {title}", fontsize=8)
     return fig
+
+
+def stress_figure(result, surface):
+    """stress.png: the printed part's von Mises stress (largest over the load cases)
+    at element centres, MPa, with the peak marked."""
+    printed = result.printed.density.ravel() > 0.5
+    vm = np.where(printed, result.printed.analysis.von_mises.max(axis=1), np.nan)
+    return _field_figure(
+        result,
+        surface,
+        vm,
+        "von Mises (MPa)",
+        "von Mises stress of the printed part at element centres, MPa (largest "
+        "over the load cases)\nstepped grid: peaks at holes, corners and loads "
+        "are not converged",
+    )
+
+
+def deflection_figure(result, surface):
+    """deflection.png: how far the printed part moves (displacement magnitude, mm,
+    the mean of each element's corners, largest over the load cases)."""
+    model = result.model
+    u = result.printed.analysis.displacements.reshape(model.grid.n_nodes, model.dim, -1)
+    magnitude = np.linalg.norm(u, axis=1)  # (nodes, cases)
+    per_element = magnitude[model.grid.element_nodes].mean(axis=1).max(axis=1)
+    printed = result.printed.density.ravel() > 0.5
+    moved = np.where(printed, per_element, np.nan)
+    return _field_figure(
+        result,
+        surface,
+        moved,
+        "displacement magnitude (mm)",
+        "displacement of the printed part, mm (largest over the load cases)",
+    )

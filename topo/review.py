@@ -18,6 +18,8 @@ from pathlib import Path
 PICTURES = (
     ("design.png", "The design"),
     ("stress.png", "Stress of the printed part"),
+    ("deflection.png", "Displacement of the printed part"),
+    ("verify.png", "Body-fitted verification"),
     ("history.png", "Convergence"),
 )
 STYLE = """
@@ -143,6 +145,7 @@ def _figures_section(s: dict) -> str:
         "<h2>The printed part</h2>",
         f"<p>{_e(s['figures_of'])}.</p>",
         table(["figure", "printed part", "optimiser (grey)"], rows),
+        f"<p>Peak stress and safety factor from: {_e(s.get('stress_source', 'the grid'))}.</p>",
         table(
             [
                 "load case",
