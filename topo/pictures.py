@@ -127,6 +127,9 @@ def _figure_3d(result, surface):
             Poly3DCollection(tri, facecolors=colors, edgecolors=colors, linewidths=0.2)
         )
         ax.scatter(*fixed.T, s=2, color="tab:green", label="supports")
+        for mask, color in ((model.void, "tab:red"), (model.solid, "tab:blue")):
+            if mask.any():  # keep-out regions red, interfaces blue: their element centres
+                ax.scatter(*model.grid.element_centers[mask].T, s=1, color=color, alpha=0.25)
         for _, _, centre, total in forces:
             ax.quiver(*(centre - scale * total), *(scale * total), color="tab:orange", lw=2)
         if problem.build is not None:
@@ -151,7 +154,7 @@ def _figure_3d(result, surface):
     loads = ", ".join(f"{name} {np.linalg.norm(t):.4g} N" for _, name, _, t in forces)
     fig.suptitle(
         f"{problem.name}: the design mesh; supports green, loads orange ({loads}), "
-        f"arrow length ∝ force{build}",
+        f"arrow length ∝ force; interfaces blue, keep-out red{build}",
         fontsize=10,
     )
     return fig
