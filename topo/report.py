@@ -96,6 +96,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "enclosed_cavities": figures["enclosed_cavities"],
         "min_wall_mm": figures["min_wall_mm"],
         "min_gap_mm": figures["min_gap_mm"],
+        "fatigue": figures["fatigue"],
         "stress_limit_MPa": problem.optimization.stress_limit,
         "notes": NOTES,
         "iterations": len(result.history),
