@@ -94,7 +94,7 @@ def evaluate(cond: Condition, cases, von_mises: np.ndarray) -> dict:
     """Per-element fatigue of the cases with cycles; von_mises is (n, n_cases) over
     the printed elements. Returns arrays: safety factor per case and damage sum."""
     ultimate = cond.ultimate
-    factors, lives, amps, means, strengths = [], [], [], [], [], []
+    factors, lives, amps, means, strengths = [], [], [], [], []
     for i, case in cases:
         amp, mean = amplitude_and_mean(von_mises[:, i], case.load_ratio)
         strength = sn_strength(cond, case.cycles)
