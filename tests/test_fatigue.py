@@ -56,6 +56,8 @@ def test_goodman_against_a_hand_calculation():
     assert float(goodman_safety_factor(80.0, 150.0, 200.0, 600.0)) == pytest.approx(1 / 0.65)
     assert float(goodman_equivalent(80.0, 150.0, 600.0)) == pytest.approx(106.6667, rel=1e-5)
     assert np.isinf(goodman_equivalent(80.0, 600.0, 600.0))  # a mean at the ultimate
+    # which fails in the first reversal: half a cycle, a finite damage
+    assert float(sn_life(machined(1000.0, -0.1), goodman_equivalent(80.0, 600.0, 600.0))) == 0.5
 
 
 def test_load_ratio_splits_the_peak():

@@ -55,6 +55,9 @@ def sn_life(cond: Condition, amplitude):
     a = np.asarray(amplitude, dtype=float) / cond.surface_knockdown
     with np.errstate(divide="ignore", over="ignore"):
         life = 0.5 * (a / cond.fatigue_strength_coefficient) ** (1 / cond.fatigue_strength_exponent)
+    # at or beyond σf' (or a mean at the ultimate) the part fails in its first
+    # reversal: half a cycle, which keeps the damage sum finite
+    life = np.maximum(np.nan_to_num(life, nan=0.5), 0.5)
     if cond.endurance_limit is not None:
         life = np.where(a <= cond.endurance_limit, np.inf, life)
     return np.where(a <= 0, np.inf, life)
