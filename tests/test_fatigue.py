@@ -21,6 +21,7 @@ from topo.fatigue import (
 )
 from topo.materials import PRESETS
 from topo.problem import ProblemError, problem_from_dict
+from topo.report import format_fatigue
 
 
 def machined(sf: float, b: float, endurance=None) -> Condition:
@@ -228,3 +229,12 @@ def test_condition_errors_reach_the_problem_error():
     with pytest.raises(ProblemError) as err:
         problem_from_dict(d)
     assert err.value.key == "material.ultimate_strength"
+
+
+def test_console_lines_show_the_fatigue_figures_and_the_comparison():
+    result = analyze(cantilever(cycles=2e6, load_ratio=0.0))
+    lines = format_fatigue(result.summary)
+    assert lines[0].startswith("  fatigue (Ti-6Al-4V, hip, machined surface")
+    assert "2e+06 cycles at R = 0" in lines[1]
+    assert len(lines) == 2 + 1 + 6  # headline, one case, the table's title and rows
+    assert format_fatigue({"fatigue": None}) == []
