@@ -29,6 +29,10 @@ def good() -> SignOffFigures:
         wall_limit=0.8,
         gap_limit=2.0,
         element_size=0.5,
+        fatigue_safety_factor=1.4,
+        required_fatigue_safety_factor=1.2,
+        fatigue_damage=0.3,
+        fatigue_cycles=True,
     )
 
 
@@ -64,6 +68,8 @@ def test_a_sound_design_passes_every_check():
         ("enclosed_cavities", {"cavities": [{"volume_mm3": 8.0, "centre_mm": [1.0, 2.0, 3.0]}]}),
         ("min_wall", {"min_wall_mm": 0.5}),
         ("min_gap", {"min_gap_mm": 1.5}),
+        ("fatigue_safety_factor", {"fatigue_safety_factor": 1.19}),
+        ("fatigue_damage", {"fatigue_damage": 1.0}),
     ],
 )
 def test_each_check_fails_on_its_own_fault(name, change):
@@ -86,6 +92,8 @@ def test_each_check_fails_on_its_own_fault(name, change):
             {"deflections": [{"name": "tip", "load_case": "a", "value_mm": 5.0, "limit_mm": None}]},
         ),
         ("unsupported_fraction", {"unsupported_fraction": None}),
+        ("fatigue_safety_factor", {"fatigue_cycles": False, "fatigue_safety_factor": None}),
+        ("fatigue_damage", {"fatigue_cycles": False, "fatigue_damage": None}),
     ],
 )
 def test_checks_without_a_limit_say_not_applicable(name, change):
@@ -97,6 +105,8 @@ def test_boundaries_pass():
         replace(
             good(),
             safety_factor=1.5,
+            fatigue_safety_factor=1.2,
+            fatigue_damage=0.999,
             compliance_gaps={"a": 0.05},
             mass_kg=1.2,
             deflections=[{"name": "t", "load_case": "a", "value_mm": 1.0, "limit_mm": 1.0}],

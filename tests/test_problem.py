@@ -149,7 +149,8 @@ def full_problem():
     """The beam with a build table and one passive region of each table form, so
     that every declared scalar key has a place in it."""
     d = beam_problem()
-    d["material"] = {"preset": "316L"}
+    d["material"] = {"preset": "316L", "condition": "hip", "surface": "machined"}
+    d["load_case"][0].update(cycles=1e6, load_ratio=0.1)
     d["build"] = {"direction": "+y"}
     d["passive"] = [
         {"kind": "void", "region": {"box": {"min": [8.0, 1.0], "max": [10.0, 3.0]}}},
@@ -157,7 +158,7 @@ def full_problem():
         {"kind": "solid", "region": {"sphere": {"center": [18.0, 2.0], "radius": 1.0}}},
     ]
     d["deflection"] = [{"region": {"point": [20.0, 2.5]}, "direction": "-y", "limit": 1.0}]
-    d["checks"] = {"safety_factor": 1.5}
+    d["checks"] = {"safety_factor": 1.5, "fatigue_safety_factor": 1.2}
     d["cost"] = {"batch": 20}
     d["report"] = {"verify": False}
     return d
@@ -247,6 +248,10 @@ PARTNERS = {
         "material.youngs_modulus": 1000.0,
         "material.poissons_ratio": 0.3,
         "material.density": 1000.0,
+        # with cycles, a material without fatigue data gives its S-N values
+        "material.ultimate_strength": 500.0,
+        "material.fatigue_strength_coefficient": 900.0,
+        "material.fatigue_strength_exponent": -0.1,
     },
 }
 

@@ -39,6 +39,10 @@ class SignOffFigures:
     wall_limit: float | None = None  # the machine's rule
     gap_limit: float | None = None
     element_size: float = 1.0
+    fatigue_safety_factor: float | None = None  # None: no load case gives cycles
+    required_fatigue_safety_factor: float = 1.0
+    fatigue_damage: float | None = None  # Miner's sum at the worst element
+    fatigue_cycles: bool = False  # some load case gives a design life
 
 
 def _row(name: str, ok: bool | None, value, limit, detail: str) -> dict:
@@ -129,6 +133,40 @@ def safety_factor(f: SignOffFigures) -> dict:
         "yield strength over the peak von Mises stress of the printed part at element "
         "centres; weak at holes, fillets, supports and point loads, where the grid's stepped "
         "surface under- or over-states the peak: verify with a body-fitted analysis",
+    )
+
+
+def fatigue_safety_factor(f: SignOffFigures) -> dict:
+    if not f.fatigue_cycles:
+        return _row(
+            "fatigue_safety_factor",
+            None,
+            None,
+            f.required_fatigue_safety_factor,
+            "no load case gives cycles",
+        )
+    value = f.fatigue_safety_factor  # None: no stress at all, unbounded
+    ok = value is None or value >= f.required_fatigue_safety_factor
+    return _row(
+        "fatigue_safety_factor",
+        ok,
+        value,
+        f.required_fatigue_safety_factor,
+        "Goodman safety factor on stress amplitude at the design life, least over the "
+        "printed elements and load cases; indicative (defects and surface govern printed-"
+        "metal fatigue)",
+    )
+
+
+def fatigue_damage(f: SignOffFigures) -> dict:
+    if not f.fatigue_cycles or f.fatigue_damage is None:
+        return _row("fatigue_damage", None, None, 1.0, "no load case gives cycles")
+    return _row(
+        "fatigue_damage",
+        f.fatigue_damage < 1.0,
+        f.fatigue_damage,
+        1.0,
+        "Miner's damage sum of the load cases' design lives at the worst printed element",
     )
 
 
@@ -226,6 +264,8 @@ CHECKS = (
     interfaces_whole,
     compliance_gap,
     safety_factor,
+    fatigue_safety_factor,
+    fatigue_damage,
     stress_limit,
     mass_limit,
     deflection_limits,

@@ -19,6 +19,16 @@ class Material:
     poissons_ratio: float
     density: float  # kg/m³
     yield_strength: float | None = None  # MPa
+    # fatigue: the build condition and surface (conditions.py), values given in place
+    # of the condition's
+    condition: str = "as-built"
+    surface: str = "as-built"
+    ultimate_strength: float | None = None  # MPa
+    fatigue_strength_coefficient: float | None = None  # MPa
+    fatigue_strength_exponent: float | None = None
+    endurance_limit: float | None = None  # MPa
+    surface_factor: float | None = None
+    preset: str | None = None  # the preset the values came from, if any
 
     def lame(self) -> tuple[float, float]:
         """Lamé constants (λ, μ) of the solid material."""

@@ -24,8 +24,9 @@ from typing import Any
 
 import tomllib
 
+from .conditions import ConditionError, condition_of
 from .cost import CostRates
-from .materials import Material
+from .materials import Material, find_preset
 from .schema import SECTIONS, Reader
 
 MAX_ELEMENTS = 20_000_000  # far above what fits in memory on a workstation
@@ -147,6 +148,8 @@ class LoadCase:
     name: str
     weight: float
     forces: tuple[Force, ...]
+    cycles: float | None = None  # design life; None: no fatigue figures
+    load_ratio: float = -1.0  # R = σmin/σmax; -1 fully reversed
 
 
 @dataclass(frozen=True)
@@ -170,6 +173,7 @@ class Checks:
     """Thresholds of the PASS/FAIL checks on the printed part."""
 
     safety_factor: float = 1.0
+    fatigue_safety_factor: float = 1.0
     compliance_gap: float = 0.05
     unsupported_fraction: float = 0.0
     min_wall: float | None = None  # mm
@@ -337,6 +341,11 @@ class _Parser(Reader):
         self.unique([s.name for s in supports], "support")
         self.unique([c.name for c in loads], "load_case")
         self.unique([c.name for c in loads], "load_case", field_name, "as field names")
+        if any(c.cycles is not None for c in loads):
+            try:
+                condition_of(material)
+            except ConditionError as exc:
+                self.fail(exc.key, exc.message)
         passives = tuple(
             self.passive(p, f"passive[{i}]", dim) for i, p in enumerate(top["passive"])
         )
@@ -410,8 +419,8 @@ class _Parser(Reader):
 
     def material(self, value) -> Material:
         got = self.read("material", value, "material", {})
-        del got["preset"]  # its values are the defaults of the others
-        return Material(**got)
+        preset = got.pop("preset")  # its values are the defaults of the others
+        return Material(**got, preset=find_preset(preset).name if preset else None)
 
     def optimization(self, value, domain: Domain) -> Optimization:
         got = self.read(
@@ -497,7 +506,7 @@ class _Parser(Reader):
             forces.append(Force(self.region(force["region"], f"{fk}.region", dim), force["total"]))
         if all(not any(f.total) for f in forces):
             self.fail(f"{key}.force", "the load case has zero total force")
-        return LoadCase(got["name"], got["weight"], tuple(forces))
+        return LoadCase(got["name"], got["weight"], tuple(forces), got["cycles"], got["load_ratio"])
 
     def deflection(
         self, d: dict, key: str, dim: int, cases: list[str], optimizer: str

@@ -96,6 +96,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "enclosed_cavities": figures["enclosed_cavities"],
         "min_wall_mm": figures["min_wall_mm"],
         "min_gap_mm": figures["min_gap_mm"],
+        "fatigue": figures["fatigue"],
         "stress_limit_MPa": problem.optimization.stress_limit,
         "notes": NOTES,
         "iterations": len(result.history),
@@ -315,6 +316,35 @@ def format_cases(summary: dict) -> list[str]:
     return lines
 
 
+def format_fatigue(summary: dict) -> list[str]:
+    """The fatigue figures and the table of conditions and surfaces, when load cases
+    give cycles (summaries written before fatigue have no block)."""
+    f = summary.get("fatigue")
+    if not f:
+        return []
+    where = ", ".join(f"{v:g}" for v in f["weakest_location_mm"])
+    lines = [
+        f"  fatigue ({f['material']['alloy']}, {f['condition']}, {f['surface']} surface; "
+        f"Goodman, Miner; {f['caution'].split(':')[0]}): safety factor "
+        f"{_num(f['safety_factor'], '.3g')} ({f['governing_load_case']}, at ({where}) mm), "
+        f"damage {_num(f['damage'], '.3g')}"
+    ]
+    for c in f["load_cases"]:
+        lines.append(
+            f"    {c['name']}: {c['cycles']:.3g} cycles at R = {c['load_ratio']:g}, amplitude "
+            f"{_num(c['amplitude_at_weakest_MPa'])} MPa, mean {_num(c['mean_at_weakest_MPa'])} "
+            f"MPa, strength at life {_num(c['strength_at_life_MPa'])} MPa, life "
+            f"{_num(c['life_at_weakest_cycles'], '.3g')} cycles"
+        )
+    lines.append("    the same design by condition and surface (safety factor, damage):")
+    for r in f["comparison"]:
+        lines.append(
+            f"      {r['condition']:<13} {r['surface']:<9} {_num(r['safety_factor'], '.3g'):>7}"
+            f"  {_num(r['damage'], '.3g')}"
+        )
+    return lines
+
+
 def format_checks(summary: dict) -> list[str]:
     """The PASS/FAIL table and a closing verdict."""
     rows = summary["checks"]
@@ -355,7 +385,7 @@ def format_run(s: dict, mesh_format: str) -> list[str]:
         f"mass {_num(grey['mass_kg'])} kg, compliance {_num(grey['compliance_Nmm'], '.6g')} N·mm"
         + (f" ({100 * gap:+.1f} %)" if gap is not None else ""),
     ]
-    lines += format_cases(s)
+    lines += format_cases(s) + format_fatigue(s)
     if s["build_direction"]:
         lines.append(
             f"  unsupported fraction {_num(s['unsupported_fraction'], '.4f')} "
@@ -388,6 +418,7 @@ def format_analysis(s: dict, design: str | None) -> list[str]:
             f"  compliance {_num(s['compliance_Nmm'], '.6g')} N·mm, mass {_num(s['mass_kg'])} kg",
         ]
         + format_cases(s)
+        + format_fatigue(s)
         + format_checks(s)
     )
 

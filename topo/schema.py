@@ -15,6 +15,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
+from .conditions import CONDITIONS, SURFACES
 from .materials import PRESETS, find_preset
 
 AXES = ("x", "y", "z")
@@ -241,6 +242,61 @@ SCHEMA: tuple[Section, ...] = (
                 _from_preset("yield_strength", None),
                 _POSITIVE,
             ),
+            Key(
+                "condition",
+                STRING,
+                "build condition whose strengths and S-N data the fatigue figures use",
+                default="as-built",
+                choices=CONDITIONS,
+            ),
+            Key(
+                "surface",
+                STRING,
+                "surface of the part: as printed, or machined (scales the S-N curve)",
+                default="as-built",
+                choices=SURFACES,
+            ),
+            Key(
+                "ultimate_strength",
+                NUMBER,
+                "ultimate tensile strength for the Goodman correction (default: the condition's)",
+                "MPa",
+                None,
+                _POSITIVE,
+            ),
+            Key(
+                "fatigue_strength_coefficient",
+                NUMBER,
+                "Basquin σf' of the machined S-N curve, σa = σf' (2N)^b (default: the condition's)",
+                "MPa",
+                None,
+                _POSITIVE,
+            ),
+            Key(
+                "fatigue_strength_exponent",
+                NUMBER,
+                "Basquin exponent b (default: the condition's)",
+                "",
+                None,
+                "(-1, 0)",
+                why="the S-N curve must decrease with life, and b below -1 is no metal's",
+            ),
+            Key(
+                "endurance_limit",
+                NUMBER,
+                "stress amplitude of unbounded life, machined surface (default: the condition's)",
+                "MPa",
+                None,
+                _POSITIVE,
+            ),
+            Key(
+                "surface_factor",
+                NUMBER,
+                "as-built over machined fatigue strength (default: the condition's)",
+                "",
+                None,
+                "(0, 1]",
+            ),
         ),
     ),
     Section(
@@ -421,6 +477,22 @@ SCHEMA: tuple[Section, ...] = (
                 "weight", NUMBER, "weight in the weighted compliance", default=1.0, bounds=_POSITIVE
             ),
             Key(
+                "cycles",
+                NUMBER,
+                "design life in load cycles; gives the case's fatigue figures",
+                "cycles",
+                None,
+                _POSITIVE,
+            ),
+            Key(
+                "load_ratio",
+                NUMBER,
+                "R = minimum over maximum stress of a cycle; -1 is fully reversed",
+                "",
+                -1.0,
+                "[-1, 1)",
+            ),
+            Key(
                 "force",
                 TABLES,
                 "the forces, at least one",
@@ -494,6 +566,13 @@ SCHEMA: tuple[Section, ...] = (
                 "safety_factor",
                 NUMBER,
                 "required yield strength over peak von Mises stress of the printed part",
+                default=1.0,
+                bounds=_POSITIVE,
+            ),
+            Key(
+                "fatigue_safety_factor",
+                NUMBER,
+                "required fatigue safety factor on stress amplitude at the design life",
                 default=1.0,
                 bounds=_POSITIVE,
             ),

@@ -14,6 +14,7 @@ import numpy as np
 
 from .checks import SignOffFigures, run_checks
 from .deflection import deflections
+from .fatigue import assess
 from .integrity import enclosed_cavities, load_path
 from .lengthscale import minimum_wall_and_gap
 from .printability import SOLID, support_needed, unsupported_fraction
@@ -126,6 +127,7 @@ def sign_off(result) -> dict:
         for p in probes
         for i in p.cases
     ]
+    fatigue = assess(problem, grid.element_centers, part.analysis.von_mises, solid)
     opt = problem.optimization
     figures = SignOffFigures(
         load_path_connected=path.connected,
@@ -149,6 +151,10 @@ def sign_off(result) -> dict:
         wall_limit=requirements.min_wall,
         gap_limit=requirements.min_gap,
         element_size=dom.element_size,
+        fatigue_safety_factor=fatigue["safety_factor"] if fatigue else None,
+        required_fatigue_safety_factor=requirements.fatigue_safety_factor,
+        fatigue_damage=fatigue["damage"] if fatigue else None,
+        fatigue_cycles=fatigue is not None,
     )
     return {
         "printed": printed,
@@ -170,5 +176,6 @@ def sign_off(result) -> dict:
         "unsupported_fraction": unsupported,
         "min_wall_mm": wall,
         "min_gap_mm": gap,
+        "fatigue": fatigue,
         "checks": run_checks(figures),
     }
