@@ -12,6 +12,7 @@ import numpy as np
 
 from .elements import centre_strain_displacement, elasticity_matrix, element_stiffness, von_mises
 from .grid import Grid
+from .loads import LoadError, rigid_distribution
 from .problem import Problem, ProblemError
 from .regions import outside_domain, select_elements, select_nodes
 from .solvers import make_system
@@ -156,8 +157,15 @@ class Model:
                         f"{key}.region",
                         "the load lies inside a void (keep-out) region: no material carries it",
                     )
-                for axis, total in enumerate(force.total):
-                    np.add.at(f[:, c], self.dim * nodes + axis, total / len(nodes))
+                try:
+                    nodal = rigid_distribution(
+                        self.grid.node_coords[nodes], force.total, force.moment, force.at
+                    )
+                except LoadError as exc:
+                    what = "moment" if force.moment is not None else "at"
+                    raise ProblemError(self.problem.source, f"{key}.{what}", str(exc)) from None
+                for axis in range(self.dim):
+                    np.add.at(f[:, c], self.dim * nodes + axis, nodal[:, axis])
         return f
 
     def _passives(self) -> tuple[np.ndarray, np.ndarray]:

@@ -140,6 +140,8 @@ class Support:
 class Force:
     region: Region
     total: tuple[float, ...]  # N, shared evenly by the selected nodes
+    at: tuple[float, ...] | None = None  # mm, point of application (None: the centroid)
+    moment: tuple[float, ...] | None = None  # N·mm about `at`; 2D: (Mz,)
 
 
 @dataclass(frozen=True)
@@ -494,9 +496,10 @@ class _Parser(Reader):
         for i, f in enumerate(got["force"]):
             fk = f"{key}.force[{i}]"
             force = self.read("load_case.force", f, fk, {"dim": dim})
-            forces.append(Force(self.region(force["region"], f"{fk}.region", dim), force["total"]))
-        if all(not any(f.total) for f in forces):
-            self.fail(f"{key}.force", "the load case has zero total force")
+            region = self.region(force["region"], f"{fk}.region", dim)
+            forces.append(Force(region, force["total"], force["at"], force["moment"]))
+        if all(not any(f.total) and not any(f.moment or ()) for f in forces):
+            self.fail(f"{key}.force", "the load case has zero total force and moment")
         return LoadCase(got["name"], got["weight"], tuple(forces))
 
     def deflection(
