@@ -14,7 +14,7 @@ from .elements import centre_strain_displacement, elasticity_matrix, element_sti
 from .grid import Grid
 from .loads import LoadError, rigid_distribution
 from .problem import Problem, ProblemError
-from .regions import outside_domain, select_elements, select_nodes
+from .regions import mesh_fault, outside_domain, select_elements, select_nodes
 from .solvers import make_system
 from .timing import Timer
 
@@ -74,6 +74,7 @@ class Model:
     # ------------------------------------------------------------------ problem → sets
     def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
         src = self.problem.source
+        self._check_mesh(region, key)
         if outside_domain(region, self.grid):
             raise ProblemError(
                 src,
@@ -89,6 +90,11 @@ class Model:
             )
         self.selections.append(Selection(key, role, name, len(nodes), 0))
         return nodes
+
+    def _check_mesh(self, region, key: str) -> None:
+        fault = mesh_fault(region, self.grid)
+        if fault:
+            raise ProblemError(self.problem.source, f"{key}.region.mesh", fault)
 
     def _supports(self) -> np.ndarray:
         fixed = np.zeros(self.grid.n_dofs, dtype=bool)
@@ -175,6 +181,7 @@ class Model:
         src = self.problem.source
         for i, p in enumerate(self.problem.passives):
             key = f"passive[{i}]"
+            self._check_mesh(p.region, key)
             if outside_domain(p.region, self.grid):
                 raise ProblemError(src, f"{key}.region", "the region lies outside the domain")
             elems = select_elements(p.region, self.grid)

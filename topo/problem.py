@@ -76,7 +76,12 @@ class Point:
     point: tuple[float, ...]
 
 
-Region = Box | Cylinder | Sphere | Face | Point
+@dataclass(frozen=True)
+class Mesh:
+    path: str  # a closed surface file, resolved against the problem file's folder
+
+
+Region = Box | Cylinder | Sphere | Face | Point | Mesh
 
 
 @dataclass(frozen=True)
@@ -473,6 +478,8 @@ class _Parser(Reader):
         spec = self.read("region", value, key, {"dim": dim}, (form,))[form]
         if spec is None:  # `box = null` from JSON or Python
             self.fail(f"{key}.{form}", "missing")
+        if form == "mesh":
+            return self.mesh(spec, f"{key}.mesh")
         if form in ("face", "point"):
             return Face(spec) if form == "face" else Point(spec)
         if form == "cylinder" and dim == 2:
@@ -485,6 +492,17 @@ class _Parser(Reader):
                     self.fail(f"{k}.min[{i}]", f"min {got['min'][i]} is above max {got['max'][i]}")
             return Box(**got)
         return Cylinder(**got) if form == "cylinder" else Sphere(**got)
+
+    def mesh(self, name: str, key: str) -> Mesh:
+        from .surfaces import SurfaceError, load_surface
+
+        folder = Path(self.source).parent if not self.source.startswith("<") else Path.cwd()
+        path = folder / name
+        try:
+            load_surface(str(path))  # read and checked once here; cached for the regions
+        except SurfaceError as exc:
+            self.fail(key, str(exc))
+        return Mesh(str(path))
 
     def support(self, d: dict, key: str, dim: int) -> Support:
         got = self.read("support", d, key, {"dim": dim})

@@ -630,6 +630,14 @@ SCHEMA: tuple[Section, ...] = (
                 choices=lambda dim: FACES[: 2 * dim],
             ),
             Key("point", VECTOR, "the node nearest this point", "mm", None),
+            Key(
+                "mesh",
+                STRING,
+                "closed surface file (STL, OBJ or PLY, mm), relative to the problem file: "
+                "elements whose centres lie inside, nodes inside or on it",
+                default=None,
+                dims=(3,),
+            ),
         ),
     ),
     Section(

@@ -1,0 +1,139 @@
+"""Regions from closed surface meshes (topo/surfaces.py, region `mesh`)."""
+
+import numpy as np
+import pytest
+import trimesh
+
+from problems import beam_problem, l_prism, write_stl
+from topo.fem import Model
+from topo.problem import ProblemError, load_problem, problem_from_dict
+from topo.surfaces import SurfaceError, inside, load_surface, winding_numbers
+
+
+def test_the_l_prism_is_a_closed_non_convex_solid():
+    # trimesh, independently: watertight, outward, volume of the L (10·3 + 3·5)·5
+    v, f, _ = l_prism()
+    mesh = trimesh.Trimesh(v, f, process=False)
+    assert mesh.is_watertight and mesh.is_winding_consistent
+    assert np.isclose(mesh.volume, (30 + 15) * 5) and not mesh.is_convex
+
+
+def test_inside_test_against_the_exact_l_and_trimesh_volume(rng):
+    # trimesh's own contains() needs rtree, which is not installed; the L's exact
+    # membership is the reference, and the share of random points found inside
+    # must match trimesh's volume over the box's.
+    v, f, exact = l_prism(corner=(1.0, 2.0, 0.5), scale=1.5)
+    pts = rng.uniform(0.0, 17.0, (4000, 3))
+    got = inside(pts, v, f, on=False)
+    assert np.array_equal(got, exact(pts))
+    lo, hi = v.min(axis=0), v.max(axis=0)
+    box = np.all((pts >= lo) & (pts <= hi), axis=1)
+    share = got[box].mean()
+    volume = trimesh.Trimesh(v, f, process=False).volume
+    assert abs(share - volume / np.prod(hi - lo)) < 0.03  # 4000-point sampling error
+    # reversed orientation: the same points (the winding number is −1 inside)
+    assert np.array_equal(inside(pts, v, f[:, ::-1], on=False), got)
+
+
+def test_winding_number_is_one_half_on_a_face_and_whole_elsewhere():
+    v, f, _ = l_prism()
+    w = winding_numbers(np.array([[1.0, 1.0, 2.5], [20.0, 1.0, 1.0], [5.0, 1.5, 0.0]]), v, f)
+    assert np.allclose(w, [1.0, 0.0, 0.5], atol=1e-12)
+
+
+def test_bad_surfaces_are_refused(tmp_path):
+    v, f, _ = l_prism()
+    with pytest.raises(SurfaceError, match="no such file"):
+        load_surface(str(tmp_path / "missing.stl"))
+    with pytest.raises(SurfaceError, match="holes"):
+        load_surface(str(write_stl(tmp_path / "open.stl", v, f[1:])))
+    bad = f.copy()
+    bad[0] = bad[0][::-1]
+    with pytest.raises(SurfaceError, match="flipped"):
+        load_surface(str(write_stl(tmp_path / "flipped.stl", v, bad)))
+    (tmp_path / "junk.stl").write_text("not a mesh")
+    with pytest.raises(SurfaceError, match="cannot read"):
+        load_surface(str(tmp_path / "junk.stl"))
+
+
+def mesh_problem(tmp_path, v, f, role="passive"):
+    """A 3D beam whose passive solid (or support) is the surface (v, f) in keep.stl."""
+    write_stl(tmp_path / "keep.stl", v, f)
+    d = beam_problem(3, [12.0, 10.0, 6.0], 1.0)
+    if role == "passive":
+        d["passive"] = [{"kind": "solid", "region": {"mesh": "keep.stl"}}]
+    else:
+        d["support"] = [{"region": {"mesh": "keep.stl"}}]
+    return d, str(tmp_path / "p.toml")  # the mesh path is relative to the problem file
+
+
+def closed_l(p):
+    x, y, z = (p - np.array([1.0, 1.0, 0.0])).T
+    in_l = ((x <= 10) & (y <= 3)) | ((x <= 3) & (y <= 8))
+    return in_l & (x >= 0) & (y >= 0) & (z >= 0) & (z <= 5)
+
+
+def test_a_mesh_region_selects_elements_by_centre_and_nodes_inside_or_on(tmp_path):
+    v, f, exact = l_prism(corner=(1.0, 1.0, 0.0))
+    d, source = mesh_problem(tmp_path, v, f)
+    m = Model(problem_from_dict(d, source=source))
+    assert np.array_equal(m.solid, exact(m.grid.element_centers))
+    assert m.solid.sum() == 45 * 5  # the L's volume in unit elements
+    d, source = mesh_problem(tmp_path, v, f, role="support")
+    m = Model(problem_from_dict(d, source=source))
+    nodes = m.support_nodes[0]
+    assert np.array_equal(nodes, np.flatnonzero(closed_l(m.grid.node_coords)))
+
+
+def test_mesh_region_errors_name_the_key(tmp_path):
+    v, f, _ = l_prism(corner=(1.0, 1.0, 0.0))
+    d, source = mesh_problem(tmp_path, v, f)
+    d["passive"][0]["region"]["mesh"] = "nowhere.stl"
+    with pytest.raises(ProblemError, match="no such file") as err:
+        problem_from_dict(d, source=source)
+    assert err.value.key == "passive[0].region.mesh"
+    d, source = mesh_problem(tmp_path, v, f[2:])
+    with pytest.raises(ProblemError, match="not a closed surface"):
+        problem_from_dict(d, source=source)
+    d, source = mesh_problem(tmp_path, v * 1000.0, f)  # a file in µm
+    with pytest.raises(ProblemError, match="other units") as err:
+        Model(problem_from_dict(d, source=source))
+    assert err.value.key == "passive[0].region.mesh"
+    d, source = mesh_problem(tmp_path, v * 0.02 + 2.2, f)  # between element centres
+    with pytest.raises(ProblemError, match="selects no elements"):
+        Model(problem_from_dict(d, source=source))
+    d2 = beam_problem(2)
+    d2["passive"] = [{"kind": "solid", "region": {"mesh": "keep.stl"}}]
+    with pytest.raises(ProblemError, match="only 3D"):
+        problem_from_dict(d2, source=source)
+
+
+PROBLEM = """
+[domain]
+size = [12.0, 10.0, 6.0]
+element_size = 1.0
+[material]
+preset = "316L"
+[optimization]
+volume_fraction = 0.5
+[[support]]
+region = { face = "x-min" }
+[[load_case]]
+[[load_case.force]]
+region = { face = "x-max" }
+total = [0.0, -1.0, 0.0]
+[[passive]]
+kind = "solid"
+region = { mesh = "parts/keep.stl" }
+"""
+
+
+def test_a_mesh_path_is_relative_to_the_problem_file(tmp_path):
+    v, f, exact = l_prism(corner=(1.0, 1.0, 0.0))
+    (tmp_path / "parts").mkdir()
+    write_stl(tmp_path / "parts" / "keep.stl", v, f)
+    (tmp_path / "p.toml").write_text(PROBLEM)
+    p = load_problem(tmp_path / "p.toml")
+    assert p.passives[0].region.path == str(tmp_path / "parts" / "keep.stl")
+    m = Model(p)
+    assert np.array_equal(m.solid, exact(m.grid.element_centers))
