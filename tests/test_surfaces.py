@@ -137,3 +137,14 @@ def test_a_mesh_path_is_relative_to_the_problem_file(tmp_path):
     assert p.passives[0].region.path == str(tmp_path / "parts" / "keep.stl")
     m = Model(p)
     assert np.array_equal(m.solid, exact(m.grid.element_centers))
+
+
+def test_distance_to_a_mesh_region_for_the_verification_sizing(tmp_path):
+    from topo.problem import Mesh
+    from topo.verification.sizing import region_distance
+
+    v, f, _ = l_prism()
+    region = Mesh(str(write_stl(tmp_path / "l.stl", v, f)))
+    pts = np.array([[1.0, 1.0, 1.0], [10.0, 3.0, 5.0], [13.0, 7.0, 9.0]])
+    # inside, on a corner, and 3-4-4 off the corner (10, 3, 5): √41 by hand
+    assert np.allclose(region_distance(region, pts, (20.0, 20.0, 20.0)), [0, 0, 41**0.5])
