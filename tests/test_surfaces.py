@@ -148,3 +148,36 @@ def test_distance_to_a_mesh_region_for_the_verification_sizing(tmp_path):
     pts = np.array([[1.0, 1.0, 1.0], [10.0, 3.0, 5.0], [13.0, 7.0, 9.0]])
     # inside, on a corner, and 3-4-4 off the corner (10, 3, 5): √41 by hand
     assert np.allclose(region_distance(region, pts, (20.0, 20.0, 20.0)), [0, 0, 41**0.5])
+
+
+def envelope_problem(tmp_path, corner=(0.0, 0.0, 0.0)):
+    v, f, exact = l_prism(corner=corner)
+    write_stl(tmp_path / "envelope.stl", v, f)
+    d = beam_problem(3, None, 1.0)
+    d["domain"] = {"envelope": "envelope.stl", "element_size": 1.0}
+    d["load_case"][0]["force"][0]["region"] = {"box": {"min": [10, 0, 0], "max": [10, 3, 5]}}
+    return d, str(tmp_path / "p.toml"), exact
+
+
+def test_an_envelope_sizes_the_grid_and_voids_what_lies_outside(tmp_path):
+    d, source, exact = envelope_problem(tmp_path)
+    p = problem_from_dict(d, source=source)
+    assert p.domain.size == (10.0, 8.0, 5.0)  # the L's bounding box
+    m = Model(p)
+    assert np.array_equal(m.void, ~exact(m.grid.element_centers))
+    assert m.void.sum() == 10 * 8 * 5 - 45 * 5
+    d["domain"]["size"] = [12.0, 9.0, 6.0]  # a given size wins; the rest is void too
+    m = Model(problem_from_dict(d, source=source))
+    assert m.grid.shape == (12, 9, 6) and m.void.sum() == 12 * 9 * 6 - 45 * 5
+
+
+def test_envelope_errors_name_the_key(tmp_path):
+    d, source, _ = envelope_problem(tmp_path, corner=(-1.0, 0.0, 0.0))
+    with pytest.raises(ProblemError, match="below the origin along x") as err:
+        problem_from_dict(d, source=source)
+    assert err.value.key == "domain.envelope"
+    d, source, _ = envelope_problem(tmp_path)
+    d["passive"] = [{"kind": "solid", "region": {"box": {"min": [5, 5, 0], "max": [8, 8, 5]}}}]
+    with pytest.raises(ProblemError, match="outside the envelope") as err:
+        Model(problem_from_dict(d, source=source))
+    assert err.value.key == "passive[0].region"

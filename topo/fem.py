@@ -13,8 +13,8 @@ import numpy as np
 from .elements import centre_strain_displacement, elasticity_matrix, element_stiffness, von_mises
 from .grid import Grid
 from .loads import LoadError, rigid_distribution
-from .problem import Problem, ProblemError
-from .regions import mesh_fault, outside_domain, select_elements, select_nodes
+from .problem import Mesh, Problem, ProblemError
+from .regions import mesh_fault, outside_domain, select_elements, select_mask, select_nodes
 from .solvers import make_system
 from .timing import Timer
 
@@ -90,6 +90,26 @@ class Model:
             )
         self.selections.append(Selection(key, role, name, len(nodes), 0))
         return nodes
+
+    def _outside_envelope(self) -> np.ndarray:
+        """Elements whose centres lie outside `domain.envelope` (none without one)."""
+        path = self.problem.domain.envelope
+        if path is None:
+            return np.zeros(self.grid.n_elements, dtype=bool)
+        envelope = Mesh(path)
+        src = self.problem.source
+        fault = mesh_fault(envelope, self.grid)
+        if fault:
+            raise ProblemError(src, "domain.envelope", fault)
+        outside = ~select_mask(envelope, self.grid)
+        if outside.all():
+            raise ProblemError(src, "domain.envelope", "no element centre lies inside the envelope")
+        if outside.any():
+            name = "outside the envelope"
+            self.selections.append(
+                Selection("domain.envelope", "void", name, 0, int(outside.sum()))
+            )
+        return outside
 
     def _check_mesh(self, region, key: str) -> None:
         fault = mesh_fault(region, self.grid)
@@ -179,6 +199,8 @@ class Model:
         masks = {"solid": np.zeros(n, dtype=bool), "void": np.zeros(n, dtype=bool)}
         self.passive_elements: list[np.ndarray] = []  # per [[passive]], in file order
         src = self.problem.source
+        outside = self._outside_envelope()
+        masks["void"] |= outside
         for i, p in enumerate(self.problem.passives):
             key = f"passive[{i}]"
             self._check_mesh(p.region, key)
@@ -190,6 +212,13 @@ class Model:
                     src,
                     f"{key}.region",
                     "the region selects no elements (elements are selected by their centre)",
+                )
+            if p.kind == "solid" and outside[elems].any():
+                raise ProblemError(
+                    src,
+                    f"{key}.region",
+                    f"{int(outside[elems].sum())} of its elements lie outside the envelope "
+                    "(domain.envelope), which must hold every interface",
                 )
             masks[p.kind][elems] = True
             self.passive_elements.append(elems)

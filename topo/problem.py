@@ -90,6 +90,7 @@ class Domain:
     element_size: float
     thickness: float | None
     shape: tuple[int, ...]
+    envelope: str | None = None  # closed surface; elements outside it are void
 
     @property
     def dim(self) -> int:
@@ -387,8 +388,11 @@ class _Parser(Reader):
             seen[k] = n
 
     def domain(self, value) -> Domain:
-        dim = len(self.read("domain", value, "domain", {}, ("size",))["size"])
-        got = self.read("domain", value, "domain", {"dim": dim})
+        ctx = self.envelope_size(value)
+        dim = len(self.read("domain", value, "domain", ctx, ("size",))["size"])
+        got = self.read("domain", value, "domain", {**ctx, "dim": dim})
+        if got["envelope"] is not None:
+            got["envelope"] = self.mesh(got["envelope"], "domain.envelope").path
         size, h = got["size"], got["element_size"]
         shape = []
         for i, s in enumerate(size):
@@ -413,7 +417,28 @@ class _Parser(Reader):
                 f"{total:,} elements is more than topo handles "
                 f"({MAX_ELEMENTS:,}); use a coarser element_size",
             )
-        return Domain(size, h, got["thickness"], tuple(shape))
+        return Domain(size, h, got["thickness"], tuple(shape), got["envelope"])
+
+    def envelope_size(self, value) -> dict:
+        """{"envelope_size": the envelope's bounding box from the origin in whole
+        elements} when the domain has an envelope, else {}."""
+        if not isinstance(value, dict) or value.get("envelope") is None:
+            return {}
+        got = self.read("domain", value, "domain", {"dim": 3}, ("envelope", "element_size"))
+        from .surfaces import load_surface
+
+        mesh = self.mesh(got["envelope"], "domain.envelope")
+        vertices, _ = load_surface(mesh.path)
+        lo, hi = vertices.min(axis=0), vertices.max(axis=0)
+        h = got["element_size"]
+        for i, axis in enumerate("xyz"):
+            if lo[i] < -1e-9 * max(1.0, hi[i] - lo[i]):
+                self.fail(
+                    "domain.envelope",
+                    f"the envelope reaches below the origin along {axis} (to {lo[i]:g} mm); "
+                    "the domain is a box from the origin: move the envelope to x, y, z ≥ 0",
+                )
+        return {"envelope_size": tuple(math.ceil(x / h - 1e-9) * h for x in hi)}
 
     def material(self, value) -> Material:
         got = self.read("material", value, "material", {})

@@ -61,6 +61,13 @@ def select_elements(region: Region, grid: Grid) -> np.ndarray:
     return np.flatnonzero(_inside(region, pts, tol, grid))
 
 
+def select_mask(region: Region, grid: Grid) -> np.ndarray:
+    """Boolean mask over the elements: centre inside `region`."""
+    mask = np.zeros(grid.n_elements, dtype=bool)
+    mask[select_elements(region, grid)] = True
+    return mask
+
+
 def outside_domain(region: Region, grid: Grid) -> bool:
     """True when the region lies wholly outside the domain box."""
     size = np.array(grid.size)

@@ -168,8 +168,20 @@ SCHEMA: tuple[Section, ...] = (
                 VECTOR,
                 "extent along x, y (2D) or x, y, z (3D); a whole number of elements",
                 "mm",
+                default=Rule(
+                    "required; with an envelope, its bounding box in whole elements",
+                    lambda env: env.get("envelope_size", REQUIRED),
+                ),
                 bounds=_POSITIVE,
                 hint="give [x, y] (2D) or [x, y, z] (3D) in mm",
+            ),
+            Key(
+                "envelope",
+                STRING,
+                "closed surface file (STL, OBJ or PLY, mm) the part must stay within, "
+                "relative to the problem file: elements whose centres lie outside are void",
+                default=None,
+                dims=(3,),
             ),
             Key(
                 "element_size",
