@@ -181,3 +181,19 @@ def test_envelope_errors_name_the_key(tmp_path):
     with pytest.raises(ProblemError, match="outside the envelope") as err:
         Model(problem_from_dict(d, source=source))
     assert err.value.key == "passive[0].region"
+
+
+def test_the_cad_demo_builds_with_its_meshes_and_its_load_off_the_part():
+    from pathlib import Path
+
+    from topo.loads import moment_about
+
+    demo = Path(__file__).parent.parent / "problems" / "bracket-cad-3d.toml"
+    p = load_problem(demo)
+    assert p.domain.size == (90.0, 40.0, 60.0)  # the envelope's bounding box
+    m = Model(p)
+    assert m.void.sum() > 0 and m.solid.sum() > 0
+    force = p.load_cases[0].forces[0]
+    f = m.loads[:, 0].reshape(-1, 3)
+    assert np.allclose(f.sum(axis=0), force.total, atol=1e-9)
+    assert np.allclose(moment_about(m.grid.node_coords, f, force.at), force.moment, atol=1e-7)
