@@ -145,7 +145,7 @@ class Support:
 @dataclass(frozen=True)
 class Force:
     region: Region
-    total: tuple[float, ...]  # N, shared evenly by the selected nodes
+    total: tuple[float, ...]  # N, the resultant, shared evenly by the selected nodes
     at: tuple[float, ...] | None = None  # mm, point of application (None: the centroid)
     moment: tuple[float, ...] | None = None  # N·mm about `at`; 2D: (Mz,)
 

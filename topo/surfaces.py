@@ -36,7 +36,9 @@ def _load(path: str, mtime: int, size: int) -> tuple[np.ndarray, np.ndarray]:
     import meshio
 
     try:
-        mesh = meshio.read(path)
+        # meshio tests for binary STL with a uint32 product that overflows on ASCII files
+        with np.errstate(over="ignore"):
+            mesh = meshio.read(path)
     except Exception as exc:  # meshio raises many kinds on a bad file
         raise SurfaceError(f"cannot read {path} as STL, OBJ or PLY ({exc})") from None
     vertices = np.asarray(mesh.points, float)
