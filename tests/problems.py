@@ -152,3 +152,37 @@ def tiny_bracket_toml(max_iterations, beta_interval):
         load=[24.0, 6.0],
         total=[0.0, -100.0],
     )
+
+
+def l_prism(corner=(0.0, 0.0, 0.0), scale=1.0):
+    """A closed, outward-oriented triangle surface of an L-shaped prism (non-convex):
+    the L of (0,0)-(10,0)-(10,3)-(3,3)-(3,8)-(0,8) in x, y, 5 deep in z, times
+    `scale`, from `corner`. Returns (vertices, triangles) and the exact inside test."""
+    outline = np.array([(0, 0), (10, 0), (10, 3), (3, 3), (3, 8), (0, 8)], float)
+    n = len(outline)
+    bottom = np.column_stack([outline, np.zeros(n)])
+    top = np.column_stack([outline, np.full(n, 5.0)])
+    vertices = np.concatenate([bottom, top]) * scale + np.array(corner)
+    # the caps fan out from (0, 0), which sees the whole L
+    caps = [(0, i + 1, i) for i in range(1, n - 1)] + [
+        (n, n + i, n + i + 1) for i in range(1, n - 1)
+    ]
+    sides = []
+    for i in range(n):
+        j = (i + 1) % n
+        sides += [(i, j, n + j), (i, n + j, n + i)]
+    faces = np.array(caps + sides)
+
+    def exact(pts):
+        p = (np.asarray(pts) - np.array(corner)) / scale
+        in_l = ((p[:, 0] < 10) & (p[:, 1] < 3)) | ((p[:, 0] < 3) & (p[:, 1] < 8))
+        return in_l & np.all(p > 0, axis=1) & (p[:, 2] < 5)
+
+    return vertices, faces, exact
+
+
+def write_stl(path, vertices, faces):
+    import meshio
+
+    meshio.write(str(path), meshio.Mesh(vertices, [("triangle", faces)]), file_format="stl")
+    return path

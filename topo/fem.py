@@ -12,8 +12,9 @@ import numpy as np
 
 from .elements import centre_strain_displacement, elasticity_matrix, element_stiffness, von_mises
 from .grid import Grid
-from .problem import Problem, ProblemError
-from .regions import outside_domain, select_elements, select_nodes
+from .loads import LoadError, rigid_distribution
+from .problem import Mesh, Problem, ProblemError
+from .regions import mesh_fault, outside_domain, select_elements, select_mask, select_nodes
 from .solvers import make_system
 from .timing import Timer
 
@@ -73,6 +74,7 @@ class Model:
     # ------------------------------------------------------------------ problem → sets
     def _nodes(self, region, key: str, role: str, name: str) -> np.ndarray:
         src = self.problem.source
+        self._check_mesh(region, key)
         if outside_domain(region, self.grid):
             raise ProblemError(
                 src,
@@ -88,6 +90,31 @@ class Model:
             )
         self.selections.append(Selection(key, role, name, len(nodes), 0))
         return nodes
+
+    def _outside_envelope(self) -> np.ndarray:
+        """Elements whose centres lie outside `domain.envelope` (none without one)."""
+        path = self.problem.domain.envelope
+        if path is None:
+            return np.zeros(self.grid.n_elements, dtype=bool)
+        envelope = Mesh(path)
+        src = self.problem.source
+        fault = mesh_fault(envelope, self.grid)
+        if fault:
+            raise ProblemError(src, "domain.envelope", fault)
+        outside = ~select_mask(envelope, self.grid)
+        if outside.all():
+            raise ProblemError(src, "domain.envelope", "no element centre lies inside the envelope")
+        if outside.any():
+            name = "outside the envelope"
+            self.selections.append(
+                Selection("domain.envelope", "void", name, 0, int(outside.sum()))
+            )
+        return outside
+
+    def _check_mesh(self, region, key: str) -> None:
+        fault = mesh_fault(region, self.grid)
+        if fault:
+            raise ProblemError(self.problem.source, f"{key}.region.mesh", fault)
 
     def _supports(self) -> np.ndarray:
         fixed = np.zeros(self.grid.n_dofs, dtype=bool)
@@ -156,8 +183,15 @@ class Model:
                         f"{key}.region",
                         "the load lies inside a void (keep-out) region: no material carries it",
                     )
-                for axis, total in enumerate(force.total):
-                    np.add.at(f[:, c], self.dim * nodes + axis, total / len(nodes))
+                try:
+                    nodal = rigid_distribution(
+                        self.grid.node_coords[nodes], force.total, force.moment, force.at
+                    )
+                except LoadError as exc:
+                    what = "moment" if force.moment is not None else "at"
+                    raise ProblemError(self.problem.source, f"{key}.{what}", str(exc)) from None
+                for axis in range(self.dim):
+                    np.add.at(f[:, c], self.dim * nodes + axis, nodal[:, axis])
         return f
 
     def _passives(self) -> tuple[np.ndarray, np.ndarray]:
@@ -165,8 +199,11 @@ class Model:
         masks = {"solid": np.zeros(n, dtype=bool), "void": np.zeros(n, dtype=bool)}
         self.passive_elements: list[np.ndarray] = []  # per [[passive]], in file order
         src = self.problem.source
+        outside = self._outside_envelope()
+        masks["void"] |= outside
         for i, p in enumerate(self.problem.passives):
             key = f"passive[{i}]"
+            self._check_mesh(p.region, key)
             if outside_domain(p.region, self.grid):
                 raise ProblemError(src, f"{key}.region", "the region lies outside the domain")
             elems = select_elements(p.region, self.grid)
@@ -175,6 +212,13 @@ class Model:
                     src,
                     f"{key}.region",
                     "the region selects no elements (elements are selected by their centre)",
+                )
+            if p.kind == "solid" and outside[elems].any():
+                raise ProblemError(
+                    src,
+                    f"{key}.region",
+                    f"{int(outside[elems].sum())} of its elements lie outside the envelope "
+                    "(domain.envelope), which must hold every interface",
                 )
             masks[p.kind][elems] = True
             self.passive_elements.append(elems)

@@ -77,7 +77,12 @@ class Point:
     point: tuple[float, ...]
 
 
-Region = Box | Cylinder | Sphere | Face | Point
+@dataclass(frozen=True)
+class Mesh:
+    path: str  # a closed surface file, resolved against the problem file's folder
+
+
+Region = Box | Cylinder | Sphere | Face | Point | Mesh
 
 
 @dataclass(frozen=True)
@@ -86,6 +91,7 @@ class Domain:
     element_size: float
     thickness: float | None
     shape: tuple[int, ...]
+    envelope: str | None = None  # closed surface; elements outside it are void
 
     @property
     def dim(self) -> int:
@@ -140,7 +146,9 @@ class Support:
 @dataclass(frozen=True)
 class Force:
     region: Region
-    total: tuple[float, ...]  # N, shared evenly by the selected nodes
+    total: tuple[float, ...]  # N, the resultant, shared evenly by the selected nodes
+    at: tuple[float, ...] | None = None  # mm, point of application (None: the centroid)
+    moment: tuple[float, ...] | None = None  # N·mm about `at`; 2D: (Mz,)
 
 
 @dataclass(frozen=True)
@@ -389,8 +397,11 @@ class _Parser(Reader):
             seen[k] = n
 
     def domain(self, value) -> Domain:
-        dim = len(self.read("domain", value, "domain", {}, ("size",))["size"])
-        got = self.read("domain", value, "domain", {"dim": dim})
+        ctx = self.envelope_size(value)
+        dim = len(self.read("domain", value, "domain", ctx, ("size",))["size"])
+        got = self.read("domain", value, "domain", {**ctx, "dim": dim})
+        if got["envelope"] is not None:
+            got["envelope"] = self.mesh(got["envelope"], "domain.envelope").path
         size, h = got["size"], got["element_size"]
         shape = []
         for i, s in enumerate(size):
@@ -415,7 +426,28 @@ class _Parser(Reader):
                 f"{total:,} elements is more than topo handles "
                 f"({MAX_ELEMENTS:,}); use a coarser element_size",
             )
-        return Domain(size, h, got["thickness"], tuple(shape))
+        return Domain(size, h, got["thickness"], tuple(shape), got["envelope"])
+
+    def envelope_size(self, value) -> dict:
+        """{"envelope_size": the envelope's bounding box from the origin in whole
+        elements} when the domain has an envelope, else {}."""
+        if not isinstance(value, dict) or value.get("envelope") is None:
+            return {}
+        got = self.read("domain", value, "domain", {"dim": 3}, ("envelope", "element_size"))
+        from .surfaces import load_surface
+
+        mesh = self.mesh(got["envelope"], "domain.envelope")
+        vertices, _ = load_surface(mesh.path)
+        lo, hi = vertices.min(axis=0), vertices.max(axis=0)
+        h = got["element_size"]
+        for i, axis in enumerate("xyz"):
+            if lo[i] < -1e-9 * max(1.0, hi[i] - lo[i]):
+                self.fail(
+                    "domain.envelope",
+                    f"the envelope reaches below the origin along {axis} (to {lo[i]:g} mm); "
+                    "the domain is a box from the origin: move the envelope to x, y, z ≥ 0",
+                )
+        return {"envelope_size": tuple(math.ceil(x / h - 1e-9) * h for x in hi)}
 
     def material(self, value) -> Material:
         got = self.read("material", value, "material", {})
@@ -480,6 +512,8 @@ class _Parser(Reader):
         spec = self.read("region", value, key, {"dim": dim}, (form,))[form]
         if spec is None:  # `box = null` from JSON or Python
             self.fail(f"{key}.{form}", "missing")
+        if form == "mesh":
+            return self.mesh(spec, f"{key}.mesh")
         if form in ("face", "point"):
             return Face(spec) if form == "face" else Point(spec)
         if form == "cylinder" and dim == 2:
@@ -493,6 +527,17 @@ class _Parser(Reader):
             return Box(**got)
         return Cylinder(**got) if form == "cylinder" else Sphere(**got)
 
+    def mesh(self, name: str, key: str) -> Mesh:
+        from .surfaces import SurfaceError, load_surface
+
+        folder = Path(self.source).parent if not self.source.startswith("<") else Path.cwd()
+        path = folder / name
+        try:
+            load_surface(str(path))  # read and checked once here; cached for the regions
+        except SurfaceError as exc:
+            self.fail(key, str(exc))
+        return Mesh(str(path))
+
     def support(self, d: dict, key: str, dim: int) -> Support:
         got = self.read("support", d, key, {"dim": dim})
         return Support(got["name"], self.region(got["region"], f"{key}.region", dim), got["fix"])
@@ -503,9 +548,10 @@ class _Parser(Reader):
         for i, f in enumerate(got["force"]):
             fk = f"{key}.force[{i}]"
             force = self.read("load_case.force", f, fk, {"dim": dim})
-            forces.append(Force(self.region(force["region"], f"{fk}.region", dim), force["total"]))
-        if all(not any(f.total) for f in forces):
-            self.fail(f"{key}.force", "the load case has zero total force")
+            region = self.region(force["region"], f"{fk}.region", dim)
+            forces.append(Force(region, force["total"], force["at"], force["moment"]))
+        if all(not any(f.total) and not any(f.moment or ()) for f in forces):
+            self.fail(f"{key}.force", "the load case has zero total force and moment")
         return LoadCase(got["name"], got["weight"], tuple(forces), got["cycles"], got["load_ratio"])
 
     def deflection(

@@ -11,7 +11,8 @@ from __future__ import annotations
 import numpy as np
 
 from .grid import Grid
-from .problem import Box, Cylinder, Face, Point, Region, Sphere
+from .problem import Box, Cylinder, Face, Mesh, Point, Region, Sphere
+from .surfaces import inside, load_surface
 
 AXIS_INDEX = {"x": 0, "y": 1, "z": 2}
 
@@ -34,6 +35,9 @@ def _inside(region: Region, pts: np.ndarray, tol: float, grid: Grid) -> np.ndarr
         a = AXIS_INDEX[region.face[0]]
         end = 0.0 if region.face.endswith("min") else grid.size[a]
         return np.abs(pts[:, a] - end) <= tol
+    if isinstance(region, Mesh):  # nodes (a tolerance given): inside or on the surface
+        on = tol > 1e-6 * getattr(grid, "h", 1.0)  # element centres: strictly inside
+        return inside(pts, *load_surface(region.path), on=on)
     raise TypeError(f"not a region: {region!r}")
 
 
@@ -57,6 +61,13 @@ def select_elements(region: Region, grid: Grid) -> np.ndarray:
     return np.flatnonzero(_inside(region, pts, tol, grid))
 
 
+def select_mask(region: Region, grid: Grid) -> np.ndarray:
+    """Boolean mask over the elements: centre inside `region`."""
+    mask = np.zeros(grid.n_elements, dtype=bool)
+    mask[select_elements(region, grid)] = True
+    return mask
+
+
 def outside_domain(region: Region, grid: Grid) -> bool:
     """True when the region lies wholly outside the domain box."""
     size = np.array(grid.size)
@@ -76,4 +87,28 @@ def outside_domain(region: Region, grid: Grid) -> bool:
             else max(region.radius, region.length / 2)
         )
         return bool(np.any(c + reach < -tol) or np.any(c - reach > size + tol))
+    if isinstance(region, Mesh):
+        vertices, _ = load_surface(region.path)
+        lo, hi = vertices.min(axis=0), vertices.max(axis=0)
+        return bool(np.any(hi < -tol) or np.any(lo > size + tol))
     return False
+
+
+# a mesh this many times the domain's diagonal is taken for one in other units
+UNITS_FACTOR = 10.0
+
+
+def mesh_fault(region: Region, grid: Grid) -> str | None:
+    """Why a mesh region looks wrong for the domain (units), or None."""
+    if not isinstance(region, Mesh):
+        return None
+    vertices, _ = load_surface(region.path)
+    extent = np.ptp(vertices, axis=0)
+    ratio = float(np.linalg.norm(extent) / np.linalg.norm(grid.size))
+    if ratio > UNITS_FACTOR:
+        return (
+            f"the mesh's bounding box ({' × '.join(f'{e:g}' for e in extent)}) is {ratio:.0f} "
+            f"times the domain's diagonal ({' × '.join(f'{s:g}' for s in grid.size)} mm): "
+            "is the file in other units? Lengths are mm"
+        )
+    return None

@@ -25,6 +25,7 @@ FACES = tuple(f"{a}-{s}" for a in AXES for s in ("min", "max"))
 # kinds of value
 NUMBER, INTEGER, BOOL, STRING = "number", "whole number", "true/false", "string"
 VECTOR, LIST, REGION, TABLE, TABLES = "list of numbers", "list", "region", "table", "[[tables]]"
+MOMENT = "moment: Mz (2D) or [Mx, My, Mz] (3D)"
 SCALARS = (NUMBER, INTEGER, BOOL, STRING)
 
 
@@ -168,8 +169,20 @@ SCHEMA: tuple[Section, ...] = (
                 VECTOR,
                 "extent along x, y (2D) or x, y, z (3D); a whole number of elements",
                 "mm",
+                default=Rule(
+                    "required; with an envelope, its bounding box in whole elements",
+                    lambda env: env.get("envelope_size", REQUIRED),
+                ),
                 bounds=_POSITIVE,
                 hint="give [x, y] (2D) or [x, y, z] (3D) in mm",
+            ),
+            Key(
+                "envelope",
+                STRING,
+                "closed surface file (STL, OBJ or PLY, mm) the part must stay within, "
+                "relative to the problem file: elements whose centres lie outside are void",
+                default=None,
+                dims=(3,),
             ),
             Key(
                 "element_size",
@@ -503,7 +516,7 @@ SCHEMA: tuple[Section, ...] = (
     ),
     Section(
         "load_case.force",
-        "a force shared evenly by the nodes of a region",
+        "a force (and moment) on a region: shared evenly, a moment as by a bolt group",
         (
             Key("region", REGION, "the loaded nodes"),
             Key(
@@ -514,6 +527,25 @@ SCHEMA: tuple[Section, ...] = (
                 bounds="[-1e9, 1e9]",
                 why="1e9 N is the weight of about 100,000 tonnes, beyond any bracket; larger "
                 "forces overflow the compliance (N·mm): is the value in N?",
+            ),
+            Key(
+                "at",
+                VECTOR,
+                "point of application, on or off the part (the equipment's centre of mass, "
+                "a pin axis); the force and moment are carried to the region as by a rigid "
+                "connection (default: the centroid of the region's nodes)",
+                "mm",
+                None,
+            ),
+            Key(
+                "moment",
+                MOMENT,
+                "moment about `at`, carried like a bolt group: nodal forces proportional "
+                "to the distance from the region's centroid",
+                "N·mm",
+                None,
+                "[-1e12, 1e12]",
+                why="1e12 N·mm is 1e9 N at a metre; is the value in N·mm?",
             ),
         ),
         many=True,
@@ -689,6 +721,14 @@ SCHEMA: tuple[Section, ...] = (
                 choices=lambda dim: FACES[: 2 * dim],
             ),
             Key("point", VECTOR, "the node nearest this point", "mm", None),
+            Key(
+                "mesh",
+                STRING,
+                "closed surface file (STL, OBJ or PLY, mm), relative to the problem file: "
+                "elements whose centres lie inside, nodes inside or on it",
+                default=None,
+                dims=(3,),
+            ),
         ),
     ),
     Section(
@@ -819,6 +859,14 @@ class Reader:
         if kind == STRING:
             return self.string(value, where, key.allowed(dim) or None)
         if kind == VECTOR:
+            return self.vector(value, where, dim, key.bounds, key.why)
+        if kind == MOMENT:
+            if dim == 2 and not isinstance(value, list):
+                return (self.number(value, where, key.bounds, key.why),)
+            if dim == 2:
+                if len(value) != 1:
+                    self.fail(where, f"a 2D moment is about z: a number Mz or [Mz], got {value!r}")
+                return (self.number(value[0], f"{where}[0]", key.bounds, key.why),)
             return self.vector(value, where, dim, key.bounds, key.why)
         if kind == LIST:
             choices = key.allowed(dim)

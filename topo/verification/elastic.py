@@ -31,6 +31,7 @@ from types import SimpleNamespace
 import numpy as np
 import scipy.sparse.linalg as spla
 
+from ..loads import rigid_distribution
 from ..problem import Point
 from ..regions import _inside  # the same membership test the grid uses
 from .mesher import QuadraticMesh
@@ -140,6 +141,13 @@ def solve_elastic(mesh: QuadraticMesh, problem, tol: float, embedded=()) -> Solu
             name = case.name if j == 0 else f"{case.name}[{j}]"
             total = np.array(force.total[:dim], dtype=float)
             region = force.region
+            if force.moment is not None or force.at is not None:
+                # the moment about the region's centroid, as the grid model carries it
+                nodes, _ = _node_set(points, region, tol_of(region), size, name)
+                couple = rigid_distribution(points[nodes], total, force.moment, force.at)
+                couple -= total / len(nodes)
+                for k in range(dim):
+                    np.add.at(loads[:, c], dim * nodes + k, couple[:, k])
             inside = (
                 np.flatnonzero(_where(region, centroids, 0.0, size))
                 if not isinstance(region, Point)

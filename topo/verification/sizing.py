@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.spatial import cKDTree
 
-from ..problem import Box, Cylinder, Face, Point, Sphere
+from ..problem import Box, Cylinder, Face, Mesh, Point, Sphere
 
 REGION_FACTOR = 1 / 3  # size at load and support regions, relative to the base
 REGION_BAND = 2.0  # … within this many base sizes of the region
@@ -40,6 +40,19 @@ def region_distance(region, pts: np.ndarray, size) -> np.ndarray:
         a = "xyz".index(region.face[0])
         end = 0.0 if region.face.endswith("min") else size[a]
         return np.abs(pts[:, a] - end)
+    if isinstance(region, Mesh):
+        # 0 inside or on the surface, else the distance to the nearest vertex (an
+        # upper bound, which is enough to place refinement and name a nearest region)
+        from ..surfaces import inside, load_surface
+
+        vertices, faces = load_surface(region.path)
+        out = np.zeros(len(pts))
+        chunk = max(1, 1_000_000 // len(vertices))
+        for i in range(0, len(pts), chunk):
+            d = np.linalg.norm(pts[i : i + chunk, None, :] - vertices[None, :, :], axis=-1)
+            out[i : i + chunk] = d.min(axis=1)
+        out[inside(pts, vertices, faces, on=True)] = 0.0
+        return out
     raise TypeError(f"not a region: {region!r}")
 
 
