@@ -114,9 +114,7 @@ def unreachable_regions(model) -> list[str]:
     grid = model.grid
 
     def touching(nodes):
-        mark = np.zeros(grid.n_nodes, dtype=bool)
-        mark[nodes] = True
-        return mark[grid.element_nodes].any(axis=1) & ~model.void
+        return _elements_at_nodes(grid, nodes) & ~model.void
 
     regions = {
         f"support {s.name}": touching(n)
