@@ -89,23 +89,28 @@ def write_history_png(result, path: Path) -> None:
     write_figure(path, fig)
 
 
-def write_design_png(result, path: Path) -> None:
+def _default_surface(result, surface):
+    """The design mesh a 3D picture draws: `surface` when given, else the default
+    one (iso 0.5, no smoothing); 2D pictures need none."""
+    if result.density.ndim == 2:
+        return None
+    return surface if surface is not None else design_surface(result)
+
+
+def write_design_png(result, path: Path, surface=None) -> None:
     """The printed part with its supports, loads, interfaces and build plate
     (pictures.py); 3D draws the design mesh at the default surface level."""
-    surface = design_surface(result) if result.density.ndim == 3 else None
-    write_figure(path, design_figure(result, surface))
+    write_figure(path, design_figure(result, _default_surface(result, surface)))
 
 
-def write_stress_png(result, path: Path) -> None:
+def write_stress_png(result, path: Path, surface=None) -> None:
     """The printed part's von Mises stress, the peak marked (pictures.py)."""
-    surface = design_surface(result) if result.density.ndim == 3 else None
-    write_figure(path, stress_figure(result, surface))
+    write_figure(path, stress_figure(result, _default_surface(result, surface)))
 
 
-def write_deflection_png(result, path: Path) -> None:
+def write_deflection_png(result, path: Path, surface=None) -> None:
     """How far the printed part moves, the largest marked (pictures.py)."""
-    surface = design_surface(result) if result.density.ndim == 3 else None
-    write_figure(path, deflection_figure(result, surface))
+    write_figure(path, deflection_figure(result, _default_surface(result, surface)))
 
 
 def write_problem(result, path: Path) -> None:
@@ -177,6 +182,8 @@ EXPORTERS: dict[str, Callable] = {
     "deflection.png": write_deflection_png,
     "fields.vtu": write_fields,
 }
+# drawn on the default design mesh in 3D: export makes it once for all of them
+PICTURES = ("design.png", "stress.png", "deflection.png")
 SUMMARY = "summary.json"
 REPORT = "report.html"  # read from the files above; written just before the summary
 
@@ -208,12 +215,18 @@ def export(
         target = out / f"design.{mesh_format}"
         write_mesh(surface.mesh, target, mesh_format)
         written.append(target)
+    # the exported mesh serves the pictures when it is the default one
+    shown = surface if surface is not None and (iso, smooth) == (0.5, 0) else None
     for name, writer in EXPORTERS.items():
         if only is not None and name not in only:
             continue
         if name in ("history.csv", "history.png") and not result.history:
             continue
-        writer(result, out / name)
+        if name in PICTURES:
+            shown = _default_surface(result, shown)
+            writer(result, out / name, shown)
+        else:
+            writer(result, out / name)
         written.append(out / name)
     if only is None or REPORT in only:
         write_text(out / REPORT, build_report(out, summary))
