@@ -186,3 +186,11 @@ def write_stl(path, vertices, faces):
 
     meshio.write(str(path), meshio.Mesh(vertices, [("triangle", faces)]), file_format="stl")
     return path
+
+
+def timoshenko_tip_deflection(P, L, E, nu, width, height):
+    """Tip deflection of a cantilever of rectangular section under an end load:
+    bending PL³/(3EI) plus shear PL/(κGA) with κ = 5/6 for a rectangle (Timoshenko &
+    Gere, Mechanics of Materials). The handbook reference of several tests."""
+    inertia, area, shear = width * height**3 / 12, width * height, E / (2 * (1 + nu))
+    return P * L**3 / (3 * E * inertia) + P * L / (5 / 6 * shear * area)

@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from problems import beam_problem
+from problems import beam_problem, timoshenko_tip_deflection
 from topo.fem import Model
 from topo.problem import problem_from_dict
 
@@ -15,10 +15,8 @@ def tip_deflection(dim, L, H, h, E=1000.0, nu=0.3):
     u = a.displacements[:, 0].reshape(m.grid.n_nodes, dim)
     tip = np.isclose(m.grid.node_coords[:, 0], L)
     depth = 1.0 if dim == 2 else H
-    inertia, area, shear = depth * H**3 / 12, depth * H, E / (2 * (1 + nu))
-    # Timoshenko beam, tip load P = 1: δ = PL³/(3EI) + PL/(κGA), κ = 5/6 for a
-    # rectangle (Timoshenko & Gere, Mechanics of Materials).
-    reference = L**3 / (3 * E * inertia) + L / (5 / 6 * shear * area)
+    # Timoshenko beam with shear, tip load P = 1 (Timoshenko & Gere)
+    reference = timoshenko_tip_deflection(1.0, L, E, nu, depth, H)
     return -u[tip, 1].mean(), reference, a
 
 

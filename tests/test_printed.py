@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from problems import beam_problem, central_difference
+from problems import beam_problem, central_difference, timoshenko_tip_deflection
 from topo.deflection import Probe, deflection_gradient, deflections, unit_direction
 from topo.fem import Model
 from topo.integrity import enclosed_cavities, load_path
@@ -27,8 +27,7 @@ def test_tip_deflection_along_the_load_matches_timoshenko():
     L, H, E, nu = 100.0, 10.0, 1000.0, 0.3
     model = Model(problem_from_dict(beam_problem(2, [L, H], 0.5, E, nu)))
     a = model.analyze(np.ones(model.grid.n_elements))
-    inertia, area, shear = H**3 / 12, H, E / (2 * (1 + nu))
-    reference = L**3 / (3 * E * inertia) + L / (5 / 6 * shear * area)
+    reference = timoshenko_tip_deflection(1.0, L, E, nu, 1.0, H)
     delta = deflections(_tip_probe(model), a.displacements)[0]
     assert delta > 0  # the load points along -y, the probe too
     assert abs(delta / reference - 1) < 0.01
