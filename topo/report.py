@@ -10,7 +10,7 @@ import numpy as np
 from . import mesh as meshing
 from .checks import failed
 from .integrity import unreachable_regions
-from .printability import printable_envelope, unsupported_by_direction
+from .printability import printable_envelope
 from .printed import finite_or_none, relative_gap
 from .schema import format_setting, settings
 from .signoff import sign_off
@@ -60,8 +60,6 @@ def summarize(result, analysis_only: bool = False) -> dict:
         case["optimizer"] = {
             k: grey_case[k] for k in ("compliance_Nmm", "max_displacement_mm", "max_von_mises_MPa")
         }
-    printed_density = result.printed.density
-    by_direction = unsupported_by_direction(printed_density)
     return {
         "name": problem.name,
         "description": problem.description,
@@ -107,7 +105,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "build_direction": problem.build.direction if problem.build else None,
         "overhang_filter": bool(problem.build and problem.build.overhang_filter),
         "unsupported_fraction": figures["unsupported_fraction"],
-        "unsupported_by_direction": by_direction,
+        "unsupported_by_direction": figures["unsupported_by_direction"],
         "checks": figures["checks"],
         "checks_failed": failed(figures["checks"]),
         "caution": CAUTION,

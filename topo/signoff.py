@@ -17,7 +17,7 @@ from .deflection import deflections
 from .fatigue import assess
 from .integrity import enclosed_cavities, load_path
 from .lengthscale import minimum_wall_and_gap
-from .printability import SOLID, support_needed, unsupported_fraction
+from .printability import SOLID, support_needed, unsupported_by_direction
 from .printed import finite_or_none, relative_gap
 
 
@@ -116,7 +116,8 @@ def sign_off(result) -> dict:
     interfaces = interface_support(problem, model, part.density, grey)
     wall, gap = minimum_wall_and_gap(part.density, dom.element_size)
     build = problem.build
-    unsupported = unsupported_fraction(part.density, build.direction) if build else None
+    by_direction = unsupported_by_direction(part.density)
+    unsupported = by_direction[build.direction] if build else None
     deflection_rows = [
         {
             "name": p.name,
@@ -174,6 +175,7 @@ def sign_off(result) -> dict:
         "deflections": deflection_rows,
         "enclosed_cavities": cavities,
         "unsupported_fraction": unsupported,
+        "unsupported_by_direction": by_direction,
         "min_wall_mm": wall,
         "min_gap_mm": gap,
         "fatigue": fatigue,
