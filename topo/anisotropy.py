@@ -102,7 +102,10 @@ def yield_basis(material, build: str | None) -> str:
     )
     if build is None:
         return f"{named}, the weaker one: {NO_BUILD}"
-    return f"{named}; {CRITERION}"
+    return (
+        f"{named} at the angle θ of the largest principal stress to the build direction, "
+        "1/S² = cos²θ/S∥² + sin²θ/S⊥² (Tsai-Hill off-axis strength)"
+    )
 
 
 def yield_safety(material, build: str | None, stress: np.ndarray, von_mises: np.ndarray):

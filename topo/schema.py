@@ -256,7 +256,10 @@ SCHEMA: tuple[Section, ...] = (
                 "yield strength for the safety factors, in every direction; without it, a "
                 "named condition gives its yield along and across the build direction",
                 "MPa",
-                _from_preset("yield_strength", None),
+                Rule(
+                    "from the preset, else none; with a named condition, its weaker orientation",
+                    _from_preset("yield_strength", None).value,
+                ),
                 _POSITIVE,
             ),
             Key(
