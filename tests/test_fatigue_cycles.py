@@ -76,9 +76,10 @@ def test_swt_against_hand_calculations():
     assert np.isinf(swt_safety_factor(30.0, -40.0, 270.0))
 
 
-# Shigley's Mechanical Engineering Design (Budynas & Nisbett, 9th ed.), solution of
-# problem 6-15 as in a public copy of the solutions manual (coursehero.com,
-# "Mechanical Design budynas SM ch06"): fully reversed σa = 358.5 MPa, Se = 276 MPa give
+# Shigley's Mechanical Engineering Design (Budynas & Nisbett; the edition, 8th or 9th, is
+# recalled from memory), solution of problem 6-15 as in a public copy of the solutions
+# manual (coursehero.com, "Mechanical Design budynas SM ch06"): fully reversed
+# σa = √3·207 = 358.5 MPa, Se = 276 MPa give
 # n_f = 0.77 by Goodman, Gerber and ASME-elliptic alike; with f = 0.9 and Sut = 551 MPa
 # the S-N line through (10³, 0.9 Sut) and (10⁶, Se) has a = 891.0 MPa, b = −0.084828,
 # and 358.5 MPa lasts N = 45,800 cycles (S = a N^b, N in cycles).
@@ -543,3 +544,17 @@ def test_without_tensors_a_pair_is_bounded_from_above(rng):
     assert (exact.amplitudes[0] <= bound.amplitudes[0] + 1e-9).all()
     assert (np.abs(exact.means[0]) <= bound.means[0] + 1e-9).all()
     assert bound.amplitudes[0] == pytest.approx((vm[:, 0] + vm[:, 1]) / 2)
+
+
+def test_three_dimensional_bending_lies_within_the_layers_when_built_upwards():
+    """A 3D cantilever along x under a tip load in −z, built along +z: the bending
+    stress at the weakest point runs along x, within the layers (θ near 90°), so the
+    perpendicular ultimate governs (Ti-6Al-4V as-built: 1200 MPa, from memory)."""
+    d = beam_problem(dim=3)
+    d["material"] = {"preset": "Ti-6Al-4V", "condition": "as-built"}
+    d["load_case"][0]["force"][0]["total"] = [0.0, 0.0, -10.0]
+    d["load_case"][0].update(cycles=1e6, load_ratio=0.0)
+    d["build"] = {"direction": "+z", "overhang_filter": False}
+    block = analyze(problem_from_dict(d)).summary["fatigue"]
+    assert block["weakest_angle_to_build_deg"] > 60
+    assert 1200.0 <= block["weakest_ultimate_MPa"] < directional_strength(1250, 1200, 60)

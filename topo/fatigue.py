@@ -47,12 +47,14 @@ MEAN_STRESS_TEXT = {
         "Engineering Design, ch. 6); a compressive mean is taken as zero"
     ),
     "gerber": (
-        "Gerber parabola with the ultimate strength (W. Gerber, 1874): n σa/Sa + (n σm/Su)² "
+        "Gerber parabola with the ultimate strength (W. Gerber, Z. Bayer. Archit. Ing.-Ver. 6, "
+        "1874, recalled from memory): n σa/Sa + (n σm/Su)² "
         "= 1, proportional loading (as in Shigley's Mechanical Engineering Design, ch. 6); "
         "a compressive mean is taken as zero"
     ),
     "swt": (
-        "Smith-Watson-Topper (K. N. Smith, P. Watson, T. H. Topper, J. Materials 5, 1970): "
+        "Smith-Watson-Topper (K. N. Smith, P. Watson, T. H. Topper, 'A stress-strain function "
+        "for the fatigue of metals', J. Materials 5, 1970, recalled from memory): "
         "equivalent fully reversed amplitude √(σmax σa), none when σmax ≤ 0; n = Sa/√(σmax σa)"
     ),
 }
