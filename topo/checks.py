@@ -12,6 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 PASS, FAIL, NA = "PASS", "FAIL", "N/A"
+CORRECTION_NAMES = {"goodman": "Goodman", "gerber": "Gerber", "swt": "Smith-Watson-Topper"}
 
 
 @dataclass
@@ -43,6 +44,8 @@ class SignOffFigures:
     required_fatigue_safety_factor: float = 1.0
     fatigue_damage: float | None = None  # Miner's sum at the worst element
     fatigue_cycles: bool = False  # some load case gives a design life
+    fatigue_correction: str = "goodman"  # the mean-stress correction's name
+    yield_basis: str = ""  # which yield strength the safety factor used
 
 
 def _row(name: str, ok: bool | None, value, limit, detail: str) -> dict:
@@ -132,7 +135,8 @@ def safety_factor(f: SignOffFigures) -> dict:
         f.required_safety_factor,
         "yield strength over the peak von Mises stress of the printed part at element "
         "centres; weak at holes, fillets, supports and point loads, where the grid's stepped "
-        "surface under- or over-states the peak: verify with a body-fitted analysis",
+        "surface under- or over-states the peak: verify with a body-fitted analysis"
+        + (f"; yield: {f.yield_basis}" if f.yield_basis else ""),
     )
 
 
@@ -152,7 +156,8 @@ def fatigue_safety_factor(f: SignOffFigures) -> dict:
         ok,
         value,
         f.required_fatigue_safety_factor,
-        "Goodman safety factor on stress amplitude at the design life, least over the "
+        f"{CORRECTION_NAMES.get(f.fatigue_correction, f.fatigue_correction)} safety factor "
+        "on stress amplitude at the design life, least over the "
         "printed elements and load cases; indicative (defects and surface govern printed-"
         "metal fatigue)",
     )

@@ -22,6 +22,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
+import numpy as np
+
 CONDITIONS = ("as-built", "heat-treated", "hip")
 SURFACES = ("as-built", "machined")
 
@@ -157,24 +159,69 @@ class ConditionError(ValueError):
         super().__init__(f"{key}: {message}")
 
 
+DEFAULT_CONDITION = "as-built"  # the fatigue figures' condition when the file names none
+
+
+def basquin_from_points(points) -> tuple[float, float]:
+    """Basquin σf' and b of the curve through two S-N points [[N₁, S₁], [N₂, S₂]]
+    (cycles, fully reversed amplitude in MPa): S = σf' (2N)^b gives exactly
+    b = log(S₂/S₁) / log(N₂/N₁) and σf' = S₁ / (2N₁)^b.
+
+    >>> sf, b = basquin_from_points([[1e3, 495.9], [1e6, 276.0]])
+    >>> round(b, 6)
+    -0.084828
+    """
+    (n1, s1), (n2, s2) = sorted((float(n), float(s)) for n, s in points)
+    if n1 == n2:
+        raise ConditionError(
+            "material.sn_points", f"the two points have the same life ({n1:g} cycles)"
+        )
+    if s2 >= s1:
+        raise ConditionError(
+            "material.sn_points",
+            f"the S-N curve must decrease with life: {s2:g} MPa at {n2:g} cycles is not "
+            f"below {s1:g} MPa at {n1:g} cycles",
+        )
+    b = np.log(s2 / s1) / np.log(n2 / n1)
+    return float(s1 / (2 * n1) ** b), float(b)
+
+
+def condition_yields(material) -> tuple[float | None, float | None] | None:
+    """(parallel, perpendicular) yield strengths of the condition the material names,
+    or None when it names none or its alloy has no data for it."""
+    if material.condition is None:
+        return None
+    alloy = getattr(material, "preset", None) or material.name
+    cond = DATA.get(alloy, {}).get(material.condition)
+    return None if cond is None else (cond.yield_parallel, cond.yield_perpendicular)
+
+
 def condition_of(material) -> Condition:
     """The condition of a problem's Material: its preset's data for
-    `material.condition` and `material.surface`, with any value the problem gives
-    in place of the preset's. A material without data must give the S-N values."""
+    `material.condition` (as-built when none is named) and `material.surface`, with
+    any value the problem gives in place of the preset's. A material without data
+    must give the S-N values (Basquin parameters or two S-N points)."""
     alloy = getattr(material, "preset", None) or material.name
-    base = DATA.get(alloy, {}).get(material.condition)
+    condition = material.condition or DEFAULT_CONDITION
+    base = DATA.get(alloy, {}).get(condition)
     given = {k: getattr(material, k, None) for k in OVERRIDES}
+    points = getattr(material, "sn_points", None)
+    if points is not None:
+        sf, b = basquin_from_points(points)
+        # the two points and the file's endurance level (none: no knee) replace the curve
+        given.update(fatigue_strength_coefficient=sf, fatigue_strength_exponent=b)
     if base is None:
         for k in ("ultimate_strength", "fatigue_strength_coefficient", "fatigue_strength_exponent"):
             if given[k] is None:
                 raise ConditionError(
                     f"material.{k}",
                     f"no fatigue data for material {material.name!r} in condition "
-                    f"{material.condition!r} (data for: {', '.join(DATA)}): give the value",
+                    f"{condition!r} (data for: {', '.join(DATA)}): give the value"
+                    + (" (or material.sn_points)" if k != "ultimate_strength" else ""),
                 )
         base = Condition(
             material.name,
-            material.condition,
+            condition,
             "as-built",
             material.yield_strength,
             material.yield_strength,
@@ -189,15 +236,27 @@ def condition_of(material) -> Condition:
             "given in the problem file",
         )
     changes = {k: v for k, v in given.items() if v is not None and k not in ("ultimate_strength",)}
+    if points is not None:
+        changes["endurance_limit"] = given["endurance_limit"]
     if given["ultimate_strength"] is not None:
         changes["ultimate_parallel"] = changes["ultimate_perpendicular"] = given[
             "ultimate_strength"
         ]
     if changes:
-        named = ", ".join(k for k in OVERRIDES if given[k] is not None)
-        changes["source"] = f"{base.source}; given in the problem file: {named}"
+        named = [k for k in OVERRIDES if getattr(material, k, None) is not None]
+        if points is not None:
+            named.insert(0, "sn_points (two S-N points, converted to Basquin's form)")
+        changes["source"] = f"{base.source}; given in the problem file: {', '.join(named)}"
     cond = replace(base, surface=material.surface, **changes)
     check_sn(cond)
+    if points is not None and cond.endurance_limit is not None:
+        low = min(float(s) for _, s in points)
+        if cond.endurance_limit > low:
+            raise ConditionError(
+                "material.endurance_limit",
+                f"{cond.endurance_limit:g} MPa is above the S-N point of {low:g} MPa "
+                "(material.sn_points): the curve could not pass through it",
+            )
     return cond
 
 

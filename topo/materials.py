@@ -21,14 +21,20 @@ class Material:
     yield_strength: float | None = None  # MPa
     # fatigue: the build condition and surface (conditions.py), values given in place
     # of the condition's
-    condition: str = "as-built"
+    condition: str | None = None  # None: not named (fatigue takes as-built)
     surface: str = "as-built"
     ultimate_strength: float | None = None  # MPa
     fatigue_strength_coefficient: float | None = None  # MPa
     fatigue_strength_exponent: float | None = None
     endurance_limit: float | None = None  # MPa
     surface_factor: float | None = None
+    mean_stress_correction: str = "goodman"  # "goodman" | "gerber" | "swt"
+    sn_points: tuple[tuple[float, float], ...] | None = None  # [(cycles, MPa)] × 2
     preset: str | None = None  # the preset the values came from, if any
+    # yield by loading direction relative to the build direction (set by the problem
+    # parser from a named condition); None: yield_strength in every direction
+    yield_parallel: float | None = None
+    yield_perpendicular: float | None = None
 
     def lame(self) -> tuple[float, float]:
         """Lamé constants (λ, μ) of the solid material."""

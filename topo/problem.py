@@ -18,13 +18,13 @@ from __future__ import annotations
 
 import copy
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 import tomllib
 
-from .conditions import ConditionError, condition_of
+from .conditions import ConditionError, basquin_from_points, condition_of, condition_yields
 from .cost import CostRates
 from .materials import Material, find_preset
 from .schema import SECTIONS, Reader
@@ -158,6 +158,7 @@ class LoadCase:
     forces: tuple[Force, ...]
     cycles: float | None = None  # design life; None: no fatigue figures
     load_ratio: float = -1.0  # R = σmin/σmax; -1 fully reversed
+    cycles_with: str | None = None  # the case at the cycle's other end, in place of R
 
 
 @dataclass(frozen=True)
@@ -349,6 +350,8 @@ class _Parser(Reader):
         self.unique([s.name for s in supports], "support")
         self.unique([c.name for c in loads], "load_case")
         self.unique([c.name for c in loads], "load_case", field_name, "as field names")
+        for i, c in enumerate(loads):
+            self.cycle_pair(c, f"load_case[{i}]", top["load_case"][i], [x.name for x in loads])
         if any(c.cycles is not None for c in loads):
             try:
                 condition_of(material)
@@ -452,7 +455,31 @@ class _Parser(Reader):
     def material(self, value) -> Material:
         got = self.read("material", value, "material", {})
         preset = got.pop("preset")  # its values are the defaults of the others
-        return Material(**got, preset=find_preset(preset).name if preset else None)
+        mat = Material(**got, preset=find_preset(preset).name if preset else None)
+        if mat.sn_points is not None:
+            for k in ("fatigue_strength_coefficient", "fatigue_strength_exponent"):
+                if getattr(mat, k) is not None:
+                    self.fail(
+                        "material.sn_points",
+                        f"give either sn_points or the Basquin parameters, not both "
+                        f"(material.{k} is given too)",
+                    )
+            try:
+                basquin_from_points(mat.sn_points)
+            except ConditionError as exc:
+                self.fail(exc.key, exc.message)
+        yields = condition_yields(mat)
+        if yields is None:
+            return mat
+        if "yield_strength" in value:  # the file's value stands in every direction
+            yields = (mat.yield_strength, mat.yield_strength)
+        known = [v for v in yields if v]
+        return replace(
+            mat,
+            yield_strength=min(known) if known else mat.yield_strength,
+            yield_parallel=yields[0],
+            yield_perpendicular=yields[1],
+        )
 
     def optimization(self, value, domain: Domain) -> Optimization:
         got = self.read(
@@ -552,7 +579,33 @@ class _Parser(Reader):
             forces.append(Force(region, force["total"], force["at"], force["moment"]))
         if all(not any(f.total) and not any(f.moment or ()) for f in forces):
             self.fail(f"{key}.force", "the load case has zero total force and moment")
-        return LoadCase(got["name"], got["weight"], tuple(forces), got["cycles"], got["load_ratio"])
+        return LoadCase(
+            got["name"],
+            got["weight"],
+            tuple(forces),
+            got["cycles"],
+            got["load_ratio"],
+            got["cycles_with"],
+        )
+
+    def cycle_pair(self, case: LoadCase, key: str, raw: dict, names: list[str]) -> None:
+        """A case whose cycle runs to another case: that case exists, is another one,
+        and the cycle has a life but no load ratio."""
+        other = case.cycles_with
+        if other is None:
+            return
+        where = f"{key}.cycles_with"
+        if other not in names:
+            self.fail(where, f"no load case {other!r} (load cases: {', '.join(names)})")
+        if other == case.name:
+            self.fail(where, "names the load case itself: a cycle needs two different cases")
+        if case.cycles is None:
+            self.fail(f"{key}.cycles", "missing: a cycle between two load cases needs its life")
+        if "load_ratio" in raw:
+            self.fail(
+                f"{key}.load_ratio",
+                "give either load_ratio or cycles_with: the two load cases set the cycle",
+            )
 
     def deflection(
         self, d: dict, key: str, dim: int, cases: list[str], optimizer: str

@@ -18,6 +18,8 @@ from typing import Any
 from .conditions import CONDITIONS, SURFACES
 from .materials import PRESETS, find_preset
 
+MEAN_STRESS_CORRECTIONS = ("goodman", "gerber", "swt")
+
 AXES = ("x", "y", "z")
 DIRECTIONS = ("+x", "-x", "+y", "-y", "+z", "-z")
 FACES = tuple(f"{a}-{s}" for a in AXES for s in ("min", "max"))
@@ -26,6 +28,7 @@ FACES = tuple(f"{a}-{s}" for a in AXES for s in ("min", "max"))
 NUMBER, INTEGER, BOOL, STRING = "number", "whole number", "true/false", "string"
 VECTOR, LIST, REGION, TABLE, TABLES = "list of numbers", "list", "region", "table", "[[tables]]"
 MOMENT = "moment: Mz (2D) or [Mx, My, Mz] (3D)"
+SN_POINTS = "two [cycles, MPa] points"
 SCALARS = (NUMBER, INTEGER, BOOL, STRING)
 
 
@@ -250,16 +253,22 @@ SCHEMA: tuple[Section, ...] = (
             Key(
                 "yield_strength",
                 NUMBER,
-                "yield strength for the safety factors",
+                "yield strength for the safety factors, in every direction; without it, a "
+                "named condition gives its yield along and across the build direction",
                 "MPa",
-                _from_preset("yield_strength", None),
+                Rule(
+                    "from the preset, else none; with a named condition, its weaker orientation",
+                    _from_preset("yield_strength", None).value,
+                ),
                 _POSITIVE,
             ),
             Key(
                 "condition",
                 STRING,
-                "build condition whose strengths and S-N data the fatigue figures use",
-                default="as-built",
+                "build condition whose strengths and S-N data the fatigue figures use; named, "
+                "its yield by orientation also serves the static check (default: none named, "
+                "fatigue takes as-built and the static check the preset's yield_strength)",
+                default=None,
                 choices=CONDITIONS,
             ),
             Key(
@@ -309,6 +318,24 @@ SCHEMA: tuple[Section, ...] = (
                 "",
                 None,
                 "(0, 1]",
+            ),
+            Key(
+                "mean_stress_correction",
+                STRING,
+                "mean-stress correction of the fatigue figures: Goodman or Gerber (with the "
+                "ultimate strength, after Shigley's Mechanical Engineering Design) or "
+                "Smith-Watson-Topper (1970)",
+                default="goodman",
+                choices=MEAN_STRESS_CORRECTIONS,
+            ),
+            Key(
+                "sn_points",
+                SN_POINTS,
+                "the machined S-N curve through two points [[N1, S1], [N2, S2]] (cycles, "
+                "fully reversed amplitude), converted to Basquin's form; replaces the "
+                "condition's curve, with endurance_limit as its knee (none: no knee)",
+                "cycles, MPa",
+                None,
             ),
         ),
     ),
@@ -504,6 +531,15 @@ SCHEMA: tuple[Section, ...] = (
                 "",
                 -1.0,
                 "[-1, 1)",
+            ),
+            Key(
+                "cycles_with",
+                STRING,
+                "the load case at the other end of this case's stress cycle: the stress "
+                "alternates between the two cases' stress tensors (needs cycles; in place "
+                "of load_ratio)",
+                default=None,
+                check=_label,
             ),
             Key(
                 "force",
@@ -875,6 +911,8 @@ class Reader:
             return tuple(
                 dict.fromkeys(self.string(v, f"{where}[{i}]", choices) for i, v in enumerate(value))
             )
+        if kind == SN_POINTS:
+            return self.sn_points(value, where)
         if kind == TABLE:
             return self.table(value, where, None)
         if kind == TABLES:
@@ -885,6 +923,21 @@ class Reader:
                 self._missing(key, where, dim)
             return tables
         return value  # a region: problem.py reads its form
+
+    def sn_points(self, value, where: str) -> tuple[tuple[float, float], ...]:
+        pairs = value if isinstance(value, list) else []
+        if len(pairs) != 2 or not all(isinstance(p, list) and len(p) == 2 for p in pairs):
+            self.fail(
+                where,
+                f"expected two [cycles, MPa] points, e.g. [[1e3, 600], [1e6, 300]], got {value!r}",
+            )
+        return tuple(
+            (
+                self.number(n, f"{where}[{i}][0]", "[0.5, 1e15]", "a life in cycles"),
+                self.number(s, f"{where}[{i}][1]", _POSITIVE),
+            )
+            for i, (n, s) in enumerate(pairs)
+        )
 
     # the checks behind `value`, also used directly for a few structured fields
     def table(self, value, where: str, allowed: tuple[str, ...] | None) -> dict:

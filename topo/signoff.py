@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .anisotropy import yield_basis, yield_safety
 from .checks import SignOffFigures, run_checks
 from .deflection import deflections
 from .fatigue import assess
@@ -19,18 +20,29 @@ from .integrity import enclosed_cavities, load_path
 from .lengthscale import minimum_wall_and_gap
 from .printability import SOLID, support_needed, unsupported_by_direction
 from .printed import finite_or_none, relative_gap
+from .stress import centre_stresses
 
 
-def part_figures(problem, model, rho: np.ndarray, analysis, probes, solid: np.ndarray) -> dict:
+def part_figures(
+    problem, model, rho: np.ndarray, analysis, probes, solid: np.ndarray, stress=None
+) -> dict:
     """Figures of one density field (flat) and its analysis. Stresses are those of
     the solid material at element centres, over the elements of `solid` only (the
-    printed material); void and grey elements below ρ = 0.5 carry none."""
+    printed material); void and grey elements below ρ = 0.5 carry none. The yield
+    strength of the safety factors is the material's, or a named condition's by the
+    direction of the principal stress (anisotropy.yield_safety); `stress` gives the
+    centre stress tensors when they are already known."""
     dom, mat = problem.domain, problem.material
     weights = np.array([c.weight for c in problem.load_cases])
     volume = dom.element_volume * float(np.clip(rho, 0.0, 1.0).sum())
+    if stress is None:
+        stress = centre_stresses(model, analysis.displacements)
+    build = problem.build.direction if problem.build else None
+    safety = yield_safety(mat, build, stress[solid], analysis.von_mises[solid])
     cases = []
     for i, case in enumerate(problem.load_cases):
         peak = float(analysis.von_mises[solid, i].max()) if solid.any() else None
+        factor, strength, angle = safety[i]
         cases.append(
             {
                 "name": case.name,
@@ -38,9 +50,9 @@ def part_figures(problem, model, rho: np.ndarray, analysis, probes, solid: np.nd
                 "compliance_Nmm": finite_or_none(analysis.compliances[i]),
                 "max_displacement_mm": finite_or_none(analysis.max_displacement[i]),
                 "max_von_mises_MPa": finite_or_none(peak),
-                "safety_factor": finite_or_none(mat.yield_strength / peak)
-                if mat.yield_strength and peak
-                else None,
+                "safety_factor": finite_or_none(factor) if factor is not None and peak else None,
+                "yield_strength_MPa": strength,
+                "yield_angle_to_build_deg": angle,
                 "deflections_mm": {
                     p.name: finite_or_none(deflections(p, analysis.displacements)[i])
                     for p in probes
@@ -50,6 +62,7 @@ def part_figures(problem, model, rho: np.ndarray, analysis, probes, solid: np.nd
         )
     peaks = [c["max_von_mises_MPa"] for c in cases if c["max_von_mises_MPa"] is not None]
     peak = max(peaks) if peaks else None
+    factors = [c["safety_factor"] for c in cases if c["safety_factor"] is not None]
     active = model.active
     return {
         "mass_kg": volume * 1e-9 * mat.density,
@@ -57,9 +70,8 @@ def part_figures(problem, model, rho: np.ndarray, analysis, probes, solid: np.nd
         "volume_fraction": float(np.clip(rho[active], 0, 1).mean()) if active.any() else None,
         "compliance_Nmm": finite_or_none(weights @ analysis.compliances),
         "max_von_mises_MPa": peak,
-        "safety_factor": finite_or_none(mat.yield_strength / peak)
-        if mat.yield_strength and peak
-        else None,
+        "safety_factor": min(factors) if factors else None,
+        "yield_basis": yield_basis(mat, build),
         "load_cases": cases,
     }
 
@@ -104,7 +116,10 @@ def sign_off(result) -> dict:
     grey = result.density.ravel()
     part = result.printed
     solid = part.density.ravel() > 0.5
-    printed = part_figures(problem, model, part.density.ravel(), part.analysis, probes, solid)
+    stress = centre_stresses(model, part.analysis.displacements)  # (elements, cases, ns)
+    printed = part_figures(
+        problem, model, part.density.ravel(), part.analysis, probes, solid, stress
+    )
     optimizer = part_figures(problem, model, grey, result.analysis, probes, grey >= SOLID)
     for pc, gc in zip(printed["load_cases"], optimizer["load_cases"]):
         pc["compliance_gap"] = relative_gap(pc["compliance_Nmm"], gc["compliance_Nmm"])
@@ -128,7 +143,7 @@ def sign_off(result) -> dict:
         for p in probes
         for i in p.cases
     ]
-    fatigue = assess(problem, grid.element_centers, part.analysis.von_mises, solid)
+    fatigue = assess(problem, grid.element_centers, part.analysis.von_mises, solid, stress=stress)
     opt = problem.optimization
     figures = SignOffFigures(
         load_path_connected=path.connected,
@@ -137,6 +152,7 @@ def sign_off(result) -> dict:
         interfaces=interfaces,
         compliance_gaps={c["name"]: c["compliance_gap"] for c in printed["load_cases"]},
         safety_factor=printed["safety_factor"],
+        yield_basis=printed["yield_basis"],
         required_safety_factor=requirements.safety_factor,
         max_von_mises_MPa=printed["max_von_mises_MPa"],
         stress_limit_MPa=opt.stress_limit,
@@ -156,6 +172,7 @@ def sign_off(result) -> dict:
         required_fatigue_safety_factor=requirements.fatigue_safety_factor,
         fatigue_damage=fatigue["damage"] if fatigue else None,
         fatigue_cycles=fatigue is not None,
+        fatigue_correction=fatigue["mean_stress_method"] if fatigue else "goodman",
     )
     return {
         "printed": printed,

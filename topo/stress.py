@@ -42,6 +42,15 @@ def von_mises_matrix(dim: int) -> np.ndarray:
     return out
 
 
+def centre_stresses(model, displacements: np.ndarray) -> np.ndarray:
+    """Solid-material stress tensors at element centres, Voigt rows (n_elements,
+    n_cases, 3 or 6): 2D [σx, σy, τxy], 3D [σx, σy, σz, τyz, τxz, τxy], MPa."""
+    mat, grid = model.problem.material, model.grid
+    c = elasticity_matrix(grid.dim, mat.youngs_modulus, mat.poissons_ratio)
+    c = c @ centre_strain_displacement(grid.dim, grid.h)
+    return np.einsum("sn,enc->ecs", c, displacements[grid.element_dofs])
+
+
 class StressMeasure:
     def __init__(self, model, q: float = RELAXATION_EXPONENT, p_norm: float = 8.0):
         self.model, self.q, self.p = model, q, p_norm

@@ -6,7 +6,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..checks import FAIL, NA, PASS, failed
+from ..anisotropy import yield_basis, yield_safety
+from ..checks import CORRECTION_NAMES, FAIL, NA, PASS, failed
+from ..fatigue import assess
 from ..printed import finite_or_none, relative_gap
 from .outline import BLUR
 from .sizing import region_distance
@@ -54,7 +56,7 @@ def singular_row(at_points: list[str]) -> dict:
     )
 
 
-def safety_row(safety: float | None, required: float) -> dict:
+def safety_row(safety: float | None, required: float, basis: str = "") -> dict:
     if safety is None:
         return _row("safety_factor", None, None, required, "no yield strength given")
     return _row(
@@ -63,8 +65,35 @@ def safety_row(safety: float | None, required: float) -> dict:
         safety,
         required,
         "yield strength over the peak von Mises stress of the body-fitted verification "
-        "(recovered nodal stresses, finest mesh)",
+        "(recovered nodal stresses, finest mesh)" + (f"; yield: {basis}" if basis else ""),
     )
+
+
+def fatigue_rows(block: dict | None, required: float) -> list[dict]:
+    """The fatigue checks on the verification's stresses (none without cycles)."""
+    if block is None:
+        return []
+    name = CORRECTION_NAMES.get(block["mean_stress_method"], block["mean_stress_method"])
+    value, damage = block["safety_factor"], block["damage"]
+    return [
+        _row(
+            "fatigue_safety_factor",
+            value is None or value >= required,
+            value,
+            required,
+            f"{name} safety factor on stress amplitude at the design life, least over the "
+            "nodes of the body-fitted verification (finest mesh) and the load cases; "
+            "indicative (defects and surface govern printed-metal fatigue)",
+        ),
+        _row(
+            "fatigue_damage",
+            damage < 1.0,
+            damage,
+            1.0,
+            "Miner's damage sum of the load cases' design lives at the worst node of the "
+            "body-fitted verification",
+        ),
+    ]
 
 
 def _named_regions(problem) -> list[tuple[str, object]]:
@@ -130,6 +159,9 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
     h = problem.domain.element_size
     fy = problem.material.yield_strength
     finest = levels[-1][2]
+    build = problem.build.direction if problem.build else None
+    tensors = np.transpose(finest.stress, (0, 2, 1))  # (nodes, cases, components)
+    yields = yield_safety(problem.material, build, tensors, finest.von_mises)
     grid_cases = (result.summary or {}).get("load_cases") or [{} for _ in problem.load_cases]
     point_like = [m for m in finest.mappings if m.point_like]
     cases, changes, singular = [], {}, []
@@ -158,9 +190,11 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
                 "name": case.name,
                 "nearest_region": near,
                 "peak_at_point_like": at,
-                "safety_factor": finite_or_none(fy / top["max_von_mises_MPa"])
-                if fy and top["max_von_mises_MPa"]
+                "safety_factor": finite_or_none(yields[c][0])
+                if yields[c][0] is not None and top["max_von_mises_MPa"]
                 else None,
+                "yield_strength_MPa": yields[c][1],
+                "yield_angle_to_build_deg": yields[c][2],
                 "meshes": per,
                 "change_to_previous_mesh": change,
                 "grid": grid_fig,
@@ -181,9 +215,20 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
         cases.append(top)
     peaks = [c["max_von_mises_MPa"] for c in cases if c["max_von_mises_MPa"] is not None]
     peak = max(peaks) if peaks else None
-    safety = finite_or_none(fy / peak) if fy and peak else None
+    factors = [c["safety_factor"] for c in cases if c["safety_factor"] is not None]
+    safety = min(factors) if factors and peak else None
     required = problem.checks.safety_factor
-    rows = [safety_row(safety, required), convergence_row(changes), singular_row(singular)]
+    fatigue = assess(
+        problem,
+        finest.points,
+        finest.von_mises,
+        np.ones(len(finest.points), dtype=bool),
+        stress=tensors,
+        source=STRESS_SOURCE + "; nodal stresses",
+    )
+    basis = yield_basis(problem.material, build)
+    rows = [safety_row(safety, required, basis), convergence_row(changes), singular_row(singular)]
+    rows += fatigue_rows(fatigue, problem.checks.fatigue_safety_factor)
     return {
         "geometry": "the domain less its void regions, exact"
         if exact
@@ -231,12 +276,22 @@ def verification_figures(result, levels, exact: bool, base: float, runtime: floa
         "load_cases": cases,
         "max_von_mises_MPa": peak,
         "yield_strength_MPa": fy,
+        "yield_basis": basis,
         "safety_factor": safety,
+        "fatigue": fatigue,
         "required_safety_factor": required,
         "checks": rows,
         "checks_failed": failed(rows),
         "runtime_s": round(runtime, 3),
     }
+
+
+def _fatigue_headline(block: dict | None) -> dict | None:
+    """The headline of a fatigue block, kept beside the verified one."""
+    if not block:
+        return None
+    keys = ("stress_source", "safety_factor", "governing_load_case", "weakest_location_mm")
+    return {k: block.get(k) for k in keys + ("damage",)}
 
 
 def apply_to_summary(summary: dict, figures: dict) -> dict:
@@ -254,6 +309,12 @@ def apply_to_summary(summary: dict, figures: dict) -> dict:
     out["grid_max_von_mises_MPa"] = grid_peak
     out["grid_safety_factor"] = grid_sf
     out["verified_vs_grid_stress"] = relative_gap(figures["max_von_mises_MPa"], grid_peak)
+    if figures.get("fatigue") is not None:
+        grid_fatigue = summary.get("fatigue")
+        if summary.get("stress_source") == STRESS_SOURCE:
+            grid_fatigue = summary.get("grid_fatigue")
+        out["fatigue"] = figures["fatigue"]
+        out["grid_fatigue"] = _fatigue_headline(grid_fatigue)
     replaced = {r["name"] for r in figures["checks"]}
     rows = [r for r in summary.get("checks", []) if r["name"] not in replaced]
     limit = summary.get("stress_limit_MPa")
