@@ -204,3 +204,18 @@ def compare(problem, cases, stress: np.ndarray) -> list[dict]:
                 }
             )
     return rows
+
+
+def allowed_peak(cond: Condition, cycles: float, load_ratio: float, safety_factor: float) -> float:
+    """The largest peak von Mises stress σmax of a cycle with load ratio R that keeps
+    a Goodman safety factor n at `cycles`: with σa = σmax(1 − R)/2, σm = σmax(1 + R)/2
+    on the line σa/Sa + σm/Su = 1/n (Sa the S-N strength at that life, Su the
+    condition's ultimate; see MEAN_STRESS),
+
+        σmax = 2 / (n · ((1 − R)/Sa + (1 + R)/Su)).
+
+    Without an ultimate the mean is not corrected (σmax = 2 Sa / (n (1 − R)))."""
+    strength = sn_strength(cond, cycles)
+    ultimate = cond.ultimate
+    per_peak = (1 - load_ratio) / strength + ((1 + load_ratio) / ultimate if ultimate else 0.0)
+    return 2.0 / (safety_factor * per_peak)

@@ -12,6 +12,7 @@ from .checks import failed
 from .integrity import unreachable_regions
 from .printability import printable_envelope
 from .printed import finite_or_none, relative_gap
+from .responses import loop_stress_limits
 from .schema import format_setting, settings
 from .signoff import sign_off
 from .stress import relax
@@ -41,6 +42,12 @@ NOTES = {
         "field (what a stress_limit constrains)"
     ),
     "compliance_gap": "(printed - optimiser) / optimiser weighted compliance",
+    "loop_stress_limits": (
+        "per load case, the peak von Mises stress the optimiser bounded (corrected p-norm "
+        "of the relaxed stress of the grey field): optimization.stress_limit, or with "
+        "optimization.fatigue_life the peak at checks.fatigue_safety_factor on Goodman's "
+        "line at that life, whichever is lower; the printed part is checked, not bounded"
+    ),
 }
 
 
@@ -96,6 +103,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "min_gap_mm": figures["min_gap_mm"],
         "fatigue": figures["fatigue"],
         "stress_limit_MPa": problem.optimization.stress_limit,
+        "loop_stress_limits": loop_stress_limits(problem),
         "notes": NOTES,
         "iterations": len(result.history),
         "converged": bool(result.converged),

@@ -62,13 +62,17 @@ class StressMeasure:
         """s_el = ρ_e^q σ_vm,el (MPa), shape (n_elements, n_cases)."""
         return relax(rho, self._stresses(analysis)[1], self.q)
 
-    def aggregate(self, rho: np.ndarray, analysis, gradient: bool = True):
+    def aggregate(self, rho: np.ndarray, analysis, gradient: bool = True, scale=None):
         """(σ_PN, dσ_PN/dρ or None, max s): the aggregate, with `gradient` its
-        derivative (one adjoint solve per load case), and the true peak it estimates."""
+        derivative (one adjoint solve per load case), and the true peak it estimates.
+        `scale` (n_cases,) weighs each load case's stress, s_el = k_l ρ_e^q σ_vm,el
+        (k_l = 1/limit of case l: one aggregate of the stresses over their own
+        limits; k_l = 0 leaves case l out); None weighs every case by 1."""
         model = self.model
         sig, vm = self._stresses(analysis)
+        k = np.ones(vm.shape[1]) if scale is None else np.asarray(scale, dtype=float)
         rq = rho[:, None] ** self.q
-        s = rq * vm
+        s = rq * vm * k
         smax = float(s.max())
         if smax <= 0:
             return 0.0, np.zeros_like(rho) if gradient else None, 0.0
@@ -83,9 +87,9 @@ class StressMeasure:
         # d(ρ^q)/dρ is unbounded at ρ = 0 (void passive elements); there s = 0 and
         # so w = 0, and a floor on ρ keeps the product finite
         floor = np.maximum(rho, 1e-9)[:, None]
-        explicit = (w * self.q * floor ** (self.q - 1.0) * vm).sum(axis=1)
-        # adjoint loads: Σ_e w ρ^q Cᵀ M σ / v, assembled over element dofs
-        coef = np.where(vm > 0, w * rq / safe, 0.0)  # (ne, nc)
+        explicit = (w * self.q * floor ** (self.q - 1.0) * vm * k).sum(axis=1)
+        # adjoint loads: Σ_e w k ρ^q Cᵀ M σ / v, assembled over element dofs
+        coef = np.where(vm > 0, w * k * rq / safe, 0.0)  # (ne, nc)
         local = np.einsum("ec,ns,st,ect->enc", coef, self.c.T, self.m, sig)  # (ne, nde, nc)
         grid = model.grid
         f_adj = np.zeros((grid.n_dofs, sig.shape[1]))
