@@ -194,13 +194,16 @@ def compare(problem, cases, stress: np.ndarray) -> list[dict]:
             except ValueError:  # no data for this condition of a custom material
                 continue
             got = evaluate(cond, cases, stress)
-            factor = min(float(f.min()) for f in got["factors"])
+            k = int(np.argmin([f.min() for f in got["factors"]]))  # the governing case
+            j = int(np.argmin(got["factors"][k]))  # its weakest element
             rows.append(
                 {
                     "condition": condition,
                     "surface": surface,
-                    "safety_factor": _finite(factor),
+                    "safety_factor": _finite(got["factors"][k][j]),
                     "damage": float(got["damage"].max()),
+                    "governing_load_case": cases[k][1].name,
+                    "life_at_weakest_cycles": _finite(got["lives"][k][j]),
                 }
             )
     return rows

@@ -340,15 +340,40 @@ def format_fatigue(summary: dict) -> list[str]:
             f"    {c['name']}: {c['cycles']:.3g} cycles at R = {c['load_ratio']:g}, amplitude "
             f"{_num(c['amplitude_at_weakest_MPa'])} MPa, mean {_num(c['mean_at_weakest_MPa'])} "
             f"MPa, strength at life {_num(c['strength_at_life_MPa'])} MPa, life "
-            f"{_num(c['life_at_weakest_cycles'], '.3g')} cycles"
+            f"{_life(c['life_at_weakest_cycles'])}"
         )
-    lines.append("    the same design by condition and surface (safety factor, damage):")
+    lines.append(
+        "    the same design by condition and surface (safety factor, damage, governing load "
+        "case and the life at its weakest point; * the chosen one):"
+    )
     for r in f["comparison"]:
+        chosen = "*" if (r["condition"], r["surface"]) == (f["condition"], f["surface"]) else " "
+        life = (
+            f" (life {_life(r['life_at_weakest_cycles'])})" if "life_at_weakest_cycles" in r else ""
+        )  # summaries written before these columns have none
         lines.append(
-            f"      {r['condition']:<13} {r['surface']:<9} {_num(r['safety_factor'], '.3g'):>7}"
-            f"  {_num(r['damage'], '.3g')}"
+            f"     {chosen}{r['condition']:<13} {r['surface']:<9} "
+            f"{_num(r['safety_factor'], '.3g'):>7}  {_num(r['damage'], '.3g'):>9}  "
+            f"{r.get('governing_load_case', '')}{life}"
         )
-    return lines
+    return lines + _loop_limits(summary)
+
+
+def _life(cycles) -> str:
+    return "unbounded" if cycles is None else f"{cycles:.3g} cycles"
+
+
+def _loop_limits(summary: dict) -> list[str]:
+    """The stress bound each load case had in the loop, beside its printed peak."""
+    rows = [r for r in summary.get("loop_stress_limits") or [] if r["limit_MPa"] is not None]
+    if not rows:
+        return []
+    peaks = {c["name"]: c["max_von_mises_MPa"] for c in summary["load_cases"]}
+    return ["    bounded in the loop (grey design, corrected p-norm):"] + [
+        f"      {r['name']}: peak {_num(r['limit_MPa'])} MPa from {r['governed_by']}; printed "
+        f"part's peak {_num(peaks.get(r['name']))} MPa"
+        for r in rows
+    ]
 
 
 def format_checks(summary: dict) -> list[str]:
