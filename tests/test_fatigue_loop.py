@@ -18,7 +18,7 @@ from topo.fem import Model
 from topo.materials import PRESETS
 from topo.problem import problem_from_dict
 from topo.responses import Responses, case_stress_limits, loop_stress_limits
-from topo.stress import RELAXATION_EXPONENT
+from topo.stress import RELAXATION_EXPONENT, StressMeasure
 
 
 def condition(sf: float, b: float, ultimate: float) -> Condition:
@@ -246,3 +246,30 @@ def test_fatigue_life_brings_the_printed_part_to_its_required_safety_factor():
     assert free["loop_stress_limits"] == [
         {"name": "service", "limit_MPa": None, "governed_by": None}
     ]
+
+
+@pytest.mark.parametrize("dim", [2, 3])
+def test_scaled_aggregate_gradient_matches_finite_differences(dim, rng):
+    """The p-norm of the case stresses over per-case limits, one case left out
+    (scale 0), against central differences in ρ."""
+    d = beam_problem(dim, [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0], 1.0)
+    corner = [6.0, 3.0] if dim == 2 else [4.0, 2.0, 2.0]
+    add_point_load(d, "side", corner, [1.0, 0.5] + ([0.2] if dim == 3 else []))
+    add_point_load(d, "up", corner, [0.0, 2.0] + ([0.0] if dim == 3 else []))
+    model = Model(problem_from_dict(d))
+    measure = StressMeasure(model)
+    scale = np.array([1 / 3.0, 1 / 7.0, 0.0])
+    rho = rng.uniform(0.2, 1.0, model.grid.n_elements)
+    analysis = model.analyze(rho)
+    value, grad, _ = measure.aggregate(rho, analysis, scale=scale)
+    # the left-out case does not count
+    s = rho[:, None] ** RELAXATION_EXPONENT * analysis.von_mises[:, :2] * scale[:2]
+    assert value == pytest.approx(np.sum(s**8) ** (1 / 8), rel=1e-12)
+    for _ in range(2):
+        v = rng.normal(size=rho.size)
+        fd = central_difference(
+            lambda r: measure.aggregate(r, model.analyze(r), gradient=False, scale=scale)[0],
+            rho,
+            v,
+        )
+        assert grad @ v == pytest.approx(fd, rel=1e-6)

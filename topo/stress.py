@@ -10,7 +10,9 @@ Aggregate: the p-norm σ_PN = (Σ_{e,l} s_el^P)^(1/P) over elements and load cas
 P = 8. It over-estimates nothing and under-estimates the peak; the design loop
 multiplies it by the adaptive correction of Le et al. (2010),
 c_k = α (max s / σ_PN)_{k−1} + (1 − α) c_{k−1}, α = 0.5, so that the constraint
-c·σ_PN ≤ σ_limit acts on an estimate of the true peak.
+c·σ_PN ≤ σ_limit acts on an estimate of the true peak. With one limit per load case
+(responses.StressLimit) each case's stresses are first divided by its limit,
+s_el = ρ_e^q σ_vm,el / L_l, and the constraint reads c·σ_PN ≤ 1.
 
 Sensitivity by the adjoint method: with w_el = ∂σ_PN/∂s_el and v = σ_vm,
 dσ_PN/dρ_e = Σ_l [ w_el q ρ_e^(q−1) v_el − E'(ρ_e) λ_l,eᵀ k0 u_l,e ],
