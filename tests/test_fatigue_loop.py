@@ -273,3 +273,13 @@ def test_scaled_aggregate_gradient_matches_finite_differences(dim, rng):
             v,
         )
         assert grad @ v == pytest.approx(fd, rel=1e-6)
+
+
+def test_topo_check_names_each_cases_bound(tmp_path, capsys):
+    f = tmp_path / "p.toml"
+    f.write_text(TEXT.format(opt="fatigue_life = 1e6", case="cycles = 1e6\nload_ratio = 0.1"))
+    assert main(["check", str(f)]) == 0
+    out = capsys.readouterr().out
+    peak = allowed_peak(condition_of(problem_from_dict(bracket()).material), 1e6, 0.1, 1.0)
+    assert "load case down (weight 1.0): total force [0, -10] N; peak von Mises bounded at " in out
+    assert f"bounded at {peak:.4g} MPa (from fatigue_life)" in out

@@ -220,6 +220,7 @@ def model_report(model) -> dict:
     problem, grid = model.problem, model.grid
     loads = model.loads
     cases = []
+    bounds = loop_stress_limits(problem)
     for i, case in enumerate(problem.load_cases):
         applied = loads.reshape(grid.n_nodes, grid.dim, -1)[:, :, i].sum(axis=0)
         on_fixed = loads[model.fixed_dofs, i]
@@ -229,6 +230,7 @@ def model_report(model) -> dict:
                 "weight": case.weight,
                 "total_force_N": [float(v) for v in applied],
                 "force_on_fixed_dofs_N": float(np.abs(on_fixed).sum()),
+                "stress_bound": bounds[i],  # what the loop will bound, if anything
             }
         )
     from .resources import estimate
@@ -480,6 +482,12 @@ def format_check(rep: dict) -> list[str]:
             if c["force_on_fixed_dofs_N"] > 0
             else ""
         )
+        bound = c.get("stress_bound") or {}
+        if bound.get("limit_MPa") is not None:
+            extra += (
+                f"; peak von Mises bounded at {bound['limit_MPa']:.4g} MPa "
+                f"(from {bound['governed_by']})"
+            )
         lines.append(
             f"  load case {c['name']} (weight {c['weight']}): total force [{tot}] N{extra}"
         )
