@@ -182,6 +182,11 @@ def _figures_section(s: dict) -> str:
     return "".join(out)
 
 
+def _life(cycles):
+    """A life in cycles; None is a life without bound (below the endurance knee)."""
+    return "unbounded" if cycles is None else cycles
+
+
 def _fatigue_section(s: dict) -> str:
     """The fatigue figures of the chosen condition per load case, the same design in
     every condition and surface, and what the loop bounded; empty without cycles."""
@@ -197,7 +202,7 @@ def _fatigue_section(s: dict) -> str:
             c["mean_at_weakest_MPa"],
             c["strength_at_life_MPa"],
             c["safety_factor"],
-            c["life_at_weakest_cycles"],
+            _life(c["life_at_weakest_cycles"]),
         ]
         for c in f["load_cases"]
     ]
@@ -209,7 +214,7 @@ def _fatigue_section(s: dict) -> str:
             r["safety_factor"],
             r["damage"],
             r.get("governing_load_case"),
-            r.get("life_at_weakest_cycles"),
+            _life(r.get("life_at_weakest_cycles", "")),
         ]
         for r in f["comparison"]
     ]
@@ -221,7 +226,7 @@ def _fatigue_section(s: dict) -> str:
     ]
     out = [
         "<h2>Fatigue</h2>",
-        f'<p class="caution">{_e(f["caution"])}.</p>',
+        f'<p class="caution">{_e(f["caution"][0].upper() + f["caution"][1:])}.</p>',
         f"<p>{_e(f['material']['alloy'])}, {_e(f['condition'])} condition, "
         f"{_e(f['surface'])} surface; {_e(f['mean_stress_correction'])}. Safety factor "
         f"{_e(fmt(f['safety_factor']))} (load case {_e(f['governing_load_case'])}), "
@@ -235,7 +240,7 @@ def _fatigue_section(s: dict) -> str:
                 "mean there (MPa)",
                 "S-N strength at the life (MPa)",
                 "safety factor",
-                "life there (cycles; n/a: unbounded)",
+                "life there (cycles)",
             ],
             cases,
         ),
@@ -248,7 +253,7 @@ def _fatigue_section(s: dict) -> str:
                 "safety factor",
                 "damage",
                 "governing load case",
-                "life at its weakest element (cycles; n/a: unbounded)",
+                "life at its weakest element (cycles)",
             ],
             comparison,
             marks,
