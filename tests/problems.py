@@ -194,3 +194,34 @@ def timoshenko_tip_deflection(P, L, E, nu, width, height):
     Gere, Mechanics of Materials). The handbook reference of several tests."""
     inertia, area, shear = width * height**3 / 12, width * height, E / (2 * (1 + nu))
     return P * L**3 / (3 * E * inertia) + P * L / (5 / 6 * shear * area)
+
+
+def l_bracket(**opt):
+    """L-shaped plate: the re-entrant corner is the classic stress benchmark shape."""
+    return {
+        "name": "l-bracket",
+        "domain": {"size": [40.0, 40.0], "element_size": 1.0, "thickness": 1.0},
+        "material": {
+            "youngs_modulus": 1000.0,
+            "poissons_ratio": 0.3,
+            "density": 1.0,
+            "yield_strength": 3.0,
+        },
+        "optimization": {
+            "volume_fraction": 0.4,
+            "optimizer": "mma",
+            "projection": False,
+            "filter_radius": 1.5,
+            "max_iterations": 150,
+            **opt,
+        },
+        "support": [{"region": {"box": {"min": [0, 40], "max": [16, 40]}}}],
+        "passive": [{"kind": "void", "region": {"box": {"min": [16, 16], "max": [40, 40]}}}],
+        "load_case": [
+            {
+                "force": [
+                    {"region": {"box": {"min": [40, 10], "max": [40, 16]}}, "total": [0.0, -1.0]}
+                ]
+            }
+        ],
+    }

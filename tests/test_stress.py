@@ -4,7 +4,7 @@ plate against Kirsch, and a stress-limited design."""
 import numpy as np
 import pytest
 
-from problems import add_point_load, beam_problem, central_difference
+from problems import add_point_load, beam_problem, central_difference, l_bracket
 from topo.design import analyze, optimize
 from topo.elements import centre_strain_displacement, elasticity_matrix
 from topo.fem import Model
@@ -78,37 +78,6 @@ def test_hole_in_a_wide_plate_shows_the_kirsch_concentration():
     # far from the hole (and from the loaded edge, where even nodal shares are not
     # the consistent load) the plate carries the nominal stress
     assert sx[int(70 / h), int(90 / h)] / s0 == pytest.approx(1.0, abs=0.03)
-
-
-def l_bracket(**opt):
-    """L-shaped plate: the re-entrant corner is the classic stress benchmark shape."""
-    return {
-        "name": "l-bracket",
-        "domain": {"size": [40.0, 40.0], "element_size": 1.0, "thickness": 1.0},
-        "material": {
-            "youngs_modulus": 1000.0,
-            "poissons_ratio": 0.3,
-            "density": 1.0,
-            "yield_strength": 3.0,
-        },
-        "optimization": {
-            "volume_fraction": 0.4,
-            "optimizer": "mma",
-            "projection": False,
-            "filter_radius": 1.5,
-            "max_iterations": 150,
-            **opt,
-        },
-        "support": [{"region": {"box": {"min": [0, 40], "max": [16, 40]}}}],
-        "passive": [{"kind": "void", "region": {"box": {"min": [16, 16], "max": [40, 40]}}}],
-        "load_case": [
-            {
-                "force": [
-                    {"region": {"box": {"min": [40, 10], "max": [40, 16]}}, "total": [0.0, -1.0]}
-                ]
-            }
-        ],
-    }
 
 
 def test_stress_limited_design_meets_its_limit():

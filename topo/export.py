@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from . import mesh as meshing
+from .fatigue_figure import fatigue_figure
 from .files import atomic_write, pyplot, strict_json, write_figure, write_meshio, write_text
 from .pictures import deflection_figure, design_figure, stress_figure
 from .problem import field_name
@@ -184,6 +185,7 @@ EXPORTERS: dict[str, Callable] = {
 }
 # drawn on the default design mesh in 3D: export makes it once for all of them
 PICTURES = ("design.png", "stress.png", "deflection.png")
+FATIGUE = "fatigue.png"  # when a load case gives cycles: drawn from the summary's figures
 SUMMARY = "summary.json"
 REPORT = "report.html"  # read from the files above; written just before the summary
 
@@ -228,6 +230,11 @@ def export(
         else:
             writer(result, out / name)
         written.append(out / name)
+    if summary.get("fatigue") and (only is None or FATIGUE in only):
+        write_figure(out / FATIGUE, fatigue_figure(result.problem, summary["fatigue"]))
+        written.append(out / FATIGUE)
+    elif only is None:  # one of an earlier run with cycles would mislead report.html
+        (out / FATIGUE).unlink(missing_ok=True)
     if only is None or REPORT in only:
         write_text(out / REPORT, build_report(out, summary))
         written.append(out / REPORT)

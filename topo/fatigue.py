@@ -417,13 +417,51 @@ def compare(
             except ValueError:  # no data for this condition of a custom material
                 continue
             got = evaluate(cond, cases, None, cycles=cycles, correction=method)
-            factor = min(float(f.min()) for f in got["factors"])
+            k = int(np.argmin([f.min() for f in got["factors"]]))  # the governing case
+            j = int(np.argmin(got["factors"][k]))  # its weakest element
             rows.append(
                 {
                     "condition": condition,
                     "surface": surface,
-                    "safety_factor": _finite(factor),
+                    "safety_factor": _finite(got["factors"][k][j]),
                     "damage": float(got["damage"].max()),
+                    "governing_load_case": cases[k][1].name,
+                    "life_at_weakest_cycles": _finite(got["lives"][k][j]),
                 }
             )
     return rows
+
+
+def allowed_peak(
+    cond: Condition,
+    cycles: float,
+    load_ratio: float,
+    safety_factor_required: float,
+    correction: str = "goodman",
+) -> float:
+    """The largest peak von Mises stress σmax of a cycle with load ratio R whose
+    safety factor under the named mean-stress correction is n at `cycles`, with
+    σa = σmax(1 − R)/2, σm = σmax(1 + R)/2, Sa the S-N strength at that life and Su
+    the condition's ultimate (the weaker orientation: the loop does not know the
+    stress directions of the printed part). Goodman, σa/Sa + σm/Su = 1/n:
+
+        σmax = 2 / (n · ((1 − R)/Sa + (1 + R)/Su));
+
+    Gerber, n σa/Sa + (n σm/Su)² = 1, the positive root of that quadratic in σmax;
+    SWT, √(σmax σa) = Sa/n, σmax = (Sa/n) √(2/(1 − R)). A compressive mean gets no
+    credit (Goodman and Gerber take σm ≥ 0 as in `safety_factor`). Without an
+    ultimate the mean is not corrected (σmax = 2 Sa / (n (1 − R)))."""
+    strength = sn_strength(cond, cycles)
+    ultimate = cond.ultimate
+    n = safety_factor_required
+    a = (1 - load_ratio) / 2  # σa per unit σmax
+    m = max((1 + load_ratio) / 2, 0.0)  # σm per unit σmax, tension only
+    if correction == "swt":
+        return strength / n / np.sqrt(a)
+    if not ultimate or m == 0.0:
+        return strength / (n * a)
+    if correction == "gerber":
+        # (n m/Su)² σ² + (n a/Sa) σ − 1 = 0
+        qa, qb = (n * m / ultimate) ** 2, n * a / strength
+        return float(2.0 / (qb + np.sqrt(qb * qb + 4.0 * qa)))
+    return 1.0 / (n * (a / strength + m / ultimate))

@@ -123,6 +123,7 @@ class Optimization:
     solver: str = "auto"
     checkpoint_interval: int = 10  # iterations between checkpoint.npz saves
     stress_limit: float | None = None  # MPa, on the corrected p-norm of the relaxed stress
+    fatigue_life: float | None = None  # cycles; a stress bound per load case with cycles
     symmetry: tuple[str, ...] = ()  # axes normal to mirror planes through the domain centre
 
 
@@ -357,6 +358,7 @@ class _Parser(Reader):
                 condition_of(material)
             except ConditionError as exc:
                 self.fail(exc.key, exc.message)
+        self.fatigue_life(opt, loads)
         passives = tuple(
             self.passive(p, f"passive[{i}]", dim) for i, p in enumerate(top["passive"])
         )
@@ -388,6 +390,30 @@ class _Parser(Reader):
             cost,
             report,
         )
+
+    def fatigue_life(self, opt: Optimization, loads: tuple[LoadCase, ...]) -> None:
+        """optimization.fatigue_life bounds the stress of the cases with cycles: it
+        needs one, and a constraint-taking optimizer. A loop life below a case's own
+        design life is allowed (the check on the printed part still asks for the
+        case's cycles) but said."""
+        if opt.fatigue_life is None:
+            return
+        key = "optimization.fatigue_life"
+        if opt.optimizer == "oc":
+            self.fail(key, 'a fatigue stress bound needs optimizer = "mma" or "gcmma"')
+        if not any(c.cycles is not None for c in loads):
+            self.fail(
+                key,
+                "no load case gives cycles: the bound applies to the cases with "
+                "load_case.cycles (and their load_ratio)",
+            )
+        for c in loads:
+            if c.cycles is not None and c.cycles > opt.fatigue_life:
+                self.warnings.append(
+                    f"{self.source}: {key}: {opt.fatigue_life:g} cycles is below load case "
+                    f"{c.name!r}'s design life ({c.cycles:g}): the loop designs for fewer "
+                    "cycles than its fatigue check asks"
+                )
 
     def unique(self, names: list[str], key: str, form=None, how: str = "") -> None:
         """Refuse two entries with one name (or one `form(name)`, said `how`)."""

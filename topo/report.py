@@ -8,10 +8,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import mesh as meshing
-from .checks import failed
+from .checks import CORRECTION_NAMES, failed
 from .integrity import unreachable_regions
 from .printability import printable_envelope
 from .printed import finite_or_none, relative_gap
+from .responses import loop_stress_limits
 from .schema import format_setting, settings
 from .signoff import sign_off
 from .stress import relax
@@ -36,11 +37,22 @@ NOTES = {
         "converged: verify with a body-fitted analysis before sign-off"
     ),
     "safety_factor": "yield strength over max_von_mises_MPa",
+    "yield_basis": (
+        "which yield strength the safety factor used (the condition's by direction, or "
+        "an explicit yield_strength)"
+    ),
     "optimizer.peak_relaxed_stress_MPa": (
         "largest density^0.5 times the solid-material stress over all elements of the grey "
         "field (what a stress_limit constrains)"
     ),
     "compliance_gap": "(printed - optimiser) / optimiser weighted compliance",
+    "loop_stress_limits": (
+        "per load case, the peak von Mises stress the optimiser bounded (corrected p-norm "
+        "of the relaxed stress of the grey field): optimization.stress_limit, or with "
+        "optimization.fatigue_life the peak at checks.fatigue_safety_factor on the chosen "
+        "mean-stress correction at that life, whichever is lower; the printed part is "
+        "checked, not bounded"
+    ),
 }
 
 
@@ -84,6 +96,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "load_cases": printed["load_cases"],
         "max_von_mises_MPa": printed["max_von_mises_MPa"],
         "safety_factor": printed["safety_factor"],
+        "yield_basis": printed["yield_basis"],
         "stress_source": GRID_STRESS_SOURCE,
         "required_safety_factor": problem.checks.safety_factor,
         "deflections": figures["deflections"],
@@ -96,6 +109,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "min_gap_mm": figures["min_gap_mm"],
         "fatigue": figures["fatigue"],
         "stress_limit_MPa": problem.optimization.stress_limit,
+        "loop_stress_limits": loop_stress_limits(problem),
         "notes": NOTES,
         "iterations": len(result.history),
         "converged": bool(result.converged),
@@ -212,6 +226,7 @@ def model_report(model) -> dict:
     problem, grid = model.problem, model.grid
     loads = model.loads
     cases = []
+    bounds = loop_stress_limits(problem)
     for i, case in enumerate(problem.load_cases):
         applied = loads.reshape(grid.n_nodes, grid.dim, -1)[:, :, i].sum(axis=0)
         on_fixed = loads[model.fixed_dofs, i]
@@ -221,6 +236,7 @@ def model_report(model) -> dict:
                 "weight": case.weight,
                 "total_force_N": [float(v) for v in applied],
                 "force_on_fixed_dofs_N": float(np.abs(on_fixed).sum()),
+                "stress_bound": bounds[i],  # what the loop will bound, if anything
             }
         )
     from .resources import estimate
@@ -323,7 +339,8 @@ def format_fatigue(summary: dict) -> list[str]:
     where = ", ".join(f"{v:g}" for v in f["weakest_location_mm"])
     lines = [
         f"  fatigue ({f['material']['alloy']}, {f['condition']}, {f['surface']} surface; "
-        f"Goodman, Miner; {f['caution'].split(':')[0]}): safety factor "
+        f"{CORRECTION_NAMES[f.get('mean_stress_method', 'goodman')]}, Miner; "
+        f"{f['caution'].split(':')[0]}): safety factor "
         f"{_num(f['safety_factor'], '.3g')} ({f['governing_load_case']}, at ({where}) mm), "
         f"damage {_num(f['damage'], '.3g')}"
     ]
@@ -332,15 +349,40 @@ def format_fatigue(summary: dict) -> list[str]:
             f"    {c['name']}: {c['cycles']:.3g} cycles at R = {c['load_ratio']:g}, amplitude "
             f"{_num(c['amplitude_at_weakest_MPa'])} MPa, mean {_num(c['mean_at_weakest_MPa'])} "
             f"MPa, strength at life {_num(c['strength_at_life_MPa'])} MPa, life "
-            f"{_num(c['life_at_weakest_cycles'], '.3g')} cycles"
+            f"{_life(c['life_at_weakest_cycles'])}"
         )
-    lines.append("    the same design by condition and surface (safety factor, damage):")
+    lines.append(
+        "    the same design by condition and surface (safety factor, damage, governing load "
+        "case and the life at its weakest point; * the chosen one):"
+    )
     for r in f["comparison"]:
+        chosen = "*" if (r["condition"], r["surface"]) == (f["condition"], f["surface"]) else " "
+        life = (
+            f" (life {_life(r['life_at_weakest_cycles'])})" if "life_at_weakest_cycles" in r else ""
+        )  # summaries written before these columns have none
         lines.append(
-            f"      {r['condition']:<13} {r['surface']:<9} {_num(r['safety_factor'], '.3g'):>7}"
-            f"  {_num(r['damage'], '.3g')}"
+            f"     {chosen}{r['condition']:<13} {r['surface']:<9} "
+            f"{_num(r['safety_factor'], '.3g'):>7}  {_num(r['damage'], '.3g'):>9}  "
+            f"{r.get('governing_load_case', '')}{life}"
         )
-    return lines
+    return lines + _loop_limits(summary)
+
+
+def _life(cycles) -> str:
+    return "unbounded" if cycles is None else f"{cycles:.3g} cycles"
+
+
+def _loop_limits(summary: dict) -> list[str]:
+    """The stress bound each load case had in the loop, beside its printed peak."""
+    rows = [r for r in summary.get("loop_stress_limits") or [] if r["limit_MPa"] is not None]
+    if not rows:
+        return []
+    peaks = {c["name"]: c["max_von_mises_MPa"] for c in summary["load_cases"]}
+    return ["    bounded in the loop (grey design, corrected p-norm):"] + [
+        f"      {r['name']}: peak {_num(r['limit_MPa'])} MPa from {r['governed_by']}; printed "
+        f"part's peak {_num(peaks.get(r['name']))} MPa"
+        for r in rows
+    ]
 
 
 def format_checks(summary: dict) -> list[str]:
@@ -447,6 +489,12 @@ def format_check(rep: dict) -> list[str]:
             if c["force_on_fixed_dofs_N"] > 0
             else ""
         )
+        bound = c.get("stress_bound") or {}
+        if bound.get("limit_MPa") is not None:
+            extra += (
+                f"; peak von Mises bounded at {bound['limit_MPa']:.4g} MPa "
+                f"(from {bound['governed_by']})"
+            )
         lines.append(
             f"  load case {c['name']} (weight {c['weight']}): total force [{tot}] N{extra}"
         )

@@ -183,32 +183,34 @@ class MaterialBudget(Term):
 
 
 class StressLimit(Term):
-    """c_k·σ_PN/σ_limit − 1 ≤ 0 on the p-norm of the relaxed stress, with the
-    adaptive correction c_k of Le et al. (2010, Struct. Multidisc. Optim. 41:605):
-    the latest ratio of the true peak to the aggregate blended with the previous
-    correction. Only the evaluation with gradient (the accepted design) updates c_k."""
+    """c_k·σ_PN − 1 ≤ 0 on the p-norm of the relaxed stress of each load case over
+    that case's limit, s_el / L_l (one aggregate over elements and cases: the largest
+    share of its limit any case reaches), with the adaptive correction c_k of Le et
+    al. (2010, Struct. Multidisc. Optim. 41:605): the latest ratio of the true peak
+    to the aggregate blended with the previous correction. Only the evaluation with
+    gradient (the accepted design) updates c_k. `limits` is one value for every
+    case, or one per case with inf for a case left unbounded."""
 
     name = "stress"
 
-    def __init__(self, model, limit: float, alpha: float = 0.5):
+    def __init__(self, model, limits, alpha: float = 0.5):
         from .stress import StressMeasure
 
-        self.measure, self.limit, self.alpha = StressMeasure(model), limit, alpha
+        n_cases = len(model.problem.load_cases)
+        self.limits = np.broadcast_to(np.asarray(limits, dtype=float), (n_cases,)).copy()
+        self.scale = 1.0 / self.limits  # 0 where a case has no bound
+        self.measure, self.alpha = StressMeasure(model), alpha
         self.correction: float | None = None
 
     def evaluate(self, rho, analysis, gradient: bool = True) -> Response:
         if not gradient:
-            pn = self.measure.aggregate(rho, analysis, gradient=False)[0]
-            return Response(self.name, self.correction * pn / self.limit)
-        pn, dpn, peak = self.measure.aggregate(rho, analysis)
+            pn = self.measure.aggregate(rho, analysis, gradient=False, scale=self.scale)[0]
+            return Response(self.name, self.correction * pn)
+        pn, dpn, peak = self.measure.aggregate(rho, analysis, scale=self.scale)
         ratio = peak / pn if pn > 0 else 1.0
         prev = self.correction
         self.correction = ratio if prev is None else self.alpha * ratio + (1 - self.alpha) * prev
-        return Response(
-            self.name,
-            self.correction * pn / self.limit,
-            gradient=self.correction * dpn / self.limit,
-        )
+        return Response(self.name, self.correction * pn, gradient=self.correction * dpn)
 
     def state(self) -> dict:
         return {"correction": np.array(np.nan if self.correction is None else self.correction)}
@@ -239,13 +241,73 @@ class DeflectionLimit(Term):
         return Response(self.name, delta**2, limit, gradient=2.0 * delta * d_delta)
 
 
+def loop_stress_limits(problem: Problem) -> list[dict]:
+    """Per load case, the peak von Mises stress the loop allows: {name, limit_MPa
+    (None: unbounded), governed_by ("stress_limit", "fatigue_life" or None)}.
+    optimization.stress_limit bounds every case; with optimization.fatigue_life each
+    case with cycles is bounded by the peak whose point on the chosen mean-stress
+    correction at the S-N strength of that life gives the required
+    checks.fatigue_safety_factor (fatigue.allowed_peak); the lower one governs.
+
+    A case cycling against another (`cycles_with`) is bounded as fully reversed, and
+    so is its partner: with both von Mises peaks ≤ σb the cycle's amplitude plus its
+    mean is at most σb, and on a correction line with Sa < Su the worst of those is
+    σa = σb, σm = 0."""
+    opt = problem.optimization
+    fatigue = {}
+    if opt.fatigue_life is not None:
+        from .conditions import condition_of
+        from .fatigue import allowed_peak
+
+        cond = condition_of(problem.material)
+
+        def bound(ratio):
+            return allowed_peak(
+                cond,
+                opt.fatigue_life,
+                ratio,
+                problem.checks.fatigue_safety_factor,
+                problem.material.mean_stress_correction,
+            )
+
+        for case in problem.load_cases:
+            if case.cycles is None:
+                continue
+            partner = getattr(case, "cycles_with", None)
+            if partner is None:
+                fatigue[case.name] = bound(case.load_ratio)
+            else:
+                reversed_ = bound(-1.0)
+                for name in (case.name, partner):
+                    fatigue[name] = min(fatigue.get(name, np.inf), reversed_)
+
+    rows = []
+    for case in problem.load_cases:
+        limit, by = opt.stress_limit, "stress_limit" if opt.stress_limit is not None else None
+        peak = fatigue.get(case.name)
+        if peak is not None and (limit is None or peak < limit):
+            limit, by = peak, "fatigue_life"
+        rows.append({"name": case.name, "limit_MPa": limit, "governed_by": by})
+    return rows
+
+
+def case_stress_limits(problem: Problem) -> np.ndarray | None:
+    """The limits of loop_stress_limits as an array (inf: no bound), None when no
+    case is bounded."""
+    limits = [r["limit_MPa"] for r in loop_stress_limits(problem)]
+    if all(v is None for v in limits):
+        return None
+    return np.array([np.inf if v is None else v for v in limits])
+
+
 def constraint_terms(problem: Problem, model, chain) -> list:
     """The constraints of a problem, the material budget first. Deflection limits
     are constraints for MMA and GCMMA; OC takes the budget only (the limits are
     then checked on the printed part, problem.py warns)."""
     terms = [MaterialBudget(problem, model, chain)]
-    if problem.optimization.stress_limit is not None:
-        terms.append(StressLimit(model, problem.optimization.stress_limit))
+    limits = case_stress_limits(problem)
+    if limits is not None:
+        terms.append(StressLimit(model, limits))
     if problem.optimization.optimizer != "oc":
         terms += [
             DeflectionLimit(model, probe, case)

@@ -20,6 +20,7 @@ PICTURES = (
     ("stress.png", "Stress of the printed part"),
     ("deflection.png", "Displacement of the printed part"),
     ("verify.png", "Body-fitted verification"),
+    ("fatigue.png", "Fatigue: S-N curves by condition and surface, the design's points"),
     ("history.png", "Convergence"),
 )
 STYLE = """
@@ -28,6 +29,7 @@ table { border-collapse: collapse; margin: 0.5em 0 1.5em; }
 th, td { border: 1px solid #bbb; padding: 0.25em 0.6em; text-align: left; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; }
 .PASS { background: #dff0d8; } .FAIL { background: #f2dede; font-weight: bold; }
+.chosen { background: #e4ecf7; font-weight: bold; }
 .caution { border: 2px solid #a94442; padding: 0.6em 1em; background: #fcf8f8; }
 img { max-width: 100%; }
 """
@@ -180,6 +182,91 @@ def _figures_section(s: dict) -> str:
     return "".join(out)
 
 
+def _life(cycles):
+    """A life in cycles; None is a life without bound (below the endurance knee)."""
+    return "unbounded" if cycles is None else cycles
+
+
+def _fatigue_section(s: dict) -> str:
+    """The fatigue figures of the chosen condition per load case, the same design in
+    every condition and surface, and what the loop bounded; empty without cycles."""
+    f = s.get("fatigue")
+    if not f:
+        return ""
+    cases = [
+        [
+            c["name"],
+            c["cycles"],
+            c["load_ratio"],
+            c["amplitude_at_weakest_MPa"],
+            c["mean_at_weakest_MPa"],
+            c["strength_at_life_MPa"],
+            c["safety_factor"],
+            _life(c["life_at_weakest_cycles"]),
+        ]
+        for c in f["load_cases"]
+    ]
+    chosen = (f["condition"], f["surface"])
+    comparison = [
+        [
+            r["condition"],
+            r["surface"],
+            r["safety_factor"],
+            r["damage"],
+            r.get("governing_load_case"),
+            _life(r.get("life_at_weakest_cycles", "")),
+        ]
+        for r in f["comparison"]
+    ]
+    marks = ["chosen" if (r["condition"], r["surface"]) == chosen else "" for r in f["comparison"]]
+    limits = [
+        [r["name"], r["limit_MPa"], r["governed_by"]]
+        for r in s.get("loop_stress_limits") or []
+        if r["limit_MPa"] is not None
+    ]
+    out = [
+        "<h2>Fatigue</h2>",
+        f'<p class="caution">{_e(f["caution"][0].upper() + f["caution"][1:])}.</p>',
+        f"<p>{_e(f['material']['alloy'])}, {_e(f['condition'])} condition, "
+        f"{_e(f['surface'])} surface; {_e(f['mean_stress_correction'])}. Safety factor "
+        f"{_e(fmt(f['safety_factor']))} (load case {_e(f['governing_load_case'])}), "
+        f"Miner damage {_e(fmt(f['damage']))}. Data: {_e(f['material']['source'])}.</p>",
+        table(
+            [
+                "load case",
+                "design life (cycles)",
+                "R",
+                "amplitude at the weakest element (MPa)",
+                "mean there (MPa)",
+                "S-N strength at the life (MPa)",
+                "safety factor",
+                "life there (cycles)",
+            ],
+            cases,
+        ),
+        "<h3>The same design by condition and surface</h3>",
+        "<p>Whether HIP or machining is worth its cost: the chosen condition is shaded.</p>",
+        table(
+            [
+                "condition",
+                "surface",
+                "safety factor",
+                "damage",
+                "governing load case",
+                "life at its weakest element (cycles)",
+            ],
+            comparison,
+            marks,
+        ),
+    ]
+    if limits:
+        out += [
+            "<h3>Stress bounded in the design loop</h3>",
+            table(["load case", "peak von Mises bound (MPa)", "from"], limits),
+        ]
+    return "".join(out)
+
+
 def _checks_section(s: dict) -> str:
     rows = [[r["status"], r["name"], r["value"], r["limit"], r["detail"]] for r in s["checks"]]
     verdict = (
@@ -247,6 +334,7 @@ def build_report(folder: str | Path, summary: dict | None = None) -> str:
         _problem_section(raw),
         _checks_section(s),
         _figures_section(s),
+        _fatigue_section(s),
         _pictures(folder),
         "<h2>The run</h2>",
         table(["item", "value"], run),

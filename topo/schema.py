@@ -456,6 +456,17 @@ SCHEMA: tuple[Section, ...] = (
                 None,
                 _POSITIVE,
             ),
+            Key(
+                "fatigue_life",
+                NUMBER,
+                "design life the loop holds every load case with cycles to: its peak stress "
+                "is bounded where the mean-stress correction at the S-N strength of this life "
+                "gives checks.fatigue_safety_factor (mma or gcmma; see README, Fatigue)",
+                "cycles",
+                None,
+                "[1, 1e12]",
+                why="under one cycle there is no fatigue; 1e12 lies far beyond any S-N data",
+            ),
         ),
     ),
     Section(

@@ -10,7 +10,9 @@ Aggregate: the p-norm σ_PN = (Σ_{e,l} s_el^P)^(1/P) over elements and load cas
 P = 8. It over-estimates nothing and under-estimates the peak; the design loop
 multiplies it by the adaptive correction of Le et al. (2010),
 c_k = α (max s / σ_PN)_{k−1} + (1 − α) c_{k−1}, α = 0.5, so that the constraint
-c·σ_PN ≤ σ_limit acts on an estimate of the true peak.
+c·σ_PN ≤ σ_limit acts on an estimate of the true peak. With one limit per load case
+(responses.StressLimit) each case's stresses are first divided by its limit,
+s_el = ρ_e^q σ_vm,el / L_l, and the constraint reads c·σ_PN ≤ 1.
 
 Sensitivity by the adjoint method: with w_el = ∂σ_PN/∂s_el and v = σ_vm,
 dσ_PN/dρ_e = Σ_l [ w_el q ρ_e^(q−1) v_el − E'(ρ_e) λ_l,eᵀ k0 u_l,e ],
@@ -71,13 +73,17 @@ class StressMeasure:
         """s_el = ρ_e^q σ_vm,el (MPa), shape (n_elements, n_cases)."""
         return relax(rho, self._stresses(analysis)[1], self.q)
 
-    def aggregate(self, rho: np.ndarray, analysis, gradient: bool = True):
+    def aggregate(self, rho: np.ndarray, analysis, gradient: bool = True, scale=None):
         """(σ_PN, dσ_PN/dρ or None, max s): the aggregate, with `gradient` its
-        derivative (one adjoint solve per load case), and the true peak it estimates."""
+        derivative (one adjoint solve per load case), and the true peak it estimates.
+        `scale` (n_cases,) weighs each load case's stress, s_el = k_l ρ_e^q σ_vm,el
+        (k_l = 1/limit of case l: one aggregate of the stresses over their own
+        limits; k_l = 0 leaves case l out); None weighs every case by 1."""
         model = self.model
         sig, vm = self._stresses(analysis)
+        k = np.ones(vm.shape[1]) if scale is None else np.asarray(scale, dtype=float)
         rq = rho[:, None] ** self.q
-        s = rq * vm
+        s = rq * vm * k
         smax = float(s.max())
         if smax <= 0:
             return 0.0, np.zeros_like(rho) if gradient else None, 0.0
@@ -92,9 +98,9 @@ class StressMeasure:
         # d(ρ^q)/dρ is unbounded at ρ = 0 (void passive elements); there s = 0 and
         # so w = 0, and a floor on ρ keeps the product finite
         floor = np.maximum(rho, 1e-9)[:, None]
-        explicit = (w * self.q * floor ** (self.q - 1.0) * vm).sum(axis=1)
-        # adjoint loads: Σ_e w ρ^q Cᵀ M σ / v, assembled over element dofs
-        coef = np.where(vm > 0, w * rq / safe, 0.0)  # (ne, nc)
+        explicit = (w * self.q * floor ** (self.q - 1.0) * vm * k).sum(axis=1)
+        # adjoint loads: Σ_e w k ρ^q Cᵀ M σ / v, assembled over element dofs
+        coef = np.where(vm > 0, w * k * rq / safe, 0.0)  # (ne, nc)
         local = np.einsum("ec,ns,st,ect->enc", coef, self.c.T, self.m, sig)  # (ne, nde, nc)
         grid = model.grid
         f_adj = np.zeros((grid.n_dofs, sig.shape[1]))
