@@ -515,6 +515,25 @@ def test_the_verification_feeds_the_fatigue_block():
     assert again["grid_fatigue"]["safety_factor"] == grid["fatigue"]["safety_factor"]
 
 
+def test_a_verification_redraws_the_runs_fatigue_figure(tmp_path, monkeypatch):
+    """fatigue.png of a run marks the same weakest points as its summary: after a
+    verification both come from the body-fitted stresses; where the run wrote no
+    fatigue.png (an analysis's summary only), none is made."""
+    import topo.verification.output as output
+    from topo.verification.figures import STRESS_SOURCE
+
+    result, ver = verified_cantilever()
+    drawn = []
+    monkeypatch.setattr(output, "fatigue_figure", lambda problem, block: drawn.append(block))
+    monkeypatch.setattr(output.files, "write_figure", lambda path, fig: path.write_bytes(b"x"))
+    output.write_verification(ver, tmp_path, result.summary)
+    assert drawn == [] and not (tmp_path / "fatigue.png").exists()
+    (tmp_path / "fatigue.png").write_bytes(b"grid")
+    summary = output.write_verification(ver, tmp_path, result.summary)
+    assert drawn == [summary["fatigue"]] and drawn[0]["stress_source"].startswith(STRESS_SOURCE)
+    assert (tmp_path / "fatigue.png").read_bytes() == b"x"
+
+
 def test_fatigue_rows_of_the_verification_both_ways():
     from topo.verification.figures import fatigue_rows
 

@@ -9,6 +9,8 @@ from pathlib import Path
 import numpy as np
 
 from .. import files
+from ..export import FATIGUE
+from ..fatigue_figure import fatigue_figure
 from ..report import CAUTION
 from .figures import apply_to_summary
 
@@ -128,6 +130,9 @@ def write_verification(ver, out: Path, summary: dict | None = None) -> dict | No
     files.write_meshio(out / "verify.vtu", _mesh(ver), "vtu")
     files.atomic_write(out / "verify.png", png)
     files.write_text(out / "verify.json", text)
+    if new_summary is not None and new_summary.get("fatigue") and (out / FATIGUE).exists():
+        # the run's S-N figure marks the verified weakest points, as summary.json does
+        files.write_figure(out / FATIGUE, fatigue_figure(ver.problem, new_summary["fatigue"]))
     if summary_text is not None:
         files.write_text(out / "summary.json", summary_text)
     return new_summary
