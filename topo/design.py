@@ -25,6 +25,7 @@ from .optimizers import make_optimizer
 from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
 from .responses import Evaluation, Responses
+from .robust import RobustChain, anchored_elements, blueprint
 from .solvers import blas_for_solver
 from .timing import Timer
 from .transforms import (
@@ -74,6 +75,9 @@ def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProject
     # Last, so that passive solids must be supported like any other element.
     if problem.build is not None and problem.build.overhang_filter:
         steps.append(OverhangFilter(model.grid.shape, problem.build.direction))
+    if problem.length_scale is not None:  # three projections: robust.py
+        chain = RobustChain(steps, projection, problem.length_scale, anchored_elements(model))
+        return chain, chain.projections
     return Chain(steps), projection
 
 
@@ -230,7 +234,7 @@ def _loop(state: LoopState, parts, saved: Checkpoint, callback, timer: Timer, in
             row = _history_row(
                 it,
                 ev,
-                rho,
+                blueprint(chain, state.x, rho),  # the printed design's volume
                 change,
                 design_change,
                 continuation.beta,
@@ -273,7 +277,7 @@ def _result(
     start: float,
 ) -> Result:
     """The last good design with a fresh analysis (stresses included)."""
-    rho = chain.forward(state.x)
+    rho = blueprint(chain, state.x)
     shape = model.grid.shape
     return Result(
         problem,
@@ -302,7 +306,7 @@ def _iterate(
         rho = chain.forward(x)
     analysis = model.analyze(rho, stresses=False, timer=timer)
     with timer("sensitivities"):
-        ev = responses.evaluate(rho, analysis)
+        ev = responses.evaluate(rho, analysis, x)
     with timer("transforms"):
         responses.pull_back(x, ev)
     # GCMMA's inner iterations solve at candidate designs, OC's exact budget runs the

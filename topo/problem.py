@@ -17,6 +17,7 @@ keys applied to the parsed file before validation, e.g.
 from __future__ import annotations
 
 import copy
+import dataclasses
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -27,6 +28,7 @@ import tomllib
 from .conditions import ConditionError, condition_of
 from .cost import CostRates
 from .materials import Material, find_preset
+from .robust import LengthScale, LengthScaleError, length_scale
 from .schema import SECTIONS, Reader
 
 MAX_ELEMENTS = 20_000_000  # far above what fits in memory on a workstation
@@ -124,6 +126,7 @@ class Optimization:
     checkpoint_interval: int = 10  # iterations between checkpoint.npz saves
     stress_limit: float | None = None  # MPa, on the corrected p-norm of the relaxed stress
     symmetry: tuple[str, ...] = ()  # axes normal to mirror planes through the domain centre
+    enforce_length_scale: bool = False  # robust formulation holding checks.min_wall / min_gap
 
 
 @dataclass(frozen=True)
@@ -213,6 +216,7 @@ class Problem:
     checks: Checks = Checks()
     cost: CostRates = CostRates()
     report: Report = Report()
+    length_scale: LengthScale | None = None  # enforced wall and gap (robust.py)
 
     @property
     def dim(self) -> int:
@@ -365,6 +369,9 @@ class _Parser(Reader):
         )
         self.unique([p.name for p in deflections], "deflection")
         checks = Checks(**self.read("checks", top["checks"] or {}, "checks", {}))
+        scale = self.length_scale(opt, checks, domain, top["optimization"])
+        if scale is not None:
+            opt = dataclasses.replace(opt, filter_radius=scale.filter_radius)
         cost = CostRates(**self.read("cost", top["cost"] or {}, "cost", {"dim": 2}))
         report = Report(**self.read("report", top["report"] or {}, "report", {"dim": dim}))
         return Problem(
@@ -384,7 +391,32 @@ class _Parser(Reader):
             checks,
             cost,
             report,
+            scale,
         )
+
+    def length_scale(
+        self, opt: Optimization, checks: Checks, domain: Domain, given: dict
+    ) -> LengthScale | None:
+        """The robust formulation's settings, when the length scale is enforced."""
+        if not opt.enforce_length_scale:
+            return None
+        if not opt.projection or opt.projection_threshold != 0.5:
+            self.fail(
+                "optimization.enforce_length_scale",
+                "needs projection = true with projection_threshold = 0.5 (the intermediate "
+                "design, the one printed, is thresholded at 0.5)",
+            )
+        radius = given.get("filter_radius") if isinstance(given, dict) else None
+        try:
+            return length_scale(
+                checks.min_wall,
+                checks.min_gap,
+                domain.element_size,
+                domain.dim,
+                None if radius is None else opt.filter_radius,
+            )
+        except LengthScaleError as exc:
+            self.fail(exc.key, exc.message)
 
     def unique(self, names: list[str], key: str, form=None, how: str = "") -> None:
         """Refuse two entries with one name (or one `form(name)`, said `how`)."""

@@ -344,7 +344,10 @@ SCHEMA: tuple[Section, ...] = (
                 NUMBER,
                 "density filter radius; sets the smallest member",
                 "mm",
-                Rule("2.5 × element_size", lambda env: 2.5 * env["element_size"]),
+                Rule(
+                    "2.5 × element_size; with enforce_length_scale, from min_wall and min_gap",
+                    lambda env: 2.5 * env["element_size"],
+                ),
                 _POSITIVE,
             ),
             Key("projection", BOOL, "Heaviside projection towards solid/void", default=True),
@@ -428,6 +431,14 @@ SCHEMA: tuple[Section, ...] = (
                 "MPa",
                 None,
                 _POSITIVE,
+            ),
+            Key(
+                "enforce_length_scale",
+                BOOL,
+                "hold checks.min_wall and checks.min_gap in the design (robust formulation: "
+                "eroded, intermediate and dilated projections; the filter radius follows "
+                "from them unless given)",
+                default=False,
             ),
         ),
     ),
@@ -625,7 +636,8 @@ SCHEMA: tuple[Section, ...] = (
             Key(
                 "min_wall",
                 NUMBER,
-                "thinnest wall the machine prints; checked on the printed part",
+                "thinnest wall the machine prints; checked on the printed part, held in "
+                "the design with optimization.enforce_length_scale",
                 "mm",
                 None,
                 _POSITIVE,
@@ -633,7 +645,8 @@ SCHEMA: tuple[Section, ...] = (
             Key(
                 "min_gap",
                 NUMBER,
-                "narrowest gap or hole the machine keeps clear; checked on the printed part",
+                "narrowest gap or hole the machine keeps clear; checked on the printed part, "
+                "held in the design with optimization.enforce_length_scale",
                 "mm",
                 None,
                 _POSITIVE,
