@@ -94,6 +94,8 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "enclosed_cavities": figures["enclosed_cavities"],
         "min_wall_mm": figures["min_wall_mm"],
         "min_gap_mm": figures["min_gap_mm"],
+        # the wall and gap the design loop held (robust formulation), None when not asked
+        "length_scale": problem.length_scale.summary() if problem.length_scale else None,
         "fatigue": figures["fatigue"],
         "stress_limit_MPa": problem.optimization.stress_limit,
         "notes": NOTES,
