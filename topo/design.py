@@ -64,9 +64,13 @@ def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProject
     opt = problem.optimization
     steps = [DensityFilter(model.grid.shape, opt.filter_radius / problem.domain.element_size)]
     if opt.symmetry:  # first, so that every later step sees a symmetric field
-        axes = tuple("xyz".index(a) for a in opt.symmetry)
-        _refuse_asymmetric_passives(problem, model, axes)
-        steps.insert(0, MirrorSymmetry(model.grid.shape, axes))
+        axes = tuple("xyz".index(p.axis) for p in opt.symmetry)
+        planes = tuple(p.at / problem.domain.element_size for p in opt.symmetry)
+        mirror = MirrorSymmetry(model.grid.shape, axes, planes)
+        _refuse_asymmetric_passives(problem, model)
+        # and after the filter: its edges at the domain boundary (and, with a length
+        # scale, its solid padding at supports and loads) need not be mirror images
+        steps = [mirror, steps[0], mirror]
     projection = None
     if opt.projection:
         projection = HeavisideProjection(1.0, opt.projection_threshold)
@@ -81,18 +85,20 @@ def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProject
     return Chain(steps), projection
 
 
-def _refuse_asymmetric_passives(problem: Problem, model: Model, axes: tuple[int, ...]) -> None:
-    """Mirror symmetry of the design needs the solid and void regions symmetric too."""
-    shape = model.grid.shape
+def _refuse_asymmetric_passives(problem: Problem, model: Model) -> None:
+    """Mirror symmetry of the design needs the solid and void regions symmetric too,
+    wherever an element's mirror image lies inside the domain."""
+    h = problem.domain.element_size
     for name, mask in (("solid", model.solid), ("void", model.void)):
-        field = mask.reshape(shape)
-        for axis in axes:
-            if not np.array_equal(field, np.flip(field, axis)):
+        for plane in problem.optimization.symmetry:
+            axis = "xyz".index(plane.axis)
+            mirror = MirrorSymmetry(model.grid.shape, (axis,), (plane.at / h,))
+            if not np.array_equal(mirror.forward(mask.astype(float)), mask.astype(float)):
                 raise ProblemError(
                     problem.source,
                     "optimization.symmetry",
                     f"the passive {name} regions are not mirror-symmetric about the plane "
-                    f"{'xyz'[axis]} = {model.grid.size[axis] / 2:g} mm (normal to {'xyz'[axis]}), "
+                    f"{plane.axis} = {plane.at:g} mm (normal to {plane.axis}), "
                     "so the design cannot be; make them symmetric or drop the plane",
                 )
 

@@ -125,8 +125,14 @@ class Optimization:
     solver: str = "auto"
     checkpoint_interval: int = 10  # iterations between checkpoint.npz saves
     stress_limit: float | None = None  # MPa, on the corrected p-norm of the relaxed stress
-    symmetry: tuple[str, ...] = ()  # axes normal to mirror planes through the domain centre
+    symmetry: tuple[SymmetryPlane, ...] = ()  # mirror planes enforced on the design
     enforce_length_scale: bool = False  # robust formulation holding checks.min_wall / min_gap
+
+
+@dataclass(frozen=True)
+class SymmetryPlane:
+    axis: str  # the plane's normal
+    at: float  # mm along it: an element boundary or centre
 
 
 @dataclass(frozen=True)
@@ -337,13 +343,23 @@ class _Parser(Reader):
         opt = self.optimization(top["optimization"], domain)
         dim = domain.dim
         build = self.build(top["build"], dim)
-        if build and build.overhang_filter and build.direction[1] in opt.symmetry:
+        if build and build.overhang_filter and build.direction[1] in [p.axis for p in opt.symmetry]:
             self.fail(
                 "optimization.symmetry",
                 f"a mirror plane normal to {build.direction[1]} cannot hold with the overhang "
                 f"rule of build direction {build.direction}: the layers grow one way along "
                 "that axis",
             )
+        for i, plane in enumerate(opt.symmetry if build and build.overhang_filter else ()):
+            centre = domain.size["xyz".index(plane.axis)] / 2
+            if abs(plane.at - centre) > 1e-9 * centre:
+                self.fail(
+                    f"optimization.symmetry[{i}].at",
+                    f"a plane off the domain centre ({plane.axis} = {plane.at:g} mm) cannot "
+                    "hold with the overhang rule: the layers' support stops at the domain "
+                    f"edge, which has no mirror image about it; put it at {centre:g} mm or "
+                    "set build.overhang_filter = false",
+                )
         supports = tuple(
             self.support(s, f"support[{i}]", dim) for i, s in enumerate(top["support"])
         )
@@ -522,7 +538,34 @@ class _Parser(Reader):
                 f"element ({h} mm): the filter does nothing and the design may show "
                 "checkerboards; use at least 1.5 elements"
             )
+        got["symmetry"] = self.symmetry_planes(got["symmetry"], domain)
         return Optimization(**got)
+
+    def symmetry_planes(self, planes: tuple, domain: Domain) -> tuple[SymmetryPlane, ...]:
+        """Each plane at its coordinate (the centre when none is given), on an element
+        boundary or centre, one per axis."""
+        h, out = domain.element_size, []
+        for i, (axis, at) in enumerate(planes):
+            size = domain.size["xyz".index(axis)]
+            key = f"optimization.symmetry[{i}]"
+            if any(p.axis == axis for p in out):
+                self.fail(key, f"a second plane normal to {axis}: give one plane per axis")
+            if at is None:
+                out.append(SymmetryPlane(axis, size / 2))
+                continue
+            if not 0 < at < size:
+                self.fail(f"{key}.at", f"{at:g} mm is outside the domain (0 to {size:g} mm)")
+            halves = 2 * at / h
+            if abs(halves - round(halves)) > 1e-6 * max(1.0, halves):
+                below = math.floor(halves) * h / 2
+                self.fail(
+                    f"{key}.at",
+                    f"{at:g} mm is neither an element boundary nor an element centre "
+                    f"({h:g} mm elements): the nearest allowed are {below:g} and "
+                    f"{below + h / 2:g} mm",
+                )
+            out.append(SymmetryPlane(axis, round(halves) * h / 2))
+        return tuple(out)
 
     def build(self, value, dim: int) -> Build | None:
         if value is None:

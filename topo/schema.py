@@ -26,6 +26,7 @@ FACES = tuple(f"{a}-{s}" for a in AXES for s in ("min", "max"))
 NUMBER, INTEGER, BOOL, STRING = "number", "whole number", "true/false", "string"
 VECTOR, LIST, REGION, TABLE, TABLES = "list of numbers", "list", "region", "table", "[[tables]]"
 MOMENT = "moment: Mz (2D) or [Mx, My, Mz] (3D)"
+PLANES = 'list of axes or {axis, at} tables, e.g. ["x"] or [{axis = "x", at = 40.0}]'
 SCALARS = (NUMBER, INTEGER, BOOL, STRING)
 
 
@@ -404,9 +405,9 @@ SCHEMA: tuple[Section, ...] = (
             ),
             Key(
                 "symmetry",
-                LIST,
-                "mirror planes through the domain centre, normal to these axes, enforced "
-                "on the design",
+                PLANES,
+                "mirror planes normal to these axes, through the domain centre or at `at` "
+                "(mm, an element boundary or centre), enforced on the design",
                 default=(),
                 choices=lambda dim: AXES[:dim],
             ),
@@ -888,6 +889,8 @@ class Reader:
             return tuple(
                 dict.fromkeys(self.string(v, f"{where}[{i}]", choices) for i, v in enumerate(value))
             )
+        if kind == PLANES:
+            return self.planes(value, where, key.allowed(dim))
         if kind == TABLE:
             return self.table(value, where, None)
         if kind == TABLES:
@@ -913,6 +916,24 @@ class Reader:
                 )
                 self.fail(f"{where}.{k}" if where else k, f"unknown key{tip}")
         return value
+
+    def planes(self, value, where: str, axes: tuple) -> tuple:
+        """(axis, at in mm or None for the centre) per entry: "x" or {axis, at}."""
+        if not isinstance(value, list) or not value:
+            self.fail(where, f"expected a {PLANES}")
+        out = []
+        for i, v in enumerate(value):
+            w = f"{where}[{i}]"
+            if isinstance(v, dict):
+                self.table(v, w, ("axis", "at"))
+                if "axis" not in v:
+                    self.fail(f"{w}.axis", f"missing: one of {', '.join(axes)}")
+                axis = self.string(v["axis"], f"{w}.axis", axes)
+                at = self.number(v["at"], f"{w}.at") if "at" in v else None
+            else:
+                axis, at = self.string(v, w, axes), None
+            out.append((axis, at))
+        return tuple(dict.fromkeys(out))
 
     def number(self, value, where: str, bounds: str = "", why: str = "") -> float:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
