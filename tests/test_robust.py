@@ -13,6 +13,7 @@ from problems import beam_problem, central_difference, fd_check
 from topo import optimize, problem_from_dict
 from topo.design import build_chain
 from topo.fem import Model
+from topo.printability import unsupported_by_direction
 from topo.problem import ProblemError
 from topo.responses import Responses
 from topo.robust import PaddedFilter, blueprint_width, cone_profile, shift_for
@@ -232,3 +233,20 @@ def test_optimised_part_holds_wall_and_gap_where_the_plain_one_does_not():
     assert checks["load_path"] == "PASS"
     # the budget is the intermediate (printed) design's
     assert robust.summary["volume_fraction"] == pytest.approx(0.4, abs=0.01)
+
+
+def test_each_design_keeps_the_overhang_guarantee(rng):
+    # the overhang layer follows each projection: every one of the three designs,
+    # thresholded at 0.5, has each element resting on one in its 45° support region
+    d = beam_problem(2, [16.0, 8.0], 0.5, enforce_length_scale=True)
+    d["checks"] = {"min_wall": 1.5, "min_gap": 1.0}
+    d["build"] = {"direction": "+x"}
+    problem = problem_from_dict(d)
+    model = Model(problem)
+    chain, projections = build_chain(problem, model)
+    projections.beta = 16.0
+    for _ in range(3):
+        x = rng.uniform(size=model.grid.n_elements)
+        for branch in (chain, chain.intermediate, chain.dilated):
+            field = branch.forward(x).reshape(model.grid.shape) >= 0.5
+            assert field.any() and unsupported_by_direction(field)["+x"] == 0.0

@@ -82,7 +82,11 @@ def test_off_centre_mirror_backward_matches_finite_differences(rng):
 @pytest.mark.parametrize(
     "plane,key,fragment",
     [
-        ({"axis": "x", "at": 10.3}, "optimization.symmetry[0].at", "nearest allowed are 10 and 10.5"),
+        (
+            {"axis": "x", "at": 10.3},
+            "optimization.symmetry[0].at",
+            "nearest allowed are 10 and 10.5",
+        ),
         ({"axis": "x", "at": 30.0}, "optimization.symmetry[0].at", "outside the domain"),
         ({"axis": "w"}, "optimization.symmetry[0].axis", "must be one of 'x', 'y'"),
         ({"at": 3.0}, "optimization.symmetry[0].axis", "missing"),

@@ -392,6 +392,14 @@ def format_run(s: dict, mesh_format: str) -> list[str]:
             f"building {s['build_direction']}"
             f" (overhang filter {'on' if s['overhang_filter'] else 'off'})"
         )
+    scale = s.get("length_scale")
+    if scale:
+        lines.append(
+            f"  held in the design: walls ≥ {_num(scale['min_wall_mm'])} mm, gaps ≥ "
+            f"{_num(scale['min_gap_mm'])} mm (filter radius {scale['filter_radius_mm']:.3g} mm, "
+            f"thresholds {scale['eroded_threshold']:.3f} / 0.5 / {scale['dilated_threshold']:.3f}"
+            "); the loop's compliance is the eroded design's"
+        )
     for r in s["interfaces"]:
         if r["solid_share"] < 1.0 or r["downfacing_area_mm2"]:
             lines.append(

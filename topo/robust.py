@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cache
 
 import numpy as np
 from scipy import integrate, ndimage, optimize
@@ -51,7 +51,7 @@ def cone_profile(d: float, dim: int) -> float:
     return math.pi / 3.0 * (1.0 - d) ** 2 * (1.0 + 2.0 * d)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _total(dim: int) -> float:
     return 2.0 * integrate.quad(cone_profile, 0.0, 1.0, args=(dim,))[0]
 
@@ -66,7 +66,7 @@ def _mass(a: float, b: float, dim: int) -> float:
     ] / _total(dim)
 
 
-@lru_cache(maxsize=None)
+@cache
 def blueprint_width(shift: float, dim: int) -> float:
     """Width, in filter radii, of the narrowest solid feature of the intermediate
     design (threshold 0.5) whose eroded version (threshold 0.5 + shift) is not empty;
@@ -201,7 +201,9 @@ class PaddedFilter(Transform):
         inside = np.pad(np.asarray(anchored, float).reshape(self.shape), reach, mode="edge")
         inside[(slice(reach, -reach or None),) * len(self.shape)] = 0.0
         outside = ndimage.correlate(inside, self.kernel, mode="constant", cval=0.0)
-        self.padding = outside[(slice(reach, -reach or None),) * len(self.shape)].ravel() / self.total
+        self.padding = (
+            outside[(slice(reach, -reach or None),) * len(self.shape)].ravel() / self.total
+        )
 
     def _correlate(self, a: np.ndarray) -> np.ndarray:
         field = a.reshape(self.shape)
