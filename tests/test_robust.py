@@ -250,3 +250,15 @@ def test_each_design_keeps_the_overhang_guarantee(rng):
         for branch in (chain, chain.intermediate, chain.dilated):
             field = branch.forward(x).reshape(model.grid.shape) >= 0.5
             assert field.any() and unsupported_by_direction(field)["+x"] == 0.0
+
+
+def test_settings_say_the_radius_came_from_the_widths():
+    from topo.schema import settings
+
+    rows = {r["key"]: r["source"] for r in settings(_robust())}
+    assert rows["optimization.filter_radius"].endswith(
+        "set by checks.min_wall/min_gap (enforce_length_scale)"
+    )
+    given = problem_from_dict(_robust().raw, {"optimization.filter_radius": 3.0})
+    assert {r["key"]: r["source"] for r in settings(given)}["optimization.filter_radius"] == "file"
+    assert given.optimization.filter_radius == 3.0

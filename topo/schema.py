@@ -345,10 +345,7 @@ SCHEMA: tuple[Section, ...] = (
                 NUMBER,
                 "density filter radius; sets the smallest member",
                 "mm",
-                Rule(
-                    "2.5 × element_size; with enforce_length_scale, from min_wall and min_gap",
-                    lambda env: 2.5 * env["element_size"],
-                ),
+                Rule("2.5 × element_size", lambda env: 2.5 * env["element_size"]),
                 _POSITIVE,
             ),
             Key("projection", BOOL, "Heaviside projection towards solid/void", default=True),
@@ -999,6 +996,9 @@ def settings(problem) -> list[dict]:
             source = "file" if key.name in given else "default"
             if source == "default" and isinstance(key.default, Rule):
                 source = f"default: {key.default.text}"
+            radius = (path, key.name) == ("optimization", "filter_radius")
+            if radius and source != "file" and problem.length_scale:
+                source += "; set by checks.min_wall/min_gap (enforce_length_scale)"
             rows.append(
                 {"key": f"{path}.{key.name}", "value": value, "unit": key.unit, "source": source}
             )
