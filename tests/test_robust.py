@@ -9,7 +9,7 @@ import pytest
 from skimage.measure import label, regionprops
 from skimage.morphology import opening
 
-from problems import beam_problem, central_difference, fd_check
+from problems import beam_problem, central_difference, fd_check, interrupt_at
 from topo import optimize, problem_from_dict
 from topo.design import build_chain
 from topo.fem import Model
@@ -262,3 +262,17 @@ def test_settings_say_the_radius_came_from_the_widths():
     given = problem_from_dict(_robust().raw, {"optimization.filter_radius": 3.0})
     assert {r["key"]: r["source"] for r in settings(given)}["optimization.filter_radius"] == "file"
     assert given.optimization.filter_radius == 3.0
+
+
+def test_an_interrupted_run_resumes_to_the_same_design(tmp_path):
+    # the three projections' β and the budget's limit come back from the checkpoint
+    problem = problem_from_dict(
+        _robust().raw, {"optimization.max_iterations": 24, "optimization.beta_interval": 6}
+    )
+    whole = optimize(problem)
+    saved = tmp_path / "checkpoint.npz"
+    with pytest.raises(KeyboardInterrupt):
+        optimize(problem, checkpoint=saved, callback=interrupt_at(13))
+    resumed = optimize(problem, checkpoint=saved, resume=True)
+    assert len(resumed.history) == len(whole.history) == 24
+    assert np.array_equal(resumed.density, whole.density)

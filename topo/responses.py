@@ -198,6 +198,8 @@ class DilatedBudget(MaterialBudget):
         self.intermediate, self.budget = chain.intermediate, self.target
 
     def evaluate(self, rho, analysis, gradient: bool = True, design=None) -> Response:
+        if design is None:
+            raise ValueError("the robust formulation's budget needs the design x")
         value = self.at(design)
         if gradient:  # the accepted design sets the limit for its step and its probes
             blueprint = float(self.weights @ self.intermediate.forward(design))
