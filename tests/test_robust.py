@@ -286,3 +286,16 @@ def test_symmetry_holds_with_the_padded_filter_and_a_load_off_the_plane():
     d["load_case"][0]["force"][0]["region"] = {"point": [16.0, 6.0]}
     rho = optimize(problem_from_dict(d)).density
     assert np.abs(rho - np.flip(rho, 1)).max() < 1e-12
+
+
+def test_the_demo_problems_load_with_their_rules():
+    from pathlib import Path
+
+    from topo import load_problem
+
+    folder = Path(__file__).parent.parent / "problems"
+    scale = load_problem(folder / "length-scale-2d.toml").length_scale
+    assert (scale.min_wall, scale.min_gap) == (1.5, 2.0)
+    assert scale.erode < scale.dilate == pytest.approx(0.2)
+    plane = load_problem(folder / "symmetry-offset-2d.toml").optimization.symmetry
+    assert [(p.axis, p.at) for p in plane] == [("x", 25.0)]
