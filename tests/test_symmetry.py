@@ -110,3 +110,19 @@ def test_off_centre_plane_refused_with_the_overhang_rule_and_one_plane_per_axis(
         problem_from_dict(d)
     p = problem_from_dict(_mbb_with_offset_load(symmetry=["x", {"axis": "y", "at": 3.0}]))
     assert [(s.axis, s.at) for s in p.optimization.symmetry] == [("x", 12.0), ("y", 3.0)]
+
+
+def test_passives_need_symmetry_only_where_mirror_images_exist():
+    # plane x = 10: columns 0..19 mirror each other, 20..23 are free
+    d = _mbb_with_offset_load(symmetry=[{"axis": "x", "at": 10.0}])
+    d["optimization"]["max_iterations"] = 3
+    pad = {"kind": "solid", "region": {"box": {"min": [21, 0], "max": [24, 2]}}}  # free columns
+    pair = [
+        {"kind": "void", "region": {"box": {"min": [2, 2], "max": [4, 4]}}},
+        {"kind": "void", "region": {"box": {"min": [16, 2], "max": [18, 4]}}},  # its image
+    ]
+    d["passive"] = [pad, *pair]
+    optimize(problem_from_dict(d))  # accepted
+    d["passive"] = [pad, pair[0]]
+    with pytest.raises(ProblemError, match="void regions are not mirror-symmetric.*x = 10 mm"):
+        optimize(problem_from_dict(d))
