@@ -25,7 +25,7 @@ from .optimizers import make_optimizer
 from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
 from .responses import Evaluation, Responses
-from .robust import RobustChain, anchored_elements, blueprint
+from .robust import Projections, RobustChain, anchored_elements, blueprint
 from .solvers import blas_for_solver
 from .timing import Timer
 from .transforms import (
@@ -60,7 +60,9 @@ class Result:
             self.printed = printed_part(self.model, self.density)
 
 
-def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProjection | None]:
+def build_chain(
+    problem: Problem, model: Model
+) -> tuple[Chain, HeavisideProjection | Projections | None]:
     opt = problem.optimization
     steps = [DensityFilter(model.grid.shape, opt.filter_radius / problem.domain.element_size)]
     if opt.symmetry:  # first, so that every later step sees a symmetric field
