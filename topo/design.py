@@ -25,6 +25,7 @@ from .optimizers import make_optimizer
 from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
 from .responses import Evaluation, Responses
+from .robust import Projections, RobustChain, anchored_elements, blueprint
 from .solvers import blas_for_solver
 from .timing import Timer
 from .transforms import (
@@ -59,13 +60,19 @@ class Result:
             self.printed = printed_part(self.model, self.density)
 
 
-def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProjection | None]:
+def build_chain(
+    problem: Problem, model: Model
+) -> tuple[Chain, HeavisideProjection | Projections | None]:
     opt = problem.optimization
     steps = [DensityFilter(model.grid.shape, opt.filter_radius / problem.domain.element_size)]
     if opt.symmetry:  # first, so that every later step sees a symmetric field
-        axes = tuple("xyz".index(a) for a in opt.symmetry)
-        _refuse_asymmetric_passives(problem, model, axes)
-        steps.insert(0, MirrorSymmetry(model.grid.shape, axes))
+        axes = tuple("xyz".index(p.axis) for p in opt.symmetry)
+        planes = tuple(p.at / problem.domain.element_size for p in opt.symmetry)
+        mirror = MirrorSymmetry(model.grid.shape, axes, planes)
+        _refuse_asymmetric_passives(problem, model)
+        # and after the filter: its edges at the domain boundary (and, with a length
+        # scale, its solid padding at supports and loads) need not be mirror images
+        steps = [mirror, steps[0], mirror]
     projection = None
     if opt.projection:
         projection = HeavisideProjection(1.0, opt.projection_threshold)
@@ -74,21 +81,26 @@ def build_chain(problem: Problem, model: Model) -> tuple[Chain, HeavisideProject
     # Last, so that passive solids must be supported like any other element.
     if problem.build is not None and problem.build.overhang_filter:
         steps.append(OverhangFilter(model.grid.shape, problem.build.direction))
+    if problem.length_scale is not None:  # three projections: robust.py
+        chain = RobustChain(steps, projection, problem.length_scale, anchored_elements(model))
+        return chain, chain.projections
     return Chain(steps), projection
 
 
-def _refuse_asymmetric_passives(problem: Problem, model: Model, axes: tuple[int, ...]) -> None:
-    """Mirror symmetry of the design needs the solid and void regions symmetric too."""
-    shape = model.grid.shape
+def _refuse_asymmetric_passives(problem: Problem, model: Model) -> None:
+    """Mirror symmetry of the design needs the solid and void regions symmetric too,
+    wherever an element's mirror image lies inside the domain."""
+    h = problem.domain.element_size
     for name, mask in (("solid", model.solid), ("void", model.void)):
-        field = mask.reshape(shape)
-        for axis in axes:
-            if not np.array_equal(field, np.flip(field, axis)):
+        for plane in problem.optimization.symmetry:
+            axis = "xyz".index(plane.axis)
+            mirror = MirrorSymmetry(model.grid.shape, (axis,), (plane.at / h,))
+            if not np.array_equal(mirror.forward(mask.astype(float)), mask.astype(float)):
                 raise ProblemError(
                     problem.source,
                     "optimization.symmetry",
                     f"the passive {name} regions are not mirror-symmetric about the plane "
-                    f"{'xyz'[axis]} = {model.grid.size[axis] / 2:g} mm (normal to {'xyz'[axis]}), "
+                    f"{plane.axis} = {plane.at:g} mm (normal to {plane.axis}), "
                     "so the design cannot be; make them symmetric or drop the plane",
                 )
 
@@ -230,7 +242,7 @@ def _loop(state: LoopState, parts, saved: Checkpoint, callback, timer: Timer, in
             row = _history_row(
                 it,
                 ev,
-                rho,
+                blueprint(chain, state.x, rho),  # the printed design's volume
                 change,
                 design_change,
                 continuation.beta,
@@ -273,7 +285,7 @@ def _result(
     start: float,
 ) -> Result:
     """The last good design with a fresh analysis (stresses included)."""
-    rho = chain.forward(state.x)
+    rho = blueprint(chain, state.x)
     shape = model.grid.shape
     return Result(
         problem,
@@ -302,7 +314,7 @@ def _iterate(
         rho = chain.forward(x)
     analysis = model.analyze(rho, stresses=False, timer=timer)
     with timer("sensitivities"):
-        ev = responses.evaluate(rho, analysis)
+        ev = responses.evaluate(rho, analysis, x)
     with timer("transforms"):
         responses.pull_back(x, ev)
     # GCMMA's inner iterations solve at candidate designs, OC's exact budget runs the

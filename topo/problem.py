@@ -17,6 +17,7 @@ keys applied to the parsed file before validation, e.g.
 from __future__ import annotations
 
 import copy
+import dataclasses
 import math
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -27,6 +28,7 @@ import tomllib
 from .conditions import ConditionError, basquin_from_points, condition_of, condition_yields
 from .cost import CostRates
 from .materials import Material, find_preset
+from .robust import LengthScale, LengthScaleError, length_scale
 from .schema import SECTIONS, Reader
 
 MAX_ELEMENTS = 20_000_000  # far above what fits in memory on a workstation
@@ -124,7 +126,14 @@ class Optimization:
     checkpoint_interval: int = 10  # iterations between checkpoint.npz saves
     stress_limit: float | None = None  # MPa, on the corrected p-norm of the relaxed stress
     fatigue_life: float | None = None  # cycles; a stress bound per load case with cycles
-    symmetry: tuple[str, ...] = ()  # axes normal to mirror planes through the domain centre
+    symmetry: tuple[SymmetryPlane, ...] = ()  # mirror planes enforced on the design
+    enforce_length_scale: bool = False  # robust formulation holding checks.min_wall / min_gap
+
+
+@dataclass(frozen=True)
+class SymmetryPlane:
+    axis: str  # the plane's normal
+    at: float  # mm along it: an element boundary or centre
 
 
 @dataclass(frozen=True)
@@ -215,6 +224,7 @@ class Problem:
     checks: Checks = Checks()
     cost: CostRates = CostRates()
     report: Report = Report()
+    length_scale: LengthScale | None = None  # enforced wall and gap (robust.py)
 
     @property
     def dim(self) -> int:
@@ -335,13 +345,23 @@ class _Parser(Reader):
         opt = self.optimization(top["optimization"], domain)
         dim = domain.dim
         build = self.build(top["build"], dim)
-        if build and build.overhang_filter and build.direction[1] in opt.symmetry:
+        if build and build.overhang_filter and build.direction[1] in [p.axis for p in opt.symmetry]:
             self.fail(
                 "optimization.symmetry",
                 f"a mirror plane normal to {build.direction[1]} cannot hold with the overhang "
                 f"rule of build direction {build.direction}: the layers grow one way along "
                 "that axis",
             )
+        for i, plane in enumerate(opt.symmetry if build and build.overhang_filter else ()):
+            centre = domain.size["xyz".index(plane.axis)] / 2
+            if abs(plane.at - centre) > 1e-9 * centre:
+                self.fail(
+                    f"optimization.symmetry[{i}].at",
+                    f"a plane off the domain centre ({plane.axis} = {plane.at:g} mm) cannot "
+                    "hold with the overhang rule: the layers' support stops at the domain "
+                    f"edge, which has no mirror image about it; put it at {centre:g} mm or "
+                    "set build.overhang_filter = false",
+                )
         supports = tuple(
             self.support(s, f"support[{i}]", dim) for i, s in enumerate(top["support"])
         )
@@ -370,6 +390,9 @@ class _Parser(Reader):
         )
         self.unique([p.name for p in deflections], "deflection")
         checks = Checks(**self.read("checks", top["checks"] or {}, "checks", {}))
+        scale = self.length_scale(opt, checks, domain, top["optimization"])
+        if scale is not None:
+            opt = dataclasses.replace(opt, filter_radius=scale.filter_radius)
         cost = CostRates(**self.read("cost", top["cost"] or {}, "cost", {"dim": 2}))
         report = Report(**self.read("report", top["report"] or {}, "report", {"dim": dim}))
         return Problem(
@@ -389,6 +412,7 @@ class _Parser(Reader):
             checks,
             cost,
             report,
+            scale,
         )
 
     def fatigue_life(self, opt: Optimization, loads: tuple[LoadCase, ...]) -> None:
@@ -414,6 +438,30 @@ class _Parser(Reader):
                     f"{c.name!r}'s design life ({c.cycles:g}): the loop designs for fewer "
                     "cycles than its fatigue check asks"
                 )
+
+    def length_scale(
+        self, opt: Optimization, checks: Checks, domain: Domain, given: dict
+    ) -> LengthScale | None:
+        """The robust formulation's settings, when the length scale is enforced."""
+        if not opt.enforce_length_scale:
+            return None
+        if not opt.projection or opt.projection_threshold != 0.5:
+            self.fail(
+                "optimization.enforce_length_scale",
+                "needs projection = true with projection_threshold = 0.5 (the intermediate "
+                "design, the one printed, is thresholded at 0.5)",
+            )
+        radius = given.get("filter_radius") if isinstance(given, dict) else None
+        try:
+            return length_scale(
+                checks.min_wall,
+                checks.min_gap,
+                domain.element_size,
+                domain.dim,
+                None if radius is None else opt.filter_radius,
+            )
+        except LengthScaleError as exc:
+            self.fail(exc.key, exc.message)
 
     def unique(self, names: list[str], key: str, form=None, how: str = "") -> None:
         """Refuse two entries with one name (or one `form(name)`, said `how`)."""
@@ -543,7 +591,34 @@ class _Parser(Reader):
                 f"element ({h} mm): the filter does nothing and the design may show "
                 "checkerboards; use at least 1.5 elements"
             )
+        got["symmetry"] = self.symmetry_planes(got["symmetry"], domain)
         return Optimization(**got)
+
+    def symmetry_planes(self, planes: tuple, domain: Domain) -> tuple[SymmetryPlane, ...]:
+        """Each plane at its coordinate (the centre when none is given), on an element
+        boundary or centre, one per axis."""
+        h, out = domain.element_size, []
+        for i, (axis, at) in enumerate(planes):
+            size = domain.size["xyz".index(axis)]
+            key = f"optimization.symmetry[{i}]"
+            if any(p.axis == axis for p in out):
+                self.fail(key, f"a second plane normal to {axis}: give one plane per axis")
+            if at is None:
+                out.append(SymmetryPlane(axis, size / 2))
+                continue
+            if not 0 < at < size:
+                self.fail(f"{key}.at", f"{at:g} mm is outside the domain (0 to {size:g} mm)")
+            halves = 2 * at / h
+            if abs(halves - round(halves)) > 1e-6 * max(1.0, halves):
+                below = math.floor(halves) * h / 2
+                self.fail(
+                    f"{key}.at",
+                    f"{at:g} mm is neither an element boundary nor an element centre "
+                    f"({h:g} mm elements): the nearest allowed are {below:g} and "
+                    f"{below + h / 2:g} mm",
+                )
+            out.append(SymmetryPlane(axis, round(halves) * h / 2))
+        return tuple(out)
 
     def build(self, value, dim: int) -> Build | None:
         if value is None:

@@ -107,6 +107,8 @@ def summarize(result, analysis_only: bool = False) -> dict:
         "enclosed_cavities": figures["enclosed_cavities"],
         "min_wall_mm": figures["min_wall_mm"],
         "min_gap_mm": figures["min_gap_mm"],
+        # the wall and gap the design loop held (robust formulation), None when not asked
+        "length_scale": problem.length_scale.summary() if problem.length_scale else None,
         "fatigue": figures["fatigue"],
         "stress_limit_MPa": problem.optimization.stress_limit,
         "loop_stress_limits": loop_stress_limits(problem),
@@ -431,6 +433,14 @@ def format_run(s: dict, mesh_format: str) -> list[str]:
             f"  unsupported fraction {_num(s['unsupported_fraction'], '.4f')} "
             f"building {s['build_direction']}"
             f" (overhang filter {'on' if s['overhang_filter'] else 'off'})"
+        )
+    scale = s.get("length_scale")
+    if scale:
+        lines.append(
+            f"  held in the design: walls ≥ {_num(scale['min_wall_mm'])} mm, gaps ≥ "
+            f"{_num(scale['min_gap_mm'])} mm (filter radius {scale['filter_radius_mm']:.3g} mm, "
+            f"thresholds {scale['eroded_threshold']:.3f} / 0.5 / {scale['dilated_threshold']:.3f}"
+            "); the loop's compliance is the eroded design's"
         )
     for r in s["interfaces"]:
         if r["solid_share"] < 1.0 or r["downfacing_area_mm2"]:

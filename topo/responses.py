@@ -29,6 +29,9 @@ class Response:
     limit: float = 1.0
     gradient: np.ndarray | None = None  # d value / dρ, after pull_back d value / dx
     exact: Callable[[np.ndarray], float] | None = None  # value at a candidate x without a solve
+    # the chain the gradient is pulled back through when it is not the loop's (the
+    # robust formulation's budget: the dilated design)
+    through: object | None = None
 
     @property
     def g(self) -> float:
@@ -170,7 +173,7 @@ class MaterialBudget(Term):
     def at(self, x: np.ndarray) -> float:
         return float(self.weights @ self.chain.forward(x))
 
-    def evaluate(self, rho, analysis, gradient: bool = True) -> Response:
+    def evaluate(self, rho, analysis, gradient: bool = True, design=None) -> Response:
         # A projection or an overhang layer makes the budget nonlinear in x: OC
         # meets it exactly at every step through `exact`.
         return Response(
@@ -179,6 +182,35 @@ class MaterialBudget(Term):
             self.target,
             self.weights if gradient else None,
             None if self.chain.linear else self.at,
+        )
+
+
+class DilatedBudget(MaterialBudget):
+    """The material budget of the robust formulation (robust.py): the dilated design
+    holds it, under a limit set at each accepted design to target · V_d / V_i, so that
+    the intermediate design, the one printed, meets the budget (Wang, Lazarov &
+    Sigmund 2011, Struct. Multidisc. Optim. 43:767). Evaluated at the design x
+    (`design`), since ρ is the eroded design; its gradient is pulled back through
+    the dilated chain."""
+
+    def __init__(self, problem: Problem, model, chain):
+        super().__init__(problem, model, chain.dilated)
+        self.intermediate, self.budget = chain.intermediate, self.target
+
+    def evaluate(self, rho, analysis, gradient: bool = True, design=None) -> Response:
+        if design is None:
+            raise ValueError("the robust formulation's budget needs the design x")
+        value = self.at(design)
+        if gradient:  # the accepted design sets the limit for its step and its probes
+            blueprint = float(self.weights @ self.intermediate.forward(design))
+            self.target = self.budget * value / blueprint if blueprint > 0 else self.budget
+        return Response(
+            self.name,
+            value,
+            self.target,
+            self.weights if gradient else None,
+            self.at,
+            through=self.chain,
         )
 
 
@@ -304,7 +336,10 @@ def constraint_terms(problem: Problem, model, chain) -> list:
     """The constraints of a problem, the material budget first. Deflection limits
     are constraints for MMA and GCMMA; OC takes the budget only (the limits are
     then checked on the printed part, problem.py warns)."""
-    terms = [MaterialBudget(problem, model, chain)]
+    from .robust import RobustChain
+
+    budget = DilatedBudget if isinstance(chain, RobustChain) else MaterialBudget
+    terms = [budget(problem, model, chain)]
     limits = case_stress_limits(problem)
     if limits is not None:
         terms.append(StressLimit(model, limits))
@@ -341,17 +376,22 @@ class Responses:
     def material(self) -> MaterialBudget:
         return self.constraints[0]
 
-    def evaluate(self, rho: np.ndarray, analysis) -> Evaluation:
-        """Values and ρ-gradients at the accepted design."""
+    def evaluate(self, rho: np.ndarray, analysis, x: np.ndarray | None = None) -> Evaluation:
+        """Values and ρ-gradients at the accepted design x (ρ its analysed field)."""
         objective, bounds = self.objective.evaluate(rho, analysis)
-        constraints = [t.evaluate(rho, analysis) for t in self.constraints]
+        constraints = [self.material.evaluate(rho, analysis, design=x)]
+        constraints += [t.evaluate(rho, analysis) for t in self.constraints[1:]]
         return Evaluation(objective, constraints, bounds, self.probe)
 
     def pull_back(self, x: np.ndarray, ev: Evaluation) -> None:
         """Turn every ρ-gradient of `ev` into an x-gradient, in one chain pass."""
         terms = [r for r in [ev.objective, *ev.bounds, *ev.constraints] if r.gradient is not None]
-        for r, g in zip(terms, self.chain.backward_many(x, [r.gradient for r in terms])):
+        own = [r for r in terms if r.through is None]
+        for r, g in zip(own, self.chain.backward_many(x, [r.gradient for r in own])):
             r.gradient = g
+        for r in terms:
+            if r.through is not None:
+                r.gradient = r.through.backward(x, r.gradient)
 
     def probe(self, x: np.ndarray) -> tuple[float, np.ndarray]:
         """Objective and constraint values at a candidate design (one solve); the
@@ -359,8 +399,9 @@ class Responses:
         rho = self.chain.forward(x)
         analysis = self.model.analyze(rho, stresses=False)
         objective = self.objective.evaluate(rho, analysis, gradient=False)[0]
+        budget = self.material.evaluate(rho, analysis, gradient=False, design=x)
         return objective.value, np.array(
-            [t.evaluate(rho, analysis, gradient=False).g for t in self.constraints]
+            [budget.g] + [t.evaluate(rho, analysis, gradient=False).g for t in self.constraints[1:]]
         )
 
     def state(self) -> dict:

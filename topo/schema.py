@@ -29,6 +29,7 @@ NUMBER, INTEGER, BOOL, STRING = "number", "whole number", "true/false", "string"
 VECTOR, LIST, REGION, TABLE, TABLES = "list of numbers", "list", "region", "table", "[[tables]]"
 MOMENT = "moment: Mz (2D) or [Mx, My, Mz] (3D)"
 SN_POINTS = "two [cycles, MPa] points"
+PLANES = 'list of axes or {axis, at} tables, e.g. ["x"] or [{axis = "x", at = 40.0}]'
 SCALARS = (NUMBER, INTEGER, BOOL, STRING)
 
 
@@ -428,9 +429,9 @@ SCHEMA: tuple[Section, ...] = (
             ),
             Key(
                 "symmetry",
-                LIST,
-                "mirror planes through the domain centre, normal to these axes, enforced "
-                "on the design",
+                PLANES,
+                "mirror planes normal to these axes, through the domain centre or at `at` "
+                "(mm, an element boundary or centre), enforced on the design",
                 default=(),
                 choices=lambda dim: AXES[:dim],
             ),
@@ -466,6 +467,14 @@ SCHEMA: tuple[Section, ...] = (
                 None,
                 "[1, 1e12]",
                 why="under one cycle there is no fatigue; 1e12 lies far beyond any S-N data",
+            ),
+            Key(
+                "enforce_length_scale",
+                BOOL,
+                "hold checks.min_wall and checks.min_gap in the design (robust formulation: "
+                "eroded, intermediate and dilated projections; the filter radius follows "
+                "from them unless given)",
+                default=False,
             ),
         ),
     ),
@@ -672,7 +681,8 @@ SCHEMA: tuple[Section, ...] = (
             Key(
                 "min_wall",
                 NUMBER,
-                "thinnest wall the machine prints; checked on the printed part",
+                "thinnest wall the machine prints; checked on the printed part, held in "
+                "the design with optimization.enforce_length_scale",
                 "mm",
                 None,
                 _POSITIVE,
@@ -680,7 +690,8 @@ SCHEMA: tuple[Section, ...] = (
             Key(
                 "min_gap",
                 NUMBER,
-                "narrowest gap or hole the machine keeps clear; checked on the printed part",
+                "narrowest gap or hole the machine keeps clear; checked on the printed part, "
+                "held in the design with optimization.enforce_length_scale",
                 "mm",
                 None,
                 _POSITIVE,
@@ -924,6 +935,8 @@ class Reader:
             )
         if kind == SN_POINTS:
             return self.sn_points(value, where)
+        if kind == PLANES:
+            return self.planes(value, where, key.allowed(dim))
         if kind == TABLE:
             return self.table(value, where, None)
         if kind == TABLES:
@@ -964,6 +977,24 @@ class Reader:
                 )
                 self.fail(f"{where}.{k}" if where else k, f"unknown key{tip}")
         return value
+
+    def planes(self, value, where: str, axes: tuple) -> tuple:
+        """(axis, at in mm or None for the centre) per entry: "x" or {axis, at}."""
+        if not isinstance(value, list) or not value:
+            self.fail(where, f"expected a {PLANES}")
+        out = []
+        for i, v in enumerate(value):
+            w = f"{where}[{i}]"
+            if isinstance(v, dict):
+                self.table(v, w, ("axis", "at"))
+                if "axis" not in v:
+                    self.fail(f"{w}.axis", f"missing: one of {', '.join(axes)}")
+                axis = self.string(v["axis"], f"{w}.axis", axes)
+                at = self.number(v["at"], f"{w}.at") if "at" in v else None
+            else:
+                axis, at = self.string(v, w, axes), None
+            out.append((axis, at))
+        return tuple(dict.fromkeys(out))
 
     def number(self, value, where: str, bounds: str = "", why: str = "") -> float:
         if isinstance(value, bool) or not isinstance(value, (int, float)):
@@ -1029,6 +1060,9 @@ def settings(problem) -> list[dict]:
             source = "file" if key.name in given else "default"
             if source == "default" and isinstance(key.default, Rule):
                 source = f"default: {key.default.text}"
+            radius = (path, key.name) == ("optimization", "filter_radius")
+            if radius and source != "file" and problem.length_scale:
+                source += "; set by checks.min_wall/min_gap (enforce_length_scale)"
             rows.append(
                 {"key": f"{path}.{key.name}", "value": value, "unit": key.unit, "source": source}
             )

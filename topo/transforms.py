@@ -100,23 +100,43 @@ class PassiveOverride(Transform):
 
 
 class MirrorSymmetry(Transform):
-    """Mirror symmetry about planes through the domain centre, normal to the given
-    axes (0 = x, 1 = y, 2 = z), enforced on the design variables whatever the loads:
-    y = the average of x over its mirror images. The map is a projection onto the
-    symmetric fields and its own transpose, so backward applies the same average.
-    The filter, the projection and the overhang layer of a build direction across
-    the planes keep the symmetry, so ρ comes out mirror-symmetric to round-off when
-    the passive regions are symmetric too."""
+    """Mirror symmetry about planes normal to the given axes (0 = x, 1 = y, 2 = z),
+    enforced on the design variables whatever the loads: y = the average of x over
+    its mirror images. A plane lies at `planes[k]` elements along its axis (a whole
+    or half number: an element boundary or centre; None or absent: the domain
+    centre); an element whose mirror falls outside the domain is left as it is.
+    For planes normal to different axes the averages commute, so the map is a
+    projection onto the symmetric fields and its own transpose: backward applies
+    the same average. The filter, the projection and the overhang layer of a build
+    direction across centred planes keep the symmetry; the loop applies the map
+    again after the filter, whose domain edges are not mirror images about a plane
+    off the centre. ρ then comes out mirror-symmetric to round-off when the passive
+    regions are symmetric too."""
 
     linear = True
 
-    def __init__(self, shape: tuple[int, ...], axes: tuple[int, ...]):
+    def __init__(
+        self,
+        shape: tuple[int, ...],
+        axes: tuple[int, ...],
+        planes: tuple[float | None, ...] | None = None,
+    ):
         self.shape, self.axes = tuple(shape), tuple(axes)
+        planes = planes or (None,) * len(self.axes)
+        self.mirrors = []  # per axis: the mirror index of each layer, and where it is inside
+        for axis, at in zip(self.axes, planes):
+            n = self.shape[axis]
+            twice = n if at is None else int(round(2 * at))
+            mirror = twice - 1 - np.arange(n)
+            inside = (mirror >= 0) & (mirror < n)
+            self.mirrors.append((np.clip(mirror, 0, n - 1), inside))
 
     def _average(self, v: np.ndarray) -> np.ndarray:
         field = v.reshape(self.shape)
-        for axis in self.axes:
-            field = 0.5 * (field + np.flip(field, axis))
+        for axis, (mirror, inside) in zip(self.axes, self.mirrors):
+            reflected = np.take(field, mirror, axis=axis)
+            where = inside.reshape([-1 if a == axis else 1 for a in range(field.ndim)])
+            field = np.where(where, 0.5 * (field + reflected), field)
         return np.ascontiguousarray(field).ravel()
 
     def forward(self, x):
