@@ -239,6 +239,49 @@ class DeflectionLimit(Term):
         return Response(self.name, delta**2, limit, gradient=2.0 * delta * d_delta)
 
 
+class EnclosedCavities(Term):
+    """ln(P(ρ)/P_ref) ≤ ln(build.cavity_bound): the p-norm of the virtual temperature
+    (cavities.py; Liu et al. 2015, Front. Mech. Eng. 10:126) against that of the
+    reference design with every design element empty, which has no closed void.
+    One solve of the scalar conduction problem and one adjoint solve per design."""
+
+    name = "cavities"
+
+    def __init__(self, problem: Problem, model):
+        from .cavities import VirtualTemperature, unavoidable_cavities
+
+        shape, h = model.grid.shape, problem.domain.element_size
+        trapped = unavoidable_cavities(model.solid.reshape(shape))
+        if trapped.any():
+            where = (np.argwhere(trapped).mean(axis=0) + 0.5) * h
+            raise ProblemError(
+                problem.source,
+                "build.no_enclosed_cavities",
+                f"the passive solid regions alone close in {int(trapped.sum())} elements "
+                f"(around [{', '.join(f'{v:g}' for v in where)}] mm): no design can open "
+                "them; leave the key out or open the passive regions",
+            )
+        self.temperature = VirtualTemperature(shape)
+        self.log_bound = float(np.log(problem.build.cavity_bound))
+        self.reference = self.temperature.aggregate(np.where(model.solid, 1.0, 0.0), False)[0]
+
+    def evaluate(self, rho, analysis, gradient: bool = True) -> Response:
+        # in logarithms, ln(P/P_ref) ≤ ln(bound): a closed void raises P by orders
+        # of magnitude, and the logarithm keeps the constraint's steps to a scale
+        # MMA's approximation follows
+        value, d_value, _ = self.temperature.aggregate(rho, gradient)
+        if value < 1e-12 * self.reference:  # no void at all (a full budget): nothing to trap
+            value, d_value = 1e-12 * self.reference, None if d_value is None else 0 * d_value
+        d_log = None if d_value is None else d_value / value
+        return Response(self.name, float(np.log(value / self.reference)), self.log_bound, d_log)
+
+    def state(self) -> dict:
+        return self.temperature.system.state()
+
+    def restore(self, state: dict) -> None:
+        self.temperature.system.restore(state)
+
+
 def constraint_terms(problem: Problem, model, chain) -> list:
     """The constraints of a problem, the material budget first. Deflection limits
     are constraints for MMA and GCMMA; OC takes the budget only (the limits are
@@ -246,6 +289,8 @@ def constraint_terms(problem: Problem, model, chain) -> list:
     terms = [MaterialBudget(problem, model, chain)]
     if problem.optimization.stress_limit is not None:
         terms.append(StressLimit(model, problem.optimization.stress_limit))
+    if problem.build is not None and problem.build.no_enclosed_cavities:
+        terms.append(EnclosedCavities(problem, model))
     if problem.optimization.optimizer != "oc":
         terms += [
             DeflectionLimit(model, probe, case)
