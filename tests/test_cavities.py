@@ -279,3 +279,23 @@ def test_cavity_closed_by_passive_solids_alone_is_refused():
     problem = problem_from_dict(d)
     with pytest.raises(ProblemError, match="build.no_enclosed_cavities.*close in 8 elements"):
         Responses(problem, Model(problem), build_chain(problem, Model(problem))[0])
+
+
+def test_the_constraint_opens_the_tube_that_the_stiffest_design_closes():
+    """Without the constraint the twisted block becomes a closed tube between the end
+    plates, with powder trapped inside; with it the printed part has no closed void
+    (both judged by the flood fill above, on the printed part's 0/1 field) and its
+    summary's check passes."""
+    from topo.design import optimize
+
+    outcomes = {}
+    for on in (False, True):
+        r = optimize(problem_from_dict(twisted_tube(no_enclosed_cavities=on)))
+        solid = r.printed.density > 0.5
+        checks = {c["name"]: c["status"] for c in r.summary["checks"]}
+        outcomes[on] = (flood_fill_enclosed(solid), checks, r.history[-1]["constraints"])
+    trapped, checks, _ = outcomes[False]
+    assert trapped > 100 and checks["enclosed_cavities"] == "FAIL"
+    trapped, checks, constraints = outcomes[True]
+    assert trapped == 0 and checks["enclosed_cavities"] == "PASS"
+    assert "cavities" in constraints
