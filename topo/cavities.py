@@ -36,8 +36,11 @@ The matrix is symmetric, so the gradient takes one adjoint solve, K λ = ∂P/�
 
     dP/dρ_e = λ_e ∂s_e/∂ρ_e − λᵀ (∂K/∂ρ_e) T.
 
-Grids up to DIRECT_CELLS elements solve with sparse Cholesky (CHOLMOD), larger
-ones with Jacobi-preconditioned CG warm-started from the last temperatures.
+The scalar system is solved by sparse Cholesky (CHOLMOD). Jacobi-preconditioned
+CG was tried and dropped: a closed cavity is a near-null mode of the matrix
+(eigenvalue of order ε), so a small residual still left the hot cavities' p-norm
+wrong by 2–12 %, and it was slower than the factorisation up to 128,000 elements
+(DEVELOPERS.md, "Virtual temperature solve").
 Temperatures are nondimensional: lengths in elements, unit source, unit void
 conductivity.
 """
@@ -56,9 +59,6 @@ from .cholesky import SparseCholesky
 CONTRAST = 1e-3
 PENALTY = 3.0  # q, as SIMP's exponent, on the void fraction 1 − ρ
 P_NORM = 8.0  # the aggregate sees a small hot cavity among many cool elements
-DIRECT_CELLS = 200_000  # more elements: Jacobi-CG (DEVELOPERS.md, "Virtual temperature")
-CG_RTOL = 1e-9  # the adjoint gradient needs the temperatures well converged
-CG_MAX_ITERATIONS = 20_000
 
 
 class FaceConduction:
@@ -130,66 +130,20 @@ class FaceConduction:
 
 
 class ThermalSystem:
-    """K T = b for one design: CHOLMOD up to DIRECT_CELLS unknowns, Jacobi-CG
-    beyond (or as `method` says: "direct" | "iterative")."""
+    """K T = b for one design by sparse Cholesky (CHOLMOD, symbolic analysis reused:
+    the pattern is the same for every design)."""
 
-    def __init__(self, conduction: FaceConduction, method: str = "auto"):
+    def __init__(self, conduction: FaceConduction):
         self.conduction = conduction
-        if method == "auto":
-            method = "direct" if conduction.n <= DIRECT_CELLS else "iterative"
-        self.method = method
-        self.iterations: int | None = None
-        self._cholesky: SparseCholesky | None = None
-        self._warm: np.ndarray | None = None
-        self._matrix: sp.csr_matrix | None = None
+        self._cholesky = SparseCholesky()
 
     def assemble(self, kappa: np.ndarray) -> None:
-        self._matrix = self.conduction.matrix(kappa)
-        self._first = True
-        if self.method == "direct":
-            if self._cholesky is None:
-                self._cholesky = SparseCholesky()
-            lower = sp.tril(self._matrix).tocsc()  # the pattern is the same every design
-            lower.sort_indices()
-            self._cholesky.factorize(lower)
+        lower = sp.tril(self.conduction.matrix(kappa)).tocsc()
+        lower.sort_indices()
+        self._cholesky.factorize(lower)
 
     def solve(self, rhs: np.ndarray) -> np.ndarray:
-        if self.method == "direct":
-            return self._cholesky.solve(rhs)
-        from scipy.sparse.linalg import LinearOperator, cg
-
-        a = self._matrix
-        inverse_diagonal = 1.0 / a.diagonal()
-        jacobi = LinearOperator(a.shape, lambda r: inverse_diagonal * r)
-        start = self._warm if self._first and self._warm is not None else None
-        count = [0]
-
-        def counter(_):
-            count[0] += 1
-
-        x, info = cg(
-            a,
-            rhs,
-            x0=start,
-            rtol=CG_RTOL,
-            maxiter=CG_MAX_ITERATIONS,
-            M=jacobi,
-            callback=counter,
-        )
-        if info != 0:
-            raise FloatingPointError(
-                f"the virtual-temperature CG did not converge in {CG_MAX_ITERATIONS} iterations"
-            )
-        if self._first:
-            self._warm, self.iterations, self._first = x.copy(), count[0], False
-        return x
-
-    def state(self) -> dict:
-        return {} if self._warm is None else {"warm": self._warm.copy()}
-
-    def restore(self, state: dict) -> None:
-        warm = state.get("warm")
-        self._warm = None if warm is None else np.array(warm, dtype=float)
+        return self._cholesky.solve(rhs)
 
 
 def p_norm(t: np.ndarray, p: float = P_NORM) -> tuple[float, np.ndarray]:
@@ -206,9 +160,9 @@ class VirtualTemperature:
     """The virtual temperature field of a design on a grid of `shape` elements and
     its p-norm aggregate P(ρ)."""
 
-    def __init__(self, shape: tuple[int, ...], method: str = "auto"):
+    def __init__(self, shape: tuple[int, ...]):
         self.conduction = FaceConduction(shape)
-        self.system = ThermalSystem(self.conduction, method)
+        self.system = ThermalSystem(self.conduction)
         self.contrast = CONTRAST / max(shape) ** 2
 
     def conductivity(self, rho: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
