@@ -21,7 +21,7 @@ from topo.fem import Model
 from topo.problem import ProblemError, problem_from_dict
 from topo.responses import EnclosedCavities, Responses
 
-BOUND = 10.0  # the default build.cavity_bound
+BOUND = 20.0  # the default build.cavity_bound
 
 
 def poisson_centre(dim: int, terms: int = 201) -> float:
@@ -164,13 +164,14 @@ def test_constraint_verdict_agrees_with_an_independent_flood_fill(name):
 
 def test_a_one_element_vent_counts_as_nearly_closed():
     """Open for the flood fill, but its 64-element pocket vents through a single
-    element face: hotter than the bound (the constraint asks for a wider vent), and
-    still far cooler than any closed design above."""
+    element face: hotter than the same pocket behind a 2 × 2 vent, about at the
+    default bound, and still far cooler than any closed design above."""
     solid = hollow_box()
     solid[3, 6, 6] = False
     assert flood_fill_enclosed(solid) == 0
     r = ratio(solid)
-    assert BOUND < r < 0.01 * min(ratio(designs()[k]) for k in ("box-3d", "thick-box"))
+    assert ratio(designs()["box-vented"]) < 0.5 * r
+    assert r < 0.01 * min(ratio(designs()[k]) for k in ("box-3d", "thick-box"))
 
 
 def test_edge_contact_design_is_enclosed_for_the_flood_fill():
@@ -275,8 +276,8 @@ def test_cavity_closed_by_passive_solids_alone_is_refused():
 def test_the_constraint_opens_the_tube_that_the_stiffest_design_closes():
     """Without the constraint the twisted block becomes a closed tube between the end
     plates, with powder trapped inside; with it the printed part has no closed void
-    (both judged by the flood fill above, on the printed part's 0/1 field) and its
-    summary's check passes."""
+    (both judged by the flood fill above, on the printed part's 0/1 field), still
+    joins the load to the support, and its summary's check passes."""
     from topo.design import optimize
 
     outcomes = {}
@@ -289,4 +290,4 @@ def test_the_constraint_opens_the_tube_that_the_stiffest_design_closes():
     assert trapped > 100 and checks["enclosed_cavities"] == "FAIL"
     trapped, checks, constraints = outcomes[True]
     assert trapped == 0 and checks["enclosed_cavities"] == "PASS"
-    assert "cavities" in constraints
+    assert checks["load_path"] == "PASS" and "cavities" in constraints

@@ -135,7 +135,7 @@ class Build:
     # 3D demo's pin boss unsupported, 4 supports every interface of both demos
     interface_support: float = 4.0
     no_enclosed_cavities: bool = False  # virtual temperature constraint (cavities.py)
-    cavity_bound: float = 10.0  # on P(ρ)/P(every design element empty)
+    cavity_bound: float = 20.0  # on P(ρ)/P(every design element empty)
 
 
 @dataclass(frozen=True)
