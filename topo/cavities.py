@@ -36,10 +36,12 @@ The matrix is symmetric, so the gradient takes one adjoint solve, K λ = ∂P/�
 
     dP/dρ_e = λ_e ∂s_e/∂ρ_e − λᵀ (∂K/∂ρ_e) T.
 
-The scalar system is solved by sparse Cholesky (CHOLMOD). Jacobi-preconditioned
-CG was tried and dropped: a closed cavity is a near-null mode of the matrix
-(eigenvalue of order ε), so a small residual still left the hot cavities' p-norm
-wrong by 2–12 %, and it was slower than the factorisation up to 128,000 elements
+Up to DIRECT_CELLS elements the scalar system is solved by sparse Cholesky
+(CHOLMOD); beyond, by CG preconditioned with an aggregation multigrid V-cycle
+(blocks of 2×2×2 cells, Galerkin coarse matrices), warm-started. Plain Jacobi-CG
+was tried and dropped: a closed cavity is a near-null mode of the matrix
+(eigenvalue of order ε), and with ‖r‖/‖b‖ < 1e-9 the p-norm of a design with
+closed pockets was still 2–12 % off; the coarse levels carry those modes
 (DEVELOPERS.md, "Virtual temperature solve").
 Temperatures are nondimensional: lengths in elements, unit source, unit void
 conductivity.
@@ -59,6 +61,11 @@ from .cholesky import SparseCholesky
 CONTRAST = 1e-3
 PENALTY = 3.0  # q, as SIMP's exponent, on the void fraction 1 − ρ
 P_NORM = 8.0  # the aggregate sees a small hot cavity among many cool elements
+# more elements: multigrid-CG (measured: DEVELOPERS.md, "Virtual temperature solve")
+DIRECT_CELLS = 10_000
+COARSE_CELLS = 8_000  # the coarsest aggregation level, solved by Cholesky
+CG_RTOL = 1e-10  # a closed cavity is a near-null mode: a loose residual misses its heat
+CG_LIMIT = 2000
 
 
 class FaceConduction:
@@ -129,21 +136,99 @@ class FaceConduction:
         return out
 
 
-class ThermalSystem:
-    """K T = b for one design by sparse Cholesky (CHOLMOD, symbolic analysis reused:
-    the pattern is the same for every design)."""
+def aggregation(shape: tuple[int, ...]) -> tuple[sp.csr_matrix, tuple[int, ...]]:
+    """Piecewise-constant prolongation from blocks of 2×2(×2) cells (one cell at
+    the end of an odd axis) to the cells of a grid of `shape`, and the block grid."""
+    p = None
+    for n in shape:
+        axis = sp.csr_matrix((np.ones(n), (np.arange(n), np.arange(n) // 2)))
+        p = axis if p is None else sp.kron(p, axis, format="csr")
+    return p, tuple(-(-n // 2) for n in shape)
 
-    def __init__(self, conduction: FaceConduction):
+
+class AggregationMultigrid:
+    """A symmetric V-cycle as the preconditioner of CG: nested aggregates of 2×2(×2)
+    cells, coarse matrices PᵀAP (Galerkin), one damped Jacobi sweep before and after
+    each coarse correction, Cholesky on the coarsest level. The Galerkin matrices
+    of an M-matrix stay M-matrices with λmax(D⁻¹A) ≤ 2, so ω = 2/3 smooths safely
+    (Trottenberg, Oosterlee & Schüller, Multigrid, 2001, §2.1 and §A.4: damped
+    Jacobi and algebraic aggregation; from memory)."""
+
+    def __init__(self, shape: tuple[int, ...], coarse_cells: int | None = None):
+        coarse_cells = coarse_cells or COARSE_CELLS
+        self.transfers = []
+        while int(np.prod(shape)) > coarse_cells and min(shape) >= 2:
+            p, shape = aggregation(shape)
+            self.transfers.append(p)
+        self.coarse = SparseCholesky()
+
+    def update(self, a: sp.csr_matrix) -> None:
+        self.operators = [a]
+        for p in self.transfers:
+            self.operators.append((p.T @ self.operators[-1] @ p).tocsr())
+        self.weights = [(2.0 / 3.0) / op.diagonal()[:, None] for op in self.operators[:-1]]
+        lower = sp.tril(self.operators[-1]).tocsc()
+        lower.sort_indices()
+        self.coarse.factorize(lower)  # the pattern is the same for every design
+
+    def vcycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
+        if level == len(self.transfers):
+            return self.coarse.solve(r)
+        a, w, p = self.operators[level], self.weights[level], self.transfers[level]
+        z = w * r
+        z += p @ self.vcycle(p.T @ (r - a @ z), level + 1)
+        return z + w * (r - a @ z)
+
+
+class ThermalSystem:
+    """K T = b for one design: sparse Cholesky (CHOLMOD, its symbolic analysis reused:
+    the pattern is the same for every design) up to DIRECT_CELLS unknowns, CG with
+    the aggregation V-cycle beyond, warm-started from the last temperatures."""
+
+    def __init__(self, conduction: FaceConduction, method: str = "auto"):
         self.conduction = conduction
-        self._cholesky = SparseCholesky()
+        if method == "auto":
+            method = "direct" if conduction.n <= DIRECT_CELLS else "iterative"
+        self.method = method
+        self.iterations: int | None = None
+        self._warm: np.ndarray | None = None
+        if method == "direct":
+            self._cholesky = SparseCholesky()
+        else:
+            self.multigrid = AggregationMultigrid(conduction.shape)
 
     def assemble(self, kappa: np.ndarray) -> None:
-        lower = sp.tril(self.conduction.matrix(kappa)).tocsc()
-        lower.sort_indices()
-        self._cholesky.factorize(lower)
+        a = self.conduction.matrix(kappa)
+        if self.method == "direct":
+            lower = sp.tril(a).tocsc()
+            lower.sort_indices()
+            self._cholesky.factorize(lower)
+            return
+        self.multigrid.update(a)
+        self._first = True
 
     def solve(self, rhs: np.ndarray) -> np.ndarray:
-        return self._cholesky.solve(rhs)
+        if self.method == "direct":
+            return self._cholesky.solve(rhs)
+        from .multigrid import pcg
+
+        start = self._warm if self._first and self._warm is not None else None
+        a = self.multigrid.operators[0]
+        x, iterations = pcg(a, rhs[:, None], self.multigrid.vcycle, start, CG_RTOL, CG_LIMIT)
+        if iterations >= CG_LIMIT:
+            raise FloatingPointError(
+                f"the virtual-temperature CG did not converge in {CG_LIMIT} iterations"
+            )
+        if self._first:
+            self._warm, self.iterations, self._first = x.copy(), iterations, False
+        return x[:, 0]
+
+    def state(self) -> dict:
+        return {} if self._warm is None else {"warm": self._warm.copy()}
+
+    def restore(self, state: dict) -> None:
+        warm = state.get("warm")
+        self._warm = None if warm is None else np.array(warm, dtype=float)
 
 
 def p_norm(t: np.ndarray, p: float = P_NORM) -> tuple[float, np.ndarray]:
@@ -160,9 +245,9 @@ class VirtualTemperature:
     """The virtual temperature field of a design on a grid of `shape` elements and
     its p-norm aggregate P(ρ)."""
 
-    def __init__(self, shape: tuple[int, ...]):
+    def __init__(self, shape: tuple[int, ...], method: str = "auto"):
         self.conduction = FaceConduction(shape)
-        self.system = ThermalSystem(self.conduction)
+        self.system = ThermalSystem(self.conduction, method)
         self.contrast = CONTRAST / max(shape) ** 2
 
     def conductivity(self, rho: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -243,8 +243,7 @@ class EnclosedCavities(Term):
     """ln(P(ρ)/P_ref) ≤ ln(build.cavity_bound): the p-norm of the virtual temperature
     (cavities.py; Liu et al. 2015, Front. Mech. Eng. 10:126) against that of the
     reference design with every design element empty, which has no closed void.
-    One factorisation of the scalar conduction matrix and two solves (temperature,
-    adjoint) per design; nothing carried between iterations."""
+    Two solves of the scalar conduction problem (temperature, adjoint) per design."""
 
     name = "cavities"
 
@@ -275,6 +274,12 @@ class EnclosedCavities(Term):
             value, d_value = 1e-12 * self.reference, None if d_value is None else 0 * d_value
         d_log = None if d_value is None else d_value / value
         return Response(self.name, float(np.log(value / self.reference)), self.log_bound, d_log)
+
+    def state(self) -> dict:
+        return self.temperature.system.state()  # the CG warm start on large grids
+
+    def restore(self, state: dict) -> None:
+        self.temperature.system.restore(state)
 
 
 def constraint_terms(problem: Problem, model, chain) -> list:
