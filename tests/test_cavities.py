@@ -16,7 +16,7 @@ from topo.cavities import (
     p_norm,
     unavoidable_cavities,
 )
-from topo.design import build_chain
+from topo.design import build_chain, check
 from topo.fem import Model
 from topo.problem import ProblemError, problem_from_dict
 from topo.responses import EnclosedCavities, Responses
@@ -292,6 +292,10 @@ def test_cavity_closed_by_passive_solids_alone_is_refused():
     problem = problem_from_dict(d)
     with pytest.raises(ProblemError, match="build.no_enclosed_cavities.*close in 8 elements"):
         Responses(problem, Model(problem), build_chain(problem, Model(problem))[0])
+    with pytest.raises(ProblemError, match="close in 8 elements"):  # `topo check` too
+        check(problem)
+    d["build"]["no_enclosed_cavities"] = False
+    assert check(problem_from_dict(d))  # the same passives without the key: fine
 
 
 def test_the_constraint_opens_the_tube_that_the_stiffest_design_closes():

@@ -239,6 +239,26 @@ class DeflectionLimit(Term):
         return Response(self.name, delta**2, limit, gradient=2.0 * delta * d_delta)
 
 
+def refuse_closed_passives(problem: Problem, model) -> None:
+    """With build.no_enclosed_cavities, a region that the passive solids alone close
+    in is a cavity no design can open: refused."""
+    from .cavities import unavoidable_cavities
+
+    if problem.build is None or not problem.build.no_enclosed_cavities:
+        return
+    shape, h = model.grid.shape, problem.domain.element_size
+    trapped = unavoidable_cavities(model.solid.reshape(shape))
+    if trapped.any():
+        where = (np.argwhere(trapped).mean(axis=0) + 0.5) * h
+        raise ProblemError(
+            problem.source,
+            "build.no_enclosed_cavities",
+            f"the passive solid regions alone close in {int(trapped.sum())} elements "
+            f"(around [{', '.join(f'{v:g}' for v in where)}] mm): no design can open "
+            "them; leave the key out or open the passive regions",
+        )
+
+
 class EnclosedCavities(Term):
     """ln(P(ρ)/P_ref) ≤ ln(build.cavity_bound): the p-norm of the virtual temperature
     (cavities.py; Liu et al. 2015, Front. Mech. Eng. 10:126) against that of the
@@ -248,20 +268,10 @@ class EnclosedCavities(Term):
     name = "cavities"
 
     def __init__(self, problem: Problem, model):
-        from .cavities import VirtualTemperature, unavoidable_cavities
+        from .cavities import VirtualTemperature
 
-        shape, h = model.grid.shape, problem.domain.element_size
-        trapped = unavoidable_cavities(model.solid.reshape(shape))
-        if trapped.any():
-            where = (np.argwhere(trapped).mean(axis=0) + 0.5) * h
-            raise ProblemError(
-                problem.source,
-                "build.no_enclosed_cavities",
-                f"the passive solid regions alone close in {int(trapped.sum())} elements "
-                f"(around [{', '.join(f'{v:g}' for v in where)}] mm): no design can open "
-                "them; leave the key out or open the passive regions",
-            )
-        self.temperature = VirtualTemperature(shape)
+        refuse_closed_passives(problem, model)
+        self.temperature = VirtualTemperature(model.grid.shape)
         self.log_bound = float(np.log(problem.build.cavity_bound))
         self.reference = self.temperature.aggregate(np.where(model.solid, 1.0, 0.0), False)[0]
 
