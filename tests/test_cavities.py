@@ -341,3 +341,17 @@ def test_a_run_resumed_with_the_multigrid_solve_repeats_the_uninterrupted_one(
     np.testing.assert_array_equal(resumed.density, whole.density)
     values = [[row["constraints"]["cavities"] for row in r.history] for r in (whole, resumed)]
     assert values[0] == values[1]
+
+
+def test_the_example_problem_reads_and_turns_the_constraint_on():
+    from pathlib import Path
+
+    from topo.problem import load_problem
+
+    path = Path(__file__).parent.parent / "problems" / "torque-link-3d.toml"
+    problem = load_problem(path)
+    assert problem.build.no_enclosed_cavities and problem.optimization.optimizer == "mma"
+    assert check(problem)
+    model = Model(problem)
+    terms = Responses(problem, model, build_chain(problem, model)[0]).constraints
+    assert [t.name for t in terms] == ["material", "cavities"]
