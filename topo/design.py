@@ -24,7 +24,7 @@ from .interrupts import Interrupts
 from .optimizers import make_optimizer
 from .printed import PrintedPart, printed_part
 from .problem import Problem, ProblemError
-from .responses import Evaluation, Responses
+from .responses import Evaluation, Responses, refuse_closed_passives
 from .robust import Projections, RobustChain, anchored_elements, blueprint
 from .solvers import blas_for_solver
 from .timing import Timer
@@ -380,6 +380,7 @@ def check(problem: Problem) -> dict:
 
     model = Model(problem)
     _refuse_empty_budget(problem, model)
+    refuse_closed_passives(problem, model)
     return model_report(model)
 
 

@@ -144,6 +144,8 @@ class Build:
     # weight steering the design to support passive solids: 1 left two elements of the
     # 3D demo's pin boss unsupported, 4 supports every interface of both demos
     interface_support: float = 4.0
+    no_enclosed_cavities: bool = False  # virtual temperature constraint (cavities.py)
+    cavity_bound: float = 20.0  # on P(ρ)/P(every design element empty)
 
 
 @dataclass(frozen=True)
@@ -345,6 +347,7 @@ class _Parser(Reader):
         opt = self.optimization(top["optimization"], domain)
         dim = domain.dim
         build = self.build(top["build"], dim)
+        self.cavity_rules(build, opt, dim)
         if build and build.overhang_filter and build.direction[1] in [p.axis for p in opt.symmetry]:
             self.fail(
                 "optimization.symmetry",
@@ -631,6 +634,22 @@ class _Parser(Reader):
                 f"on a square/cubic grid), got {got['overhang_angle']}",
             )
         return Build(**got)
+
+    def cavity_rules(self, build: Build | None, opt: Optimization, dim: int) -> None:
+        if build is None or not build.no_enclosed_cavities:
+            return
+        if dim == 2:
+            self.fail(
+                "build.no_enclosed_cavities",
+                "a 2D design is a section extruded through the thickness: every hole "
+                "is open at both ends and holds no powder; the constraint is for 3D problems",
+            )
+        if opt.optimizer == "oc":
+            self.fail(
+                "build.no_enclosed_cavities",
+                'the cavity constraint needs optimizer = "mma" or "gcmma" (OC handles '
+                "the material budget only)",
+            )
 
     def region(self, value, key: str, dim: int) -> Region:
         if not isinstance(value, dict) or len(value) != 1:

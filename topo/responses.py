@@ -131,6 +131,8 @@ class Term:
     correction) save and restore it for checkpoints."""
 
     name = "term"
+    # True for a term that reads the design x itself (evaluate(..., design=x))
+    needs_design = False
 
     def state(self) -> dict:
         return {}
@@ -332,6 +334,75 @@ def case_stress_limits(problem: Problem) -> np.ndarray | None:
     return np.array([np.inf if v is None else v for v in limits])
 
 
+def refuse_closed_passives(problem: Problem, model) -> None:
+    """With build.no_enclosed_cavities, a region that the passive solids alone close
+    in is a cavity no design can open: refused."""
+    from .cavities import unavoidable_cavities
+
+    if problem.build is None or not problem.build.no_enclosed_cavities:
+        return
+    shape, h = model.grid.shape, problem.domain.element_size
+    trapped = unavoidable_cavities(model.solid.reshape(shape))
+    if trapped.any():
+        where = (np.argwhere(trapped).mean(axis=0) + 0.5) * h
+        raise ProblemError(
+            problem.source,
+            "build.no_enclosed_cavities",
+            f"the passive solid regions alone close in {int(trapped.sum())} elements "
+            f"(around [{', '.join(f'{v:g}' for v in where)}] mm): no design can open "
+            "them; leave the key out or open the passive regions",
+        )
+
+
+class EnclosedCavities(Term):
+    """ln(P(ρ)/P_ref) ≤ ln(build.cavity_bound): the p-norm of the virtual temperature
+    (cavities.py; Liu et al. 2015, Front. Mech. Eng. 10:126) against that of the
+    reference design with every design element empty, which has no closed void.
+    Two solves of the scalar conduction problem (temperature, adjoint) per design."""
+
+    name = "cavities"
+    needs_design = True
+
+    def __init__(self, problem: Problem, model, chain=None):
+        from .cavities import VirtualTemperature
+        from .robust import RobustChain
+
+        refuse_closed_passives(problem, model)
+        self.temperature = VirtualTemperature(model.grid.shape)
+        self.log_bound = float(np.log(problem.build.cavity_bound))
+        self.reference = self.temperature.aggregate(np.where(model.solid, 1.0, 0.0), False)[0]
+        # the robust formulation analyses the eroded design, whose voids are the
+        # widest; the dilated design, the most solid, is the one that closes them in
+        self.dilated = chain.dilated if isinstance(chain, RobustChain) else None
+
+    def evaluate(self, rho, analysis, gradient: bool = True, design=None) -> Response:
+        through = None
+        if self.dilated is not None:
+            if design is None:
+                raise ValueError("the robust formulation's cavity term needs the design x")
+            rho, through = self.dilated.forward(design), self.dilated
+        # in logarithms, ln(P/P_ref) ≤ ln(bound): a closed void raises P by orders
+        # of magnitude, and the logarithm keeps the constraint's steps to a scale
+        # MMA's approximation follows
+        value, d_value, _ = self.temperature.aggregate(rho, gradient)
+        if value < 1e-12 * self.reference:  # no void at all (a full budget): nothing to trap
+            value, d_value = 1e-12 * self.reference, None if d_value is None else 0 * d_value
+        d_log = None if d_value is None else d_value / value
+        return Response(
+            self.name,
+            float(np.log(value / self.reference)),
+            self.log_bound,
+            d_log,
+            through=through,
+        )
+
+    def state(self) -> dict:
+        return self.temperature.system.state()  # the CG warm start on large grids
+
+    def restore(self, state: dict) -> None:
+        self.temperature.system.restore(state)
+
+
 def constraint_terms(problem: Problem, model, chain) -> list:
     """The constraints of a problem, the material budget first. Deflection limits
     are constraints for MMA and GCMMA; OC takes the budget only (the limits are
@@ -343,6 +414,8 @@ def constraint_terms(problem: Problem, model, chain) -> list:
     limits = case_stress_limits(problem)
     if limits is not None:
         terms.append(StressLimit(model, limits))
+    if problem.build is not None and problem.build.no_enclosed_cavities:
+        terms.append(EnclosedCavities(problem, model, chain))
     if problem.optimization.optimizer != "oc":
         terms += [
             DeflectionLimit(model, probe, case)
@@ -380,8 +453,14 @@ class Responses:
         """Values and ρ-gradients at the accepted design x (ρ its analysed field)."""
         objective, bounds = self.objective.evaluate(rho, analysis)
         constraints = [self.material.evaluate(rho, analysis, design=x)]
-        constraints += [t.evaluate(rho, analysis) for t in self.constraints[1:]]
+        constraints += [self._term(t, rho, analysis, x) for t in self.constraints[1:]]
         return Evaluation(objective, constraints, bounds, self.probe)
+
+    @staticmethod
+    def _term(term, rho, analysis, x, gradient: bool = True) -> Response:
+        if term.needs_design:
+            return term.evaluate(rho, analysis, gradient, design=x)
+        return term.evaluate(rho, analysis, gradient)
 
     def pull_back(self, x: np.ndarray, ev: Evaluation) -> None:
         """Turn every ρ-gradient of `ev` into an x-gradient, in one chain pass."""
@@ -401,7 +480,8 @@ class Responses:
         objective = self.objective.evaluate(rho, analysis, gradient=False)[0]
         budget = self.material.evaluate(rho, analysis, gradient=False, design=x)
         return objective.value, np.array(
-            [budget.g] + [t.evaluate(rho, analysis, gradient=False).g for t in self.constraints[1:]]
+            [budget.g]
+            + [self._term(t, rho, analysis, x, gradient=False).g for t in self.constraints[1:]]
         )
 
     def state(self) -> dict:

@@ -510,6 +510,23 @@ SCHEMA: tuple[Section, ...] = (
                 default=4.0,
                 bounds="[0, inf)",
             ),
+            Key(
+                "no_enclosed_cavities",
+                BOOL,
+                "constrain the design to leave no void closed in by solid, where powder "
+                "would stay trapped (virtual temperature method; 3D, mma or gcmma; see README)",
+                default=False,
+            ),
+            Key(
+                "cavity_bound",
+                NUMBER,
+                "bound on the p-norm of the virtual temperature, as a multiple of that of "
+                "the design with every design element empty (with no_enclosed_cavities)",
+                default=20.0,
+                bounds="(1, 1000]",
+                why="at 1 or below many designs with every void open fail (an open ring "
+                "measured 3.4); above 1000 a small closed cavity on a large grid can pass",
+            ),
         ),
     ),
     Section(
