@@ -11,7 +11,14 @@ from __future__ import annotations
 import numpy as np
 from scipy import ndimage
 
-from .printability import from_build_frame, shift, support_rule, to_build_frame, window_sum
+from .printability import (
+    SHIFT_LIMIT,
+    from_build_frame,
+    shift,
+    support_rule,
+    to_build_frame,
+    window_sum,
+)
 
 
 class Transform:
@@ -161,6 +168,9 @@ class Chain(Transform):
         return out
 
 
+TINY = 1e-280  # floor of a window sum Σ ξ^P in the correlated sensitivities
+
+
 class OverhangFilter(Transform):
     """Layer-by-layer additive-manufacturing filter (Langelaar, Additive
     Manufacturing 12 (2016) 60-70 for 3D; Struct. Multidisc. Optim. 55 (2017)
@@ -263,6 +273,14 @@ class OverhangFilter(Transform):
                 safe = np.where(total > 0, total, 1.0)
                 weight = np.where(total > 0, gs * (self.p / q) * safe**b, 0.0)
                 for j, offs in self.rule.conditions[c]:
+                    if len(offs) > SHIFT_LIMIT:
+                        # the same sum as below, as one correlation: ξ_j^(P−1) times
+                        # the window sum of weight · Σ_m^(−(P−1)/P); Σ_m held above
+                        # TINY so that no factor overflows (windows whose every cell
+                        # is below TINY^(1/P) ≈ 1e-7 pass a smaller sensitivity)
+                        coef = weight * np.maximum(safe, TINY) ** -a
+                        g[i - j] += printed[i - j] ** (self.p - 1) * window_sum(coef, offs)
+                        continue
                     for o in offs:
                         ratio = np.minimum(shift(powered[i - j], o, +1) / safe, 1.0)
                         g[i - j] += shift(weight * ratio**a, o, -1)  # onto element m + o
