@@ -169,8 +169,10 @@ def support_rule(angle: float, plane_dim: int) -> SupportRule:
     keep = [
         parts
         for a, parts in enumerate(candidates)
-        if not any(b != a and cells[b] <= cells[a] and (cells[b] != cells[a] or b < a)
-                   for b in range(len(candidates)))
+        if not any(
+            b != a and cells[b] <= cells[a] and (cells[b] != cells[a] or b < a)
+            for b in range(len(candidates))
+        )
     ]
     return SupportRule(float(angle), plane_dim, m, tuple(keep))
 
