@@ -63,7 +63,8 @@ def test_parse_override_reads_toml_values():
         ("material.youngs_modulus", "stiff", "material.youngs_modulus"),
         ("material.preset", "Ti64x", "unknown preset"),
         ("build.direction", "up", "build.direction"),
-        ("build.overhang_angle", 30.0, "only 45 degrees"),
+        ("build.overhang_angle", 25.0, "build.overhang_angle: must lie in [30, 60], got 25"),
+        ("build.overhang_angle", 61.0, "30° to 60° from the plate"),
         ("load_case.0.force.0.total", [0.0, 0.0], "zero total force"),
     ],
 )

@@ -226,8 +226,8 @@ def unsupported(f: SignOffFigures) -> dict:
         ok,
         f.unsupported_fraction,
         f.unsupported_limit,
-        "share of printed elements with no printed element in their 45° support region "
-        "below (they need support structures)",
+        "share of printed elements the overhang rule of build.overhang_angle leaves "
+        "without support below (they need support structures)",
     )
 
 

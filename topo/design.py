@@ -80,7 +80,8 @@ def build_chain(
     steps.append(PassiveOverride(model.solid, model.void))
     # Last, so that passive solids must be supported like any other element.
     if problem.build is not None and problem.build.overhang_filter:
-        steps.append(OverhangFilter(model.grid.shape, problem.build.direction))
+        build = problem.build
+        steps.append(OverhangFilter(model.grid.shape, build.direction, build.overhang_angle))
     if problem.length_scale is not None:  # three projections: robust.py
         chain = RobustChain(steps, projection, problem.length_scale, anchored_elements(model))
         return chain, chain.projections
@@ -159,7 +160,8 @@ def _refuse_unreachable(problem: Problem, model: Model) -> None:
             problem.source,
             "build.direction",
             f"building {problem.build.direction}, no self-supporting material can reach "
-            f"{', '.join(cut)}: void regions block every 45° path from the plate, so the "
+            f"{', '.join(cut)}: void regions block every path from the plate within the "
+            f"{problem.build.overhang_angle:g}° overhang rule, so the "
             "design cannot join them to the part. Choose another build direction, or go on "
             "anyway (--allow-unreachable; the load-path check will fail)",
         )

@@ -106,8 +106,9 @@ def enclosed_cavities(printed: np.ndarray, h: float, element_volume: float) -> l
 
 def unreachable_regions(model) -> list[str]:
     """Load and support regions that no self-supporting design can reach from the
-    build plate (void regions block every 45° path to them). Empty without a build
-    direction or with the overhang filter off (then supports can be added)."""
+    build plate (void regions block every path to them within the overhang rule).
+    Empty without a build direction or with the overhang filter off (then supports
+    can be added)."""
     build = model.problem.build
     if build is None or not build.overhang_filter:
         return []
@@ -121,4 +122,6 @@ def unreachable_regions(model) -> list[str]:
         for s, n in zip(model.problem.supports, model.support_nodes)
     }
     regions |= {f"load {name}": touching(n) for name, n in model.load_nodes}
-    return unreachable(model.void.reshape(grid.shape), build.direction, regions)
+    return unreachable(
+        model.void.reshape(grid.shape), build.direction, regions, build.overhang_angle
+    )

@@ -46,7 +46,10 @@ def direction_figures(result, direction: str) -> dict:
     dom, mat = problem.domain, problem.material
     printed = result.printed.density
     depth = dom.thickness if printed.ndim == 2 else None
-    area, support_mm3, _ = support_needed(printed > 0.5, direction, dom.element_size, depth)
+    angle = problem.build.overhang_angle if problem.build else 45.0
+    area, support_mm3, _ = support_needed(
+        printed > 0.5, direction, dom.element_size, depth, angle=angle
+    )
     box = _extent(printed, dom.element_size, depth)
     axis = "xyz".index(direction[1])
     height = box[axis]

@@ -627,12 +627,6 @@ class _Parser(Reader):
         if value is None:
             return None
         got = self.read("build", value, "build", {"dim": dim})
-        if got["overhang_angle"] != 45.0:
-            self.fail(
-                "build.overhang_angle",
-                f"only 45 degrees is supported (the self-supporting limit "
-                f"on a square/cubic grid), got {got['overhang_angle']}",
-            )
         return Build(**got)
 
     def cavity_rules(self, build: Build | None, opt: Optimization, dim: int) -> None:

@@ -205,7 +205,10 @@ def _unsupportable(model) -> list[dict]:
     problem = model.problem
     if problem.build is None:
         return []
-    ok = printable_envelope(model.void.reshape(model.grid.shape), problem.build.direction).ravel()
+    build = problem.build
+    ok = printable_envelope(
+        model.void.reshape(model.grid.shape), build.direction, build.overhang_angle
+    ).ravel()
     out = []
     for i, (p, elems) in enumerate(zip(problem.passives, model.passive_elements)):
         if p.kind != "solid":
@@ -513,7 +516,7 @@ def format_check(rep: dict) -> list[str]:
             f"  warning: {r['key']} ({r['name']}): "
             f"{r['unsupportable_elements']} of {r['elements']} "
             f"elements cannot be supported from the build plate ({rep['build_direction']}); "
-            "void regions block every 45° path"
+            "void regions block every path within the overhang rule"
         )
     for name in rep["unreachable_regions"]:
         lines.append(

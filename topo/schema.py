@@ -491,10 +491,14 @@ SCHEMA: tuple[Section, ...] = (
             Key(
                 "overhang_angle",
                 NUMBER,
-                "self-supporting angle from the plate; only 45 is supported",
+                "self-supporting angle from the plate: the overhang rule of the filter and "
+                "the printability check (see README, Overhang rule)",
                 "degrees",
                 45.0,
-                "(0, 90)",
+                "[30, 60]",
+                why="the overhang rule is defined for 30° to 60° from the plate (common "
+                "practice quotes 35–50° for powder-bed fusion); 0° is a flat overhang and "
+                "90° a vertical wall, neither a self-supporting limit",
             ),
             Key(
                 "overhang_filter",

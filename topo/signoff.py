@@ -102,6 +102,7 @@ def interface_support(problem, model, printed: np.ndarray, grey: np.ndarray) -> 
                 problem.domain.element_size,
                 problem.domain.thickness,
                 within.reshape(printed.shape),
+                build.overhang_angle,
             )
             row["downfacing_area_mm2"], row["support_volume_mm3"] = area, volume
         out.append(row)
@@ -131,7 +132,7 @@ def sign_off(result) -> dict:
     interfaces = interface_support(problem, model, part.density, grey)
     wall, gap = minimum_wall_and_gap(part.density, dom.element_size)
     build = problem.build
-    by_direction = unsupported_by_direction(part.density)
+    by_direction = unsupported_by_direction(part.density, build.overhang_angle if build else 45.0)
     unsupported = by_direction[build.direction] if build else None
     deflection_rows = [
         {
