@@ -173,3 +173,40 @@ def test_oc_step_refuses_a_second_constraint():
     assert ok.sum() == pytest.approx(2.0)  # the budget met: Σx = 2
     with pytest.raises(ValueError, match="material budget only"):
         OptimalityCriteria(active).step(x, Evaluation(objective, [budget, SimpleNamespace()]))
+
+
+def test_oc_exact_budget_out_of_reach_stops_at_the_upper_move_limits():
+    """A nonlinear budget that even the largest step cannot meet (a layer that
+    removes material): the step is every element at x + move (clipped to 1), found
+    without stepping the multiplier down to the evaluation limit."""
+    from topo.optimizers import OptimalityCriteria
+
+    rng = np.random.default_rng(4)
+    n = 50
+    x = rng.uniform(0.2, 0.9, n)
+    dc = -rng.uniform(0.5, 2.0, n)
+    dv = np.full(n, 1.0 / n)
+    calls = []
+
+    def exact(xc):  # half the material is lost: the target 0.9 is out of reach
+        calls.append(1)
+        return 0.5 * xc.mean()
+
+    oc = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    xn = oc.update(x, dc, x.mean(), dv, 0.9, exact)
+    np.testing.assert_allclose(xn, np.minimum(x + 0.2, 1.0))  # the OC step's bounds
+    assert len(calls) < 10  # the old search used all 60 evaluations
+
+
+def test_oc_exact_budget_within_reach_is_met():
+    """The same layer with a reachable target: the exact volume meets it."""
+    from topo.optimizers import OptimalityCriteria
+
+    rng = np.random.default_rng(5)
+    n = 50
+    x = rng.uniform(0.2, 0.9, n)
+    dc = -rng.uniform(0.5, 2.0, n)
+    exact = lambda xc: 0.5 * xc.mean()
+    oc = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    xn = oc.update(x, dc, x.mean(), np.full(n, 1.0 / n), 0.3, exact)
+    assert exact(xn) == pytest.approx(0.3, abs=1e-6)
