@@ -159,6 +159,17 @@ def synthetic_design(shape, fraction: float, seed: int = 0) -> np.ndarray:
     return (0.5 + 0.5 * np.tanh((field - level) / spread)).astype(float).ravel()
 
 
+def rounded_part(shape, radius: float = 12.0, spacing: int = 40) -> np.ndarray:
+    """0/1 field of balls of `radius` elements on a lattice `spacing` apart: walls and
+    gaps wider than lengthscale.MAX_DIAMETER, the most diameters the wall and gap
+    measure can try (a random design stops at its first thin sliver)."""
+    axes = [np.arange(n) % spacing - spacing / 2 for n in shape]
+    r2 = sum(
+        a.reshape([-1 if b == i else 1 for b in range(len(shape))]) ** 2 for i, a in enumerate(axes)
+    )
+    return (r2 <= radius * radius).astype(float)
+
+
 def _status(key: str) -> float:
     """A /proc/self/status figure (kB) in MB."""
     with open("/proc/self/status") as f:
@@ -320,6 +331,10 @@ def _run_stages(shape, echo, skip: tuple[str, ...]) -> dict:
         enclosed_cavities(printed, dom.element_size, dom.element_volume)
     with stages("minimum wall and gap"):
         wall_gap = minimum_wall_and_gap(printed, dom.element_size)
+    rounded = rounded_part(shape3)
+    with stages("minimum wall and gap, rounded part"):
+        rounded_wall_gap = minimum_wall_and_gap(rounded, dom.element_size)
+    del rounded
     with stages("unsupported, every direction"):
         unsupported_by_direction(printed)
     with stages("support needed (one interface)"):
@@ -372,6 +387,7 @@ def _run_stages(shape, echo, skip: tuple[str, ...]) -> dict:
         "stages": stages.rows,
         "file_MB": sizes,
         "min_wall_gap_mm": list(wall_gap),
+        "rounded_part_min_wall_gap_mm": list(rounded_wall_gap),
         "mesh_faces": int(len(surface.mesh.faces)),
         "summary_bytes": len(json.dumps(summary, default=str)),
     }

@@ -209,7 +209,7 @@ class OverhangFilter(Transform):
 
     def _layers(self, x):
         """Forward pass in the build frame, keeping what backward needs."""
-        blue = to_build_frame(x.reshape(self.shape), self.direction)
+        blue = np.ascontiguousarray(to_build_frame(x.reshape(self.shape), self.direction))
         printed = np.empty_like(blue)
         printed[0] = blue[0]
         sums, supports = [None], [None]
