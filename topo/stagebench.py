@@ -160,13 +160,16 @@ def synthetic_design(shape, fraction: float, seed: int = 0) -> np.ndarray:
 
 
 def rounded_part(shape, radius: float = 12.0, spacing: int = 40) -> np.ndarray:
-    """0/1 field of balls of `radius` elements on a lattice `spacing` apart: walls and
-    gaps wider than lengthscale.MAX_DIAMETER, the most diameters the wall and gap
-    measure can try (a random design stops at its first thin sliver)."""
-    axes = [np.arange(n) % spacing - spacing / 2 for n in shape]
-    r2 = sum(
-        a.reshape([-1 if b == i else 1 for b in range(len(shape))]) ** 2 for i, a in enumerate(axes)
-    )
+    """0/1 field of balls of `radius` elements centred `spacing` apart, each wholly
+    inside the domain: walls wider than lengthscale.MAX_DIAMETER, so the wall
+    measure tries every diameter (a random design stops at its first thin sliver)."""
+    dim = len(shape)
+    r2 = np.zeros(shape)
+    for axis, n in enumerate(shape):
+        a = np.arange(n, dtype=float)
+        centre = (a // spacing) * spacing + spacing / 2
+        d = np.where(centre + radius + 0.5 <= n, a + 0.5 - centre, np.inf)  # cut balls left out
+        r2 = r2 + (d**2).reshape([-1 if b == axis else 1 for b in range(dim)])
     return (r2 <= radius * radius).astype(float)
 
 
