@@ -132,6 +132,9 @@ def _all_at_upper(xa: np.ndarray, ratio: np.ndarray, hi: np.ndarray, damping: fl
     return float(reach.min()) * (1.0 - 1e-9)  # strictly inside: clipped despite round-off
 
 
+SEARCH_STEPS = 6  # steps of 4 below the linearised multiplier before the floor is tried
+
+
 def _bracketed_root(
     f: Callable[[float], float],
     guess: float,
@@ -155,6 +158,10 @@ def _bracketed_root(
         else:
             a, fa = a / 4, f(a / 4)
         evals += 1
+        # far below the guess already: try the floor once, since elements of tiny
+        # sensitivity put it many decades down while f barely moves on the way
+        if evals == SEARCH_STEPS + 2 and fa < 0 and floor > 0 and f(floor) < 0:
+            return float(floor)
     while fb > 0 and evals < max_evals:
         b, fb = b * 4, f(b * 4)
         evals += 1
