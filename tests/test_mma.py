@@ -211,3 +211,25 @@ def test_oc_exact_budget_within_reach_is_met():
     oc = OptimalityCriteria(np.ones(n, bool), move=0.2)
     xn = oc.update(x, dc, x.mean(), np.full(n, 1.0 / n), 0.3, exact)
     assert exact(xn) == pytest.approx(0.3, abs=1e-6)
+
+
+def test_oc_state_keeps_only_the_sign_of_the_last_step_and_resumes_exactly():
+    """An OC restored from its (compact) state takes the same next step as the one
+    that went on; the adaptive limits depend on the last step's sign alone."""
+    from topo.optimizers import OptimalityCriteria
+
+    rng = np.random.default_rng(6)
+    n = 40
+    x = rng.uniform(0.2, 0.8, n)
+    dv = np.full(n, 1.0 / n)
+    grads = [-rng.uniform(0.1, 2.0, n) for _ in range(3)]
+    on = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    x1 = on.update(x, grads[0], x.mean(), dv, 0.5)
+    state = on.state()
+    assert state["last_step"].dtype == np.int8
+    resumed = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    resumed.restore(state)
+    for g in grads[1:]:
+        a, b = on.update(x1, g, x1.mean(), dv, 0.5), resumed.update(x1, g, x1.mean(), dv, 0.5)
+        assert np.array_equal(a, b) and np.array_equal(on.limits, resumed.limits)
+        x1 = a

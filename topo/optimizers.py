@@ -45,10 +45,13 @@ class OptimalityCriteria:
         self.last_step = np.zeros(n)
 
     def state(self) -> dict:
-        return {"limits": self.limits, "last_step": self.last_step}
+        # the next update reads only the sign of the last step (flip or not): one
+        # byte per element in the checkpoint instead of eight
+        return {"limits": self.limits, "last_step": np.sign(self.last_step).astype(np.int8)}
 
     def restore(self, state: dict) -> None:
-        self.limits, self.last_step = state["limits"].copy(), state["last_step"].copy()
+        self.limits = state["limits"].copy()
+        self.last_step = state["last_step"].astype(float)
 
     def step(self, x: np.ndarray, ev) -> np.ndarray:
         """One update from a responses evaluation: OC handles one constraint, the
