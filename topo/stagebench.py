@@ -220,7 +220,9 @@ class Stages:
 
 def run_stages(shape=SHAPE, echo=None, skip: tuple[str, ...] = ()) -> dict:
     """Every non-solver stage of the pipeline on the bracket of `shape`, with
-    numpy's BLAS on one thread as in a run (solvers.blas_for_solver)."""
+    numpy's BLAS on one thread as in a run (solvers.blas_for_solver). `skip` may
+    name "stress" to leave out the stress aggregate (a stage whose memory once
+    exceeded the others' by far)."""
     from .solvers import blas_for_solver
 
     with blas_for_solver():
