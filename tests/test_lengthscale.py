@@ -54,3 +54,19 @@ def test_a_staircase_strut_is_one_element_thick():
     for i in range(3, 26):
         field[i, i : i + 2] = 1.0  # a 45° strut two cells tall in each column
     assert minimum_wall_and_gap(field, 1.0)[0] == 1.0
+
+
+@pytest.mark.parametrize("shape", [(31, 27), (16, 14, 13)])
+def test_ball_opening_equals_scipy_binary_opening(shape, rng):
+    """The distance-based opening against scipy.ndimage.binary_opening with the
+    digital ball as structure, odd and even diameters, on smooth random fields."""
+    from scipy import ndimage
+
+    from topo.lengthscale import ball_opening
+
+    for level in (-0.3, 0.0, 0.4):
+        field = ndimage.gaussian_filter(rng.standard_normal(shape), 1.5) > level
+        for d in range(1, 10):
+            padded = np.pad(field, d)
+            expect = ndimage.binary_opening(padded, structure=digital_ball(d, len(shape)))
+            assert np.array_equal(ball_opening(padded, d), expect), (level, d)

@@ -173,3 +173,63 @@ def test_oc_step_refuses_a_second_constraint():
     assert ok.sum() == pytest.approx(2.0)  # the budget met: Σx = 2
     with pytest.raises(ValueError, match="material budget only"):
         OptimalityCriteria(active).step(x, Evaluation(objective, [budget, SimpleNamespace()]))
+
+
+def test_oc_exact_budget_out_of_reach_stops_at_the_upper_move_limits():
+    """A nonlinear budget that even the largest step cannot meet (a layer that
+    removes material): the step is every element at x + move (clipped to 1), found
+    without stepping the multiplier down to the evaluation limit."""
+    from topo.optimizers import OptimalityCriteria
+
+    rng = np.random.default_rng(4)
+    n = 50
+    x = rng.uniform(0.2, 0.9, n)
+    dc = -rng.uniform(0.5, 2.0, n)
+    dc[:3] = -1e-30  # elements of tiny sensitivity: the step saturates decades down
+    dv = np.full(n, 1.0 / n)
+    calls = []
+
+    def exact(xc):  # half the material is lost: the target 0.9 is out of reach
+        calls.append(1)
+        return 0.5 * xc.mean()
+
+    oc = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    xn = oc.update(x, dc, x.mean(), dv, 0.9, exact)
+    np.testing.assert_allclose(xn, np.minimum(x + 0.2, 1.0))  # the OC step's bounds
+    assert len(calls) < 10  # the old search used all 60 evaluations
+
+
+def test_oc_exact_budget_within_reach_is_met():
+    """The same layer with a reachable target: the exact volume meets it."""
+    from topo.optimizers import OptimalityCriteria
+
+    rng = np.random.default_rng(5)
+    n = 50
+    x = rng.uniform(0.2, 0.9, n)
+    dc = -rng.uniform(0.5, 2.0, n)
+    exact = lambda xc: 0.5 * xc.mean()
+    oc = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    xn = oc.update(x, dc, x.mean(), np.full(n, 1.0 / n), 0.3, exact)
+    assert exact(xn) == pytest.approx(0.3, abs=1e-6)
+
+
+def test_oc_state_keeps_only_the_sign_of_the_last_step_and_resumes_exactly():
+    """An OC restored from its (compact) state takes the same next step as the one
+    that went on; the adaptive limits depend on the last step's sign alone."""
+    from topo.optimizers import OptimalityCriteria
+
+    rng = np.random.default_rng(6)
+    n = 40
+    x = rng.uniform(0.2, 0.8, n)
+    dv = np.full(n, 1.0 / n)
+    grads = [-rng.uniform(0.1, 2.0, n) for _ in range(3)]
+    on = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    x1 = on.update(x, grads[0], x.mean(), dv, 0.5)
+    state = on.state()
+    assert state["last_step"].dtype == np.int8
+    resumed = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    resumed.restore(state)
+    for g in grads[1:]:
+        a, b = on.update(x1, g, x1.mean(), dv, 0.5), resumed.update(x1, g, x1.mean(), dv, 0.5)
+        assert np.array_equal(a, b) and np.array_equal(on.limits, resumed.limits)
+        x1 = a

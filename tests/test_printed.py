@@ -153,3 +153,17 @@ def test_printed_part_drops_floating_debris_but_keeps_interfaces():
     p = printed_density(grey, model)
     assert p[:30, 1:9].all() and p[35, 0] == 0.0 and p[32:36, 4:8].all()
     assert p[39, 9] == 1.0  # the passive solid stays though it floats
+
+
+def test_elements_at_nodes_matches_the_element_node_table(rng):
+    """The elements touching a node set, computed from node indices, against a scan
+    of every element's corner nodes (numpy isin over the whole table)."""
+    from topo.grid import Grid
+    from topo.integrity import _elements_at_nodes
+
+    for shape in [(6, 4), (5, 4, 3)]:
+        g = Grid(shape, 1.0)
+        for size in (1, 5, 40):
+            nodes = rng.choice(g.n_nodes, size=min(size, g.n_nodes), replace=False)
+            expect = np.isin(g.element_nodes, nodes).any(axis=1)
+            assert np.array_equal(_elements_at_nodes(g, nodes), expect)

@@ -61,3 +61,55 @@ def test_outside_domain():
     assert outside_domain(Box((10.0, 10.0), (12.0, 12.0)), G2)
     assert not outside_domain(Box((3.0, 2.0), (12.0, 12.0)), G2)
     assert outside_domain(Point((-3.0, 0.0)), G2)
+
+
+def _every_point(shape, h, offset):
+    """All grid points (index + offset)·h in C order, from numpy's own grid."""
+    idx = np.indices(shape).reshape(len(shape), -1).T
+    return (idx + offset) * h
+
+
+def test_selection_tests_only_the_bounding_box_yet_matches_an_exhaustive_scan(rng):
+    """Selections test only the points in a region's bounding box; an exhaustive
+    scan of every point with numpy's formulas for a box, ball and cylinder (and the
+    nearest point by a full argmin) picks the same sets, on and off grid lines."""
+    g = Grid((9, 6, 5), 1.25)
+    tol_n, tol_e = 0.5 * g.h * (1 + 1e-9), 1e-9 * g.h
+    nodes, centres = _every_point(g.node_shape, g.h, 0.0), _every_point(g.shape, g.h, 0.5)
+    size = np.array(g.size)
+    for _ in range(60):
+        c = rng.uniform(-0.1, 1.1, 3) * size
+        if rng.random() < 0.4:
+            c = np.round(c / (g.h / 2)) * (g.h / 2)  # on grid and half-grid lines
+        r = float(rng.choice([0.4, g.h, 1.5 * g.h, 3.0]))
+        lo, hi = c - rng.uniform(0, 0.4, 3) * size, c + rng.uniform(0, 0.4, 3) * size
+        box, ball = Box(tuple(lo), tuple(hi)), Sphere(tuple(c), r)
+        cyl = Cylinder(tuple(c), "y", r, 4.0)
+        for pts, tol, select in ((nodes, tol_n, select_nodes), (centres, tol_e, select_elements)):
+            in_box = np.all((pts >= lo - tol) & (pts <= hi + tol), axis=1)
+            in_ball = np.linalg.norm(pts - c, axis=1) <= r + tol
+            rel = pts - c
+            in_cyl = (np.hypot(rel[:, 0], rel[:, 2]) <= r + tol) & (np.abs(rel[:, 1]) <= 2.0 + tol)
+            assert np.array_equal(select(box, g), np.flatnonzero(in_box))
+            assert np.array_equal(select(ball, g), np.flatnonzero(in_ball))
+            assert np.array_equal(select(cyl, g), np.flatnonzero(in_cyl))
+            nearest = int(np.argmin(np.linalg.norm(pts - c, axis=1)))
+            assert list(select(Point(tuple(c)), g)) == [nearest]
+
+
+def test_grid_tables_match_numpy_index_grids():
+    """Element corner nodes and positions against np.indices / np.ravel_multi_index."""
+    from topo.grid import H8_CORNERS
+
+    g = Grid((4, 3, 5), 0.5)
+    idx = np.indices(g.shape).reshape(3, -1)
+    expect = np.stack(
+        [
+            np.ravel_multi_index(tuple(idx[a] + c[a] for a in range(3)), g.node_shape)
+            for c in H8_CORNERS
+        ],
+        axis=1,
+    )
+    assert np.array_equal(g.element_nodes, expect)
+    assert np.array_equal(g.node_coords, _every_point(g.node_shape, 0.5, 0.0))
+    assert np.array_equal(g.element_centers, _every_point(g.shape, 0.5, 0.5))

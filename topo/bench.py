@@ -229,6 +229,76 @@ def case_verify(demo: str) -> dict:
     }
 
 
+def case_print_stages(shape: tuple[int, int, int]) -> dict:
+    """Every stage of the print-resolution bracket but the linear solve, on a
+    synthetic design and synthetic displacements (stagebench.py): seconds and peak
+    memory per stage, output file sizes."""
+    from .stagebench import run_stages
+
+    return run_stages(shape)
+
+
+def case_print_run(shape: tuple[int, int, int], iterations: int) -> dict:
+    """The print-resolution bracket (stagebench.print_bracket) run whole with the
+    default solver: `iterations` design iterations with checkpoints, the final
+    analyses and sign-off, then every output file; per-phase means over the
+    iterations, wall time from problem to files, peak memory of the process."""
+    import tempfile
+    from pathlib import Path
+
+    from .export import export
+    from .stagebench import print_bracket
+
+    d = print_bracket(shape)
+    d["optimization"]["max_iterations"] = iterations
+    timer: dict = {}
+    with tempfile.TemporaryDirectory() as tmp:
+        marks: list[float] = []  # wall time at the end of each iteration
+        start = time.perf_counter()
+        problem = problem_from_dict(d)
+        result = optimize(
+            problem,
+            callback=lambda row: marks.append(time.perf_counter()),
+            timer=timer,
+            checkpoint=Path(tmp) / "checkpoint.npz",
+        )
+        loop_end = time.perf_counter()
+        checkpoint_mb = (Path(tmp) / "checkpoint.npz").stat().st_size / 2**20
+        export(result, Path(tmp) / "out")
+        end = time.perf_counter()
+    n = len(result.history)
+    loop = sum(h["seconds"] for h in result.history)
+    per = {p: timer.get(p, 0.0) / n for p in PHASES}
+    per["other"] = max(loop / n - sum(per.values()), 0.0)
+    return {
+        "solver": result.model.system.name,
+        "iterations": n,
+        "wall_s": end - start,
+        "per_iteration_s": loop / n,
+        "phases_s": per,
+        "first_iteration_s": result.history[0]["seconds"],
+        "setup_s": marks[0] - result.history[0]["seconds"] - start,
+        # the final analyses of the grey and the printed design, sign-off, summary, files
+        "finish_s": end - marks[-1],
+        "export_s": end - loop_end,
+        "solver_iterations": float(np.mean([h["solver_iterations"] or 0 for h in result.history])),
+        "checkpoint_MB": checkpoint_mb,
+        "compliance": result.history[-1]["objective"],
+    }
+
+
+def format_stages(name: str, r: dict) -> str:
+    lines = [f"{name}: {r['elements']:,} elements, stages other than the solve"]
+    for stage, row in r["stages"].items():
+        lines.append(
+            f"  {stage:40s} {row['s']:8.2f} s  peak {row['peak_MB']:7.0f} MB "
+            f"(+{row['extra_MB']:.0f} MB)"
+        )
+    sizes = ", ".join(f"{k} {v:.1f} MB" for k, v in r["file_MB"].items())
+    lines.append(f"  files: {sizes}; peak memory {r['peak_memory_MB']:.0f} MB")
+    return "\n".join(lines)
+
+
 # Run only when named with --case: each takes from ten minutes to over half an
 # hour on two cores (the long comparison is dominated by its direct run).
 ON_REQUEST = {
@@ -236,6 +306,9 @@ ON_REQUEST = {
     "compare-3d-60x30x30-long": (case_compare, ((60, 30, 30), 50)),
     "verify-2d-demo": (case_verify, ("bracket-2d",)),
     "verify-3d-demo": (case_verify, ("bracket-3d",)),
+    # the print-resolution bracket, 150 × 80 × 60 mm at 0.5 mm (5.76 million elements)
+    "print-3d-300x160x120-stages": (case_print_stages, ((300, 160, 120),)),
+    "print-3d-300x160x120": (case_print_run, ((300, 160, 120), 100)),
 }
 
 
@@ -286,6 +359,8 @@ def _phases(r: dict) -> str:
 def format_case(name: str, r: dict) -> str:
     if "error" in r:
         return f"{name}: FAILED {r['error']}"
+    if "stages" in r:
+        return format_stages(name, r)
     if "verify_s" in r:
         fine = r["meshes"][-1]
         return (

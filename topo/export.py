@@ -137,33 +137,39 @@ def write_fields(result, path: Path) -> None:
     case of both, and von Mises stress only where material is: the printed part's in
     its solid elements, the grey design's where ρ ≥ 0.5 (fem.py's stress is that of
     the solid material, which in a void element at ρ ≈ 0 reads thousands of MPa and
-    would swamp any colour scale). Zero elsewhere."""
-    import meshio
+    would swamp any colour scale). Zero elsewhere. Each field is made as it is
+    written (vtu.py), so a fine grid's fields are never all in memory at once."""
+    from .vtu import VTK_HEXAHEDRON, VTK_QUAD, write_vtu
 
     model, grey, printed = result.model, result.analysis, result.printed
     grid = model.grid
-    pts = grid.node_coords
-    if grid.dim == 2:
-        pts = np.column_stack([pts, np.zeros(len(pts))])
-    cell_type = "quad" if grid.dim == 2 else "hexahedron"  # our corner order is VTK's
+
+    def points():
+        pts = grid.node_coords
+        return np.column_stack([pts, np.zeros(len(pts))]) if grid.dim == 2 else pts
+
     made = printed.density.ravel() > 0.5
     grey_solid = result.density.ravel() >= GREY_STRESS_CUT
-    point_data = {}
-    cell_data = {"density": [result.density.ravel()], "printed_density": [made.astype(float)]}
-    printed_vm = np.where(made[:, None], printed.analysis.von_mises, 0.0)
-    grey_vm = np.where(grey_solid[:, None], grey.von_mises, 0.0)
+
+    def stress(analysis, where, case=None):
+        vm = analysis.von_mises
+        if case is None:
+            return lambda: np.where(where, vm.max(axis=1), 0.0)
+        return lambda: np.where(where, vm[:, case], 0.0)
+
+    point_data, cell_data = {}, {}
+    cell_data["density"] = lambda: result.density.ravel()
+    cell_data["printed_density"] = lambda: made.astype(float)
     for i, case in enumerate(result.problem.load_cases):
         name = field_name(case.name)
-        point_data[f"displacement_printed_{name}"] = _vectors(grid, printed.analysis, i)
-        point_data[f"displacement_grey_{name}"] = _vectors(grid, grey, i)
-        cell_data[f"von_mises_printed_{name}"] = [printed_vm[:, i]]
-        cell_data[f"von_mises_grey_rho_ge_half_{name}"] = [grey_vm[:, i]]
-    cell_data["von_mises_printed_max"] = [printed_vm.max(axis=1)]
-    cell_data["von_mises_grey_rho_ge_half_max"] = [grey_vm.max(axis=1)]
-    m = meshio.Mesh(
-        pts, [(cell_type, grid.element_nodes)], point_data=point_data, cell_data=cell_data
-    )
-    write_meshio(path, m, "vtu")
+        point_data[f"displacement_printed_{name}"] = lambda i=i: _vectors(grid, printed.analysis, i)
+        point_data[f"displacement_grey_{name}"] = lambda i=i: _vectors(grid, grey, i)
+        cell_data[f"von_mises_printed_{name}"] = stress(printed.analysis, made, i)
+        cell_data[f"von_mises_grey_rho_ge_half_{name}"] = stress(grey, grey_solid, i)
+    cell_data["von_mises_printed_max"] = stress(printed.analysis, made)
+    cell_data["von_mises_grey_rho_ge_half_max"] = stress(grey, grey_solid)
+    cell_type = VTK_QUAD if grid.dim == 2 else VTK_HEXAHEDRON  # our corner order is VTK's
+    write_vtu(path, points, lambda: grid.element_nodes, cell_type, point_data, cell_data)
 
 
 def _vectors(grid, analysis, case: int) -> np.ndarray:

@@ -52,12 +52,14 @@ class Grid:
     @cached_property
     def element_nodes(self) -> np.ndarray:
         """(n_elements, 4 or 8) node numbers of every element, local order above."""
-        idx = np.indices(self.shape).reshape(self.dim, -1)  # (dim, ne), C order
-        cols = [
-            np.ravel_multi_index(tuple(idx[a] + c[a] for a in range(self.dim)), self.node_shape)
-            for c in self.corners
-        ]
-        return np.stack(cols, axis=1)
+        # node number of each element's lowest corner, by broadcasting the strides
+        strides = np.cumprod((self.node_shape[1:] + (1,))[::-1])[::-1]
+        base = np.zeros(self.shape, dtype=np.int64)
+        for a, (n, s) in enumerate(zip(self.shape, strides)):
+            base += (np.arange(n, dtype=np.int64) * s).reshape(
+                [-1 if b == a else 1 for b in range(self.dim)]
+            )
+        return base.reshape(-1, 1) + self.corners @ strides
 
     @cached_property
     def element_dofs(self) -> np.ndarray:
@@ -69,14 +71,22 @@ class Grid:
     @cached_property
     def node_coords(self) -> np.ndarray:
         """(n_nodes, dim) node positions in mm."""
-        idx = np.indices(self.node_shape).reshape(self.dim, -1).T
-        return idx * self.h
+        return self._positions(self.node_shape, 0.0)
 
     @cached_property
     def element_centers(self) -> np.ndarray:
         """(n_elements, dim) element centre positions in mm."""
-        idx = np.indices(self.shape).reshape(self.dim, -1).T
-        return (idx + 0.5) * self.h
+        return self._positions(self.shape, 0.5)
+
+    def _positions(self, shape: tuple[int, ...], offset: float) -> np.ndarray:
+        """(index + offset)·h of every point of `shape`, C order, one column per axis."""
+        out = np.empty((int(np.prod(shape)), self.dim))
+        for a, n in enumerate(shape):
+            column = out[:, a].reshape(shape)
+            column[...] = ((np.arange(n) + offset) * self.h).reshape(
+                [-1 if b == a else 1 for b in range(self.dim)]
+            )
+        return out
 
     @property
     def size(self) -> tuple[float, ...]:

@@ -28,10 +28,16 @@ class LoadPath:
 
 
 def _elements_at_nodes(grid, nodes: np.ndarray) -> np.ndarray:
-    """Boolean mask of the elements that have any of `nodes` as a corner."""
-    mark = np.zeros(grid.n_nodes, dtype=bool)
-    mark[nodes] = True
-    return mark[grid.element_nodes].any(axis=1)
+    """Boolean mask of the elements that have any of `nodes` as a corner: node
+    (i, j[, k]) is a corner of the elements (i − 1 or i, j − 1 or j, …) that exist,
+    so the cost is that of the node set, not of the grid."""
+    idx = np.unravel_index(np.asarray(nodes, dtype=np.int64), grid.node_shape)
+    mask = np.zeros(grid.n_elements, dtype=bool)
+    for corner in grid.corners:
+        cells = [i - c for i, c in zip(idx, corner)]
+        ok = np.all([(c >= 0) & (c < n) for c, n in zip(cells, grid.shape)], axis=0)
+        mask[np.ravel_multi_index(tuple(c[ok] for c in cells), grid.shape)] = True
+    return mask
 
 
 def load_path(
@@ -92,7 +98,8 @@ def enclosed_cavities(printed: np.ndarray, h: float, element_volume: float) -> l
     for k, where in enumerate(ndimage.find_objects(labels), start=1):
         if k in open_labels or where is None:
             continue
-        cells = np.argwhere(labels == k)
+        # within the cavity's bounding box only: the cost is the cavity's, not the grid's
+        cells = np.argwhere(labels[where] == k) + [sl.start for sl in where]
         out.append(
             Cavity(
                 float(len(cells) * element_volume),

@@ -45,10 +45,13 @@ class OptimalityCriteria:
         self.last_step = np.zeros(n)
 
     def state(self) -> dict:
-        return {"limits": self.limits, "last_step": self.last_step}
+        # the next update reads only the sign of the last step (flip or not): one
+        # byte per element in the checkpoint instead of eight
+        return {"limits": self.limits, "last_step": np.sign(self.last_step).astype(np.int8)}
 
     def restore(self, state: dict) -> None:
-        self.limits, self.last_step = state["limits"].copy(), state["last_step"].copy()
+        self.limits = state["limits"].copy()
+        self.last_step = state["last_step"].astype(float)
 
     def step(self, x: np.ndarray, ev) -> np.ndarray:
         """One update from a responses evaluation: OC handles one constraint, the
@@ -95,7 +98,7 @@ class OptimalityCriteria:
         lam = _bisect(linear, 1e-12, 1e12, rtol=1e-12)
         if exact_volume is not None:
             exact = lambda lam_: exact_volume(full(step(lam_))) - target
-            lam = _bracketed_root(exact, lam)
+            lam = _bracketed_root(exact, lam, floor=_all_at_upper(xa, ratio, hi, self.damping))
         xn = step(lam)
         if self.adaptive:
             delta = xn - xa
@@ -120,16 +123,48 @@ def _bisect(f: Callable[[float], float], lo: float, hi: float, rtol: float) -> f
     return np.sqrt(lo * hi)
 
 
+def _all_at_upper(xa: np.ndarray, ratio: np.ndarray, hi: np.ndarray, damping: float) -> float:
+    """The multiplier at and below which every element of the OC step sits at its
+    upper move limit (xa (ratio/λ)^damping ≥ hi; elements with xa = 0 or ratio = 0
+    stay at their lower limit whatever λ), so the step no longer changes; 0 when no
+    element moves up."""
+    moving = (ratio > 0) & (xa > 0)
+    if not moving.any():
+        return 0.0
+    reach = ratio[moving] * (xa[moving] / hi[moving]) ** (1.0 / damping)
+    return float(reach.min()) * (1.0 - 1e-9)  # strictly inside: clipped despite round-off
+
+
+SEARCH_STEPS = 6  # steps of 4 below the linearised multiplier before the floor is tried
+
+
 def _bracketed_root(
-    f: Callable[[float], float], guess: float, atol: float = 1e-7, max_evals: int = 60
+    f: Callable[[float], float],
+    guess: float,
+    atol: float = 1e-7,
+    max_evals: int = 60,
+    floor: float = 0.0,
 ) -> float:
-    """Root of a decreasing f near `guess`: bracket, then Illinois regula falsi in log λ."""
+    """Root of a decreasing f near `guess`: bracket, then Illinois regula falsi in log λ.
+    f is constant below `floor` (the step saturates there): when f(floor) is still
+    negative no λ reaches the root and `floor` is returned, instead of stepping
+    down to the evaluation limit (each evaluation runs the whole transform chain)."""
     a, b = guess / 1.5, guess * 1.5
     fa, fb = f(a), f(b)
     evals = 2
     while fa < 0 and evals < max_evals:  # root lies below a
-        a, fa = a / 4, f(a / 4)
+        if a / 4 <= floor:
+            at_floor = f(floor)  # = f(a / 4): the step is the same below the floor
+            if at_floor < 0:
+                return float(floor)
+            a, fa = a / 4, at_floor
+        else:
+            a, fa = a / 4, f(a / 4)
         evals += 1
+        # far below the guess already: try the floor once, since elements of tiny
+        # sensitivity put it many decades down while f barely moves on the way
+        if evals == SEARCH_STEPS + 2 and fa < 0 and floor > 0 and f(floor) < 0:
+            return float(floor)
     while fb > 0 and evals < max_evals:
         b, fb = b * 4, f(b * 4)
         evals += 1

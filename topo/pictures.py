@@ -129,7 +129,9 @@ def _figure_3d(result, surface):
         ax.scatter(*fixed.T, s=2, color="tab:green", label="supports")
         for mask, color in ((model.void, "tab:red"), (model.solid, "tab:blue")):
             if mask.any():  # keep-out regions red, interfaces blue: their element centres
-                ax.scatter(*model.grid.element_centers[mask].T, s=1, color=color, alpha=0.25)
+                where = np.flatnonzero(mask)
+                where = where[:: -(-len(where) // MAX_MARKERS)]  # every k-th, k = ⌈n / max⌉
+                ax.scatter(*_centres(model.grid, where).T, s=1, color=color, alpha=0.25)
         for _, _, centre, total in forces:
             ax.quiver(*(centre - scale * total), *(scale * total), color="tab:orange", lw=2)
         if problem.build is not None:
@@ -158,6 +160,12 @@ def _figure_3d(result, surface):
         fontsize=10,
     )
     return fig
+
+
+def _centres(grid, elements: np.ndarray) -> np.ndarray:
+    """(n, dim) centres in mm of the given elements, as Grid.element_centers."""
+    idx = np.stack(np.unravel_index(elements, grid.shape), axis=1)
+    return (idx + 0.5) * grid.h
 
 
 def design_figure(result, surface):
@@ -209,11 +217,27 @@ def _field_figure(result, surface, values: np.ndarray, label: str, title: str):
         image = plt.cm.ScalarMappable(norm=norm, cmap="viridis")
     fig.colorbar(image, ax=ax, shrink=0.7, label=label)
     if peak is not None:
-        centre = grid.element_centers[peak]
+        centre = _centres(grid, np.array([peak]))[0]
         ax.plot(*[[c] for c in centre], "r*", ms=12, label=f"peak {values[peak]:.4g}")
         ax.legend(loc="upper right", fontsize=8)
     ax.set_title(f"{result.problem.name}: {title}", fontsize=8)
     return fig
+
+
+def _corner_mean(grid, nodal: np.ndarray) -> np.ndarray:
+    """(n_elements, c): the mean of each element's corner values of a nodal field
+    (n_nodes, c), as shifted slices of the node grid (no (n_elements, corners, c)
+    gather)."""
+    field = nodal.reshape(grid.node_shape + nodal.shape[1:])
+    total = np.zeros(grid.shape + nodal.shape[1:])
+    for corner in grid.corners:
+        total += field[tuple(slice(c, c + n) for c, n in zip(corner, grid.shape))]
+    return (total / len(grid.corners)).reshape(grid.n_elements, *nodal.shape[1:])
+
+
+# Region markers drawn at most this many element centres each: on a print-resolution
+# grid a keep-out region holds hundreds of thousands, which only slow the drawing.
+MAX_MARKERS = 20000
 
 
 def stress_figure(result, surface):
@@ -238,7 +262,7 @@ def deflection_figure(result, surface):
     model = result.model
     u = result.printed.analysis.displacements.reshape(model.grid.n_nodes, model.dim, -1)
     magnitude = np.linalg.norm(u, axis=1)  # (nodes, cases)
-    per_element = magnitude[model.grid.element_nodes].mean(axis=1).max(axis=1)
+    per_element = _corner_mean(model.grid, magnitude).max(axis=1)
     printed = result.printed.density.ravel() > 0.5
     moved = np.where(printed, per_element, np.nan)
     return _field_figure(

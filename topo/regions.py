@@ -43,22 +43,78 @@ def _inside(region: Region, pts: np.ndarray, tol: float, grid: Grid) -> np.ndarr
 
 def select_nodes(region: Region, grid: Grid) -> np.ndarray:
     """Sorted node numbers selected by `region`."""
-    pts = grid.node_coords
     if isinstance(region, Point):
-        d = np.linalg.norm(pts - np.array(region.point), axis=1)
-        return np.array([int(np.argmin(d))])
-    return np.flatnonzero(_inside(region, pts, 0.5 * grid.h * (1 + 1e-9), grid))
+        return np.array([_nearest(region.point, grid.node_shape, 0.0, grid.h)])
+    return _select(region, grid, grid.node_shape, 0.0, 0.5 * grid.h * (1 + 1e-9))
 
 
 def select_elements(region: Region, grid: Grid) -> np.ndarray:
     """Sorted element numbers whose centre lies in `region` (faces: the boundary layer)."""
-    pts = grid.element_centers
     if isinstance(region, Point):
-        d = np.linalg.norm(pts - np.array(region.point), axis=1)
-        return np.array([int(np.argmin(d))])
+        return np.array([_nearest(region.point, grid.shape, 0.5, grid.h)])
     # A face selects the layer of elements touching it: centres lie h/2 inside.
     tol = 0.5 * grid.h * (1 + 1e-9) if isinstance(region, Face) else 1e-9 * grid.h
-    return np.flatnonzero(_inside(region, pts, tol, grid))
+    return _select(region, grid, grid.shape, 0.5, tol)
+
+
+def _positions(lo: np.ndarray, hi: np.ndarray, offset: float, h: float) -> np.ndarray:
+    """(n, dim) positions (index + offset)·h of the points of the index box lo..hi−1,
+    in C order; the same floats as Grid.node_coords / element_centers."""
+    axes = [(np.arange(a, b) + offset) * h for a, b in zip(lo, hi)]
+    mesh = np.meshgrid(*axes, indexing="ij")
+    return np.stack([m.ravel() for m in mesh], axis=1)
+
+
+def _select(region: Region, grid: Grid, shape, offset: float, tol: float) -> np.ndarray:
+    """Sorted numbers of the points (nodes: offset 0, element centres: 0.5) of the
+    grid `shape` inside `region`; only the points in the region's bounding box are
+    tested, so a small region on a fine grid costs little."""
+    shape = np.array(shape)
+    box = _bounds(region, grid)
+    lo, hi = np.zeros(len(shape), dtype=int), shape.copy()
+    if box is not None:  # one point of slack each side: the exact test decides
+        low, high = (np.asarray(b, dtype=float) for b in box)
+        lo = np.clip(np.floor((low - tol) / grid.h - offset).astype(int) - 1, 0, shape)
+        hi = np.clip(np.ceil((high + tol) / grid.h - offset).astype(int) + 2, 0, shape)
+    if np.any(hi <= lo):
+        return np.zeros(0, dtype=np.int64)
+    local = np.flatnonzero(_inside(region, _positions(lo, hi, offset, grid.h), tol, grid))
+    idx = np.unravel_index(local, tuple(hi - lo))
+    return np.ravel_multi_index(tuple(i + a for i, a in zip(idx, lo)), tuple(shape))
+
+
+def _bounds(region: Region, grid: Grid) -> tuple | None:
+    """(lower, upper) corner in mm of a box holding `region`, or None (the domain)."""
+    dim = grid.dim
+    if isinstance(region, Box):
+        return region.min, region.max
+    if isinstance(region, Sphere) or (isinstance(region, Cylinder) and dim == 2):
+        c = np.array(region.center, dtype=float)[:dim]
+        return c - region.radius, c + region.radius
+    if isinstance(region, Cylinder):
+        c = np.array(region.center, dtype=float)
+        reach = np.full(dim, region.radius)
+        reach[AXIS_INDEX[region.axis]] = region.length / 2
+        return c - reach, c + reach
+    if isinstance(region, Face):
+        a = AXIS_INDEX[region.face[0]]
+        low, high = np.zeros(dim), np.array(grid.size, dtype=float)
+        end = 0.0 if region.face.endswith("min") else grid.size[a]
+        low[a] = high[a] = end
+        return low, high
+    return None  # a mesh: every point is tested
+
+
+def _nearest(point, shape, offset: float, h: float) -> int:
+    """Number of the grid point (index + offset)·h nearest `point`; on a tie the
+    lowest number, as an argmin over all points gives."""
+    p = np.asarray(point, dtype=float)
+    lo = np.clip(np.floor(p / h - offset).astype(int) - 1, 0, np.array(shape) - 1)
+    hi = np.minimum(lo + 4, np.array(shape))
+    pts = _positions(lo, hi, offset, h)
+    k = int(np.argmin(np.linalg.norm(pts - p, axis=1)))
+    idx = np.unravel_index(k, tuple(hi - lo))
+    return int(np.ravel_multi_index(tuple(i + a for i, a in zip(idx, lo)), tuple(shape)))
 
 
 def select_mask(region: Region, grid: Grid) -> np.ndarray:

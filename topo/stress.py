@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .elementfields import block_dofs, scatter_to_nodes, slabs
 from .elements import centre_strain_displacement, elasticity_matrix
 
 RELAXATION_EXPONENT = 0.5  # q of the qp-relaxation
@@ -62,25 +63,34 @@ class StressMeasure:
         ) @ centre_strain_displacement(grid.dim, grid.h)  # σ = C u_e
         self.m = von_mises_matrix(grid.dim)
 
-    def _stresses(self, analysis) -> tuple[np.ndarray, np.ndarray]:
-        """Centre stresses σ (ne, nc, ns) and their von Mises values (ne, nc)."""
-        ue = analysis.displacements[self.model.grid.element_dofs]  # (ne, nde, nc)
-        sig = np.einsum("sn,enc->ecs", self.c, ue)
-        vm = np.sqrt(np.maximum(np.einsum("ecs,st,ect->ec", sig, self.m, sig), 0.0))
-        return sig, vm
+    def _von_mises(self, u: np.ndarray) -> np.ndarray:
+        """Centre von Mises stresses (ne, nc), a slab of elements at a time."""
+        grid = self.model.grid
+        nc = u.shape[1]
+        vm = np.empty((grid.n_elements, nc))
+        for _, _, start, stop in slabs(grid):
+            flat = _gather(u, grid, start, stop)  # (b·nc, nde)
+            sig = flat @ self.c.T
+            vm[start:stop] = np.sqrt(
+                np.maximum(np.einsum("is,st,it->i", sig, self.m, sig), 0.0)
+            ).reshape(-1, nc)
+        return vm
 
     def relaxed(self, rho: np.ndarray, analysis) -> np.ndarray:
         """s_el = ρ_e^q σ_vm,el (MPa), shape (n_elements, n_cases)."""
-        return relax(rho, self._stresses(analysis)[1], self.q)
+        return relax(rho, self._von_mises(analysis.displacements), self.q)
 
     def aggregate(self, rho: np.ndarray, analysis, gradient: bool = True, scale=None):
         """(σ_PN, dσ_PN/dρ or None, max s): the aggregate, with `gradient` its
         derivative (one adjoint solve per load case), and the true peak it estimates.
         `scale` (n_cases,) weighs each load case's stress, s_el = k_l ρ_e^q σ_vm,el
         (k_l = 1/limit of case l: one aggregate of the stresses over their own
-        limits; k_l = 0 leaves case l out); None weighs every case by 1."""
+        limits; k_l = 0 leaves case l out); None weighs every case by 1. Element
+        quantities are formed a slab of elements at a time (elementfields.py), so no
+        (n_elements, 24, n_cases) array is held."""
         model = self.model
-        sig, vm = self._stresses(analysis)
+        u = analysis.displacements
+        vm = self._von_mises(u)
         k = np.ones(vm.shape[1]) if scale is None else np.asarray(scale, dtype=float)
         rq = rho[:, None] ** self.q
         s = rq * vm * k
@@ -101,13 +111,27 @@ class StressMeasure:
         explicit = (w * self.q * floor ** (self.q - 1.0) * vm * k).sum(axis=1)
         # adjoint loads: Σ_e w k ρ^q Cᵀ M σ / v, assembled over element dofs
         coef = np.where(vm > 0, w * k * rq / safe, 0.0)  # (ne, nc)
-        local = np.einsum("ec,ns,st,ect->enc", coef, self.c.T, self.m, sig)  # (ne, nde, nc)
-        grid = model.grid
-        f_adj = np.zeros((grid.n_dofs, sig.shape[1]))
-        for c in range(sig.shape[1]):
-            np.add.at(f_adj[:, c], grid.element_dofs.ravel(), local[:, :, c].ravel())
+        grid, nc = model.grid, u.shape[1]
+        back = self.m @ self.c  # σ ↦ M σ ↦ Cᵀ M σ, as rows: σ @ (M C)
+        f_adj = np.zeros((grid.n_dofs, nc))
+        for i0, i1, start, stop in slabs(grid):
+            flat = _gather(u, grid, start, stop)
+            local = (flat @ self.c.T) @ back * coef[start:stop].reshape(-1, 1)
+            scatter_to_nodes(
+                f_adj, grid, i0, i1, local.reshape(stop - start, nc, -1).transpose(0, 2, 1)
+            )
         lam = model.resolve(f_adj)
-        le = lam[grid.element_dofs]  # (ne, nde, nc)
-        ue = analysis.displacements[grid.element_dofs]
-        coupling = np.einsum("enc,nm,emc->e", le, model.ke, ue)
+        coupling = np.empty(grid.n_elements)
+        for _, _, start, stop in slabs(grid):
+            le, ue = _gather(lam, grid, start, stop), _gather(u, grid, start, stop)
+            coupling[start:stop] = (
+                np.einsum("ij,ij->i", le @ model.ke, ue).reshape(-1, nc).sum(axis=1)
+            )
         return value, explicit - model.moduli_derivative(rho) * coupling, smax
+
+
+def _gather(u: np.ndarray, grid, start: int, stop: int) -> np.ndarray:
+    """Element displacements of elements start..stop−1 as rows (b·nc, nde), element
+    major then load case."""
+    ue = u[block_dofs(grid, start, stop)]  # (b, nde, nc)
+    return ue.transpose(0, 2, 1).reshape(-1, ue.shape[1])

@@ -253,7 +253,7 @@ class OverhangFilter(Transform):
         """Forward pass in the build frame, keeping what backward needs: per layer,
         for each active condition, its window sum, its smax and the running smin
         before it."""
-        blue = to_build_frame(x.reshape(self.shape), self.direction)
+        blue = np.ascontiguousarray(to_build_frame(x.reshape(self.shape), self.direction))
         printed = np.empty_like(blue)
         powered = np.empty_like(blue)
         printed[0] = blue[0]
