@@ -14,6 +14,7 @@ import numpy as np
 
 from .cholesky import SparseCholesky
 from .linear import LinearSystem, check_state_keys
+from .matrixfree import MatrixFreeCG
 from .multigrid import MultigridCG
 from .stencil import FreeLowerTriangle, StencilAssembly
 from .timing import Timer
@@ -102,7 +103,11 @@ def choose(kind: str, dim: int, n_free: int) -> str:
 
 def make_system(kind: str, grid, ke: np.ndarray, fixed_mask: np.ndarray) -> LinearSystem:
     """The linear system for `optimization.solver` (auto | direct | iterative) on
-    `grid` with element matrix `ke` and the supports `fixed_mask` (per dof)."""
+    `grid` with element matrix `ke` and the supports `fixed_mask` (per dof). The
+    iterative system is matrix-free in 3D (matrixfree.py) and assembled in 2D
+    (multigrid.py), where the direct solver is the usual choice anyway."""
     if choose(kind, grid.dim, int(np.count_nonzero(~fixed_mask))) == "iterative":
+        if grid.dim == 3:
+            return MatrixFreeCG(grid, ke, fixed_mask)
         return MultigridCG(grid, ke, fixed_mask)
     return DirectSystem(grid, ke, fixed_mask)

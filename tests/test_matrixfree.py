@@ -1,0 +1,102 @@
+"""The matrix-free operator, its coarse Galerkin stencils and grid transfers against
+assembled sparse matrices (scipy), and the kernels' element figures against plain
+numpy products."""
+
+import numpy as np
+import pytest
+
+from problems import beam_problem
+from topo import kernels
+from topo.coarsening import CoarseLevel
+from topo.fem import Model
+from topo.grid import Grid
+from topo.multigrid import Hierarchy, prolongation, prolongation_1d
+from topo.problem import problem_from_dict
+from topo.stencil import StencilAssembly
+
+
+def model_with_point_support(size):
+    # a face support and a point support on a fine node that is not a coarse node
+    d = beam_problem(3, size, 1.0, solver="iterative")
+    d["support"].append({"region": {"point": [3.0, 1.0, 1.0]}, "fix": ["y"]})
+    return Model(problem_from_dict(d))
+
+
+def stencil_matrix(node_shape, stencil):
+    grid = Grid(tuple(n - 1 for n in node_shape), 1.0)
+    return StencilAssembly(grid, None, np.zeros(grid.n_dofs, bool))._csr(
+        np.ascontiguousarray(stencil, dtype=float).reshape(grid.n_dofs, -1).copy()
+    )
+
+
+@pytest.mark.parametrize("shape", [(6, 5, 4), (7, 3, 5)])
+def test_element_product_equals_the_assembled_matrix(shape):
+    # scipy's CSR product with the node-stencil matrix (supports as identity rows)
+    grid = Grid(shape, 1.0)
+    from topo.elements import element_stiffness
+
+    ke = element_stiffness(3, 1.0, 0.3)
+    rng = np.random.default_rng(0)
+    e = rng.uniform(1e-3, 1.0, grid.n_elements)
+    fixed = np.zeros(grid.n_dofs, bool)
+    fixed[rng.choice(grid.n_dofs, 20, replace=False)] = True
+    a = StencilAssembly(grid, ke, fixed).matrix(e)
+    u = rng.standard_normal((grid.n_dofs, 2))
+    free = (~fixed).astype(float)
+    y = kernels.element_product(u, e, ke, free, shape, np.empty_like(u))
+    assert np.abs(y - a @ u).max() <= 1e-13 * np.abs(a @ u).max()
+    d = kernels.element_diagonal(e, ke, free, shape, np.empty(grid.n_dofs))
+    assert np.abs(d - a.diagonal()).max() <= 1e-14 * np.abs(d).max()
+    # single precision: to its round-off
+    f = np.float32
+    y32 = kernels.element_product(
+        u.astype(f), e.astype(f), ke.astype(f), free.astype(f), shape, np.empty(u.shape, f)
+    )
+    assert np.abs(y32 - a @ u).max() <= 1e-5 * np.abs(a @ u).max()
+
+
+def test_element_energies_and_values_equal_dense_products():
+    from topo.elements import centre_strain_displacement, element_stiffness
+
+    shape = (4, 3, 5)
+    grid = Grid(shape, 2.0)
+    ke = element_stiffness(3, 2.0, 0.3)
+    u = np.random.default_rng(1).standard_normal((grid.n_dofs, 2))
+    ue = u[grid.element_dofs]  # (ne, 24, 2), numpy fancy indexing
+    energies = kernels.element_energies(u, ke, shape, np.empty((grid.n_elements, 2)))
+    assert np.allclose(energies, np.einsum("eic,ij,ejc->ec", ue, ke, ue), rtol=1e-13)
+    b = centre_strain_displacement(3, 2.0)
+    values = kernels.element_values(u, b, shape, np.empty((grid.n_elements, 6, 2)))
+    assert np.allclose(values, np.einsum("si,eic->esc", b, ue), rtol=1e-13, atol=1e-15)
+
+
+@pytest.mark.parametrize("shape", [(6, 4, 5), (9, 5, 7)])
+def test_transfers_equal_the_sparse_prolongation(shape):
+    p, coarse = prolongation(shape)
+    factors = [prolongation_1d(n) for n in shape]
+    rng = np.random.default_rng(2)
+    uc = rng.standard_normal((p.shape[1], 2))
+    uf = rng.standard_normal((p.shape[0], 2))
+    fine = kernels.tensor_apply(factors, uc, np.empty((p.shape[0], 2)))
+    assert np.allclose(fine, p @ uc, rtol=0, atol=1e-14)
+    back = kernels.tensor_apply([f.T.tocsr() for f in factors], uf, np.empty((p.shape[1], 2)))
+    assert np.allclose(back, p.T @ uf, rtol=0, atol=1e-13)
+
+
+@pytest.mark.parametrize("size", [[16.0, 8.0, 8.0], [15.0, 7.0, 9.0]])
+def test_coarse_stencils_equal_the_sparse_triple_products(size):
+    # every level against scipy's Pᵀ A P one level at a time (multigrid.Hierarchy
+    # without the element-by-element shortcut), odd sizes and a point support
+    m = model_with_point_support(size)
+    e = m.moduli(np.random.default_rng(4).uniform(1e-3, 1.0, m.grid.n_elements))
+    sparse = Hierarchy(m.grid.shape, coarse_dofs=100)
+    assert sparse.levels >= 3
+    sparse.update(StencilAssembly(m.grid, m.ke, m._fixed).matrix(e))
+    for level, ref in enumerate(sparse.operators[1:], start=1):
+        coarse = CoarseLevel(m.grid.shape, m.ke, m._fixed, level)
+        ours = stencil_matrix(coarse.node_shape, coarse.stencil(e))
+        assert abs(ours - ref).max() <= 1e-12 * abs(ref).max()
+        # the node-stencil product equals the CSR product
+        u = np.random.default_rng(level).standard_normal((ref.shape[0], 1))
+        y = kernels.stencil_product(coarse.stencil(e), u, coarse.node_shape, np.empty_like(u))
+        assert np.allclose(y, ref @ u, rtol=0, atol=1e-12 * np.abs(ref @ u).max())
