@@ -100,3 +100,65 @@ def test_coarse_stencils_equal_the_sparse_triple_products(size):
         u = np.random.default_rng(level).standard_normal((ref.shape[0], 1))
         y = kernels.stencil_product(coarse.stencil(e), u, coarse.node_shape, np.empty_like(u))
         assert np.allclose(y, ref @ u, rtol=0, atol=1e-12 * np.abs(ref @ u).max())
+
+
+def test_chebyshev_smoother_follows_the_chebyshev_polynomial():
+    # On A = diag(λ) with D = I, the smoother started from zero leaves the error
+    # e = p(A) e0 with p(λ) = T_k((θ − λ)/δ) / T_k(θ/δ) on [λmax/ratio, λmax]
+    # (Saad, Iterative Methods for Sparse Linear Systems, §12.1); T_k from numpy's
+    # Chebyshev module.
+    from numpy.polynomial import chebyshev as cheb
+
+    from topo.matrixfree import chebyshev
+
+    lam = np.linspace(0.01, 2.0, 40).astype(np.float32)
+    a = np.diag(lam)
+    x_true = np.random.default_rng(0).standard_normal((40, 1)).astype(np.float32)
+    r = a @ x_true
+    ones = np.ones((40, 1), np.float32)
+    for degree in (1, 2, 3, 4):
+        x = chebyshev(a, ones, r, None, 2.0, degree, 10.0)
+        upper, lower = 2.0, 0.2
+        theta, delta = (upper + lower) / 2, (upper - lower) / 2
+        t_k = [0] * degree + [1]
+        p = cheb.chebval((theta - lam) / delta, t_k) / cheb.chebval(theta / delta, t_k)
+        assert np.allclose((x_true - x)[:, 0], p * x_true[:, 0], atol=1e-5)
+    # from a start: the same polynomial acts on the start's error
+    x0 = np.zeros_like(x_true) + 0.5
+    x = chebyshev(a, ones, r, x0, 2.0, 2, 10.0)
+    p = cheb.chebval((theta - lam) / delta, [0, 0, 1]) / cheb.chebval(theta / delta, [0, 0, 1])
+    assert np.allclose((x_true - x)[:, 0], p * (x_true - x0)[:, 0], atol=1e-5)
+
+
+@pytest.mark.parametrize("rtol", [1e-6, 1e-4])
+def test_matrix_free_and_direct_agree_with_high_contrast(rtol):
+    # solid bars in void (ρ = 1 or 1e-3), two load cases, several levels
+    from problems import add_point_load
+    from topo.matrixfree import MatrixFreeCG
+
+    d = beam_problem(3, [16.0, 8.0, 8.0], 1.0)
+    add_point_load(d, "twist", [16.0, 8.0, 8.0], [0.0, 1.0, 0.5])
+    rho = np.full((16, 8, 8), 1e-3)
+    rho[:, 2:4, 1:3] = rho[:, 5:7, 5:7] = 1.0
+    rho[0:3] = 1.0
+    rho[:, :, 0:1] = 1.0
+    rho = rho.ravel()
+    direct = Model(problem_from_dict(d, {"optimization.solver": "direct"})).analyze(rho)
+    model = Model(
+        problem_from_dict(d),
+        system_factory=lambda g, ke, f: MatrixFreeCG(g, ke, f, rtol=rtol, coarse_dofs=300),
+    )
+    ours = model.analyze(rho)
+    assert model.system.levels >= 3 and model.system.iterations > 1
+    err = np.linalg.norm(ours.displacements - direct.displacements, axis=0)
+    ref = np.linalg.norm(direct.displacements, axis=0)
+    c_err = np.abs(ours.compliances - direct.compliances) / direct.compliances
+    # The error in u stays below the residual tolerance; flexible CG is not
+    # exactly a Galerkin method, so its compliance error is not held to rtol² as
+    # plain CG's is (test_multigrid.py), only to rtol.
+    assert np.all(err / ref < rtol)
+    assert np.all(c_err < rtol)
+    # element energies and stresses of the compiled loops against numpy's
+    ue = ours.displacements[model.grid.element_dofs]
+    assert np.allclose(ours.energies, np.einsum("eic,ij,ejc->ec", ue, model.ke, ue), rtol=1e-12)
+    assert np.allclose(ours.von_mises, model._von_mises(ue), rtol=1e-12)

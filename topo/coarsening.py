@@ -57,7 +57,9 @@ class _Axis:
     def __init__(self, n: int, levels: int):
         p = self.p = composed_prolongation_1d(n, levels)
         # coarse node m sits on the fine node whose row of P is the unit vector e_m
-        pos = self.pos = np.array([int(np.flatnonzero(np.isclose(p[:, m], 1.0))[0]) for m in range(p.shape[1])])
+        pos = self.pos = np.array(
+            [int(np.flatnonzero(np.isclose(p[:, m], 1.0))[0]) for m in range(p.shape[1])]
+        )
         fine = np.arange(n)
         parent = np.searchsorted(pos, fine, side="right") - 1
         w = np.stack(
@@ -110,7 +112,10 @@ class CoarseLevel:
         self.table = table
         offsets = list(itertools.product((-1, 0, 1), repeat=3))
         self.slot_of = np.array(
-            [[offsets.index(tuple(H8_CORNERS[b] - H8_CORNERS[a])) for b in range(8)] for a in range(8)],
+            [
+                [offsets.index(tuple(H8_CORNERS[b] - H8_CORNERS[a])) for b in range(8)]
+                for a in range(8)
+            ],
             dtype=np.int64,
         )
         self._supports(k0, fixed)
@@ -121,7 +126,9 @@ class CoarseLevel:
         return (codes[0] * nc[1] + codes[1]) * nc[2] + codes[2]
 
     def _parent(self, idx: np.ndarray) -> np.ndarray:
-        parents = [np.searchsorted(self.axes[ax].pos, idx[:, ax], side="right") - 1 for ax in range(3)]
+        parents = [
+            np.searchsorted(self.axes[ax].pos, idx[:, ax], side="right") - 1 for ax in range(3)
+        ]
         return np.ravel_multi_index(tuple(parents), self.shape)
 
     def _supports(self, k0: np.ndarray, fixed: np.ndarray) -> None:
@@ -209,6 +216,14 @@ class CoarseLevel:
         starts = [a.starts for a in self.axes]
         codes = [a.code for a in self.axes]
         return kernels.coarse_stencil(
-            e, self.fine_shape, starts, codes, self.n_codes, self.table, self.extra_of, extra,
-            self.slot_of, out
+            e,
+            self.fine_shape,
+            starts,
+            codes,
+            self.n_codes,
+            self.table,
+            self.extra_of,
+            extra,
+            self.slot_of,
+            out,
         )

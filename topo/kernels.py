@@ -231,8 +231,23 @@ def _tensor_apply(
 
 @nb.njit(**_JIT)
 def _coarse_stencil(
-    moduli, nx, ny, nz, sx, sy, sz, cx_code, cy_code, cz_code, ncy, ncz, table, extra_of, extra,
-    slot_of, out
+    moduli,
+    nx,
+    ny,
+    nz,
+    sx,
+    sy,
+    sz,
+    cx_code,
+    cy_code,
+    cz_code,
+    ncy,
+    ncz,
+    table,
+    extra_of,
+    extra,
+    slot_of,
+    out,
 ):
     """Node stencils of a coarse Galerkin operator from the fine element moduli:
     each coarse element's matrix is Σ_e E_e table[code(e)] over the fine elements
@@ -320,10 +335,21 @@ def tensor_apply(factors, u, out):
     return out
 
 
-def coarse_stencil(moduli, fine_shape, starts, codes, n_codes, table, extra_of, extra, slot_of, out):
+def coarse_stencil(
+    moduli, fine_shape, starts, codes, n_codes, table, extra_of, extra, slot_of, out
+):
     with _LOCK:
         _coarse_stencil(
-            moduli, *fine_shape, *starts, *codes, n_codes[1], n_codes[2], table, extra_of, extra,
-            slot_of, out
+            moduli,
+            *fine_shape,
+            *starts,
+            *codes,
+            n_codes[1],
+            n_codes[2],
+            table,
+            extra_of,
+            extra,
+            slot_of,
+            out,
         )
     return out

@@ -206,10 +206,13 @@ class MatrixFreeCG(LinearSystem):
         ]
         self.bottom = CoarseLevel(grid.shape, ke, fixed, self.levels - 1)
         self._bottom_layout = StencilAssembly(
-            Grid(self.bottom.shape, 1.0), None, np.zeros(3 * int(np.prod(self.bottom.node_shape)), bool)
+            Grid(self.bottom.shape, 1.0),
+            None,
+            np.zeros(3 * int(np.prod(self.bottom.node_shape)), bool),
         )
         self._stencils = [
-            np.empty((int(np.prod(c.node_shape)), 3, 27, 3), dtype=SINGLE) for c in self.coarse_levels
+            np.empty((int(np.prod(c.node_shape)), 3, 27, 3), dtype=SINGLE)
+            for c in self.coarse_levels
         ]
         self._bottom_stencil = np.empty((int(np.prod(self.bottom.node_shape)), 3, 27, 3))
         self.operators: list = []
