@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from problems import add_point_load, beam_problem, dense_stiffness
-from topo import cholesky
+from topo import cholesky, solvers
 from topo.fem import Model
 from topo.matrixfree import MatrixFreeCG
 from topo.multigrid import MultigridCG
@@ -117,11 +117,14 @@ def test_every_linear_system_keeps_the_contract(name, factory):
         twin.restore({"bogus": np.zeros(3)})
 
 
-def test_make_system_follows_the_solver_choice():
+def test_make_system_follows_the_solver_choice(monkeypatch):
     d = beam_problem(3, [8.0, 4.0, 4.0], 1.0)
     m = Model(problem_from_dict(d))
     assert isinstance(make_system("direct", m.grid, m.ke, m._fixed), DirectSystem)
-    # iterative: matrix-free in 3D, assembled in 2D
+    # iterative: assembled below solvers.AUTO_MATRIX_FREE_DOFS and in 2D,
+    # matrix-free above it in 3D
+    assert isinstance(make_system("iterative", m.grid, m.ke, m._fixed), MultigridCG)
+    monkeypatch.setattr(solvers, "AUTO_MATRIX_FREE_DOFS", 100)
     assert isinstance(make_system("iterative", m.grid, m.ke, m._fixed), MatrixFreeCG)
     m2 = Model(problem_from_dict(beam_problem(2, [8.0, 4.0], 1.0)))
     assert isinstance(make_system("iterative", m2.grid, m2.ke, m2._fixed), MultigridCG)

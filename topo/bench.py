@@ -192,16 +192,19 @@ MACHINE_GFLOP_PER_S = 100.0
 
 
 @contextmanager
-def _assembled_multigrid():
-    """Within this block the iterative solver is the assembled multigrid-CG
-    (multigrid.py) in 3D too, the path the matrix-free one replaced; for
-    comparisons in the same process."""
+def _iterative_path(path: str):
+    """Within this block an iterative solve in 3D takes `path` ("matrix-free" or
+    "assembled" multigrid-CG) whatever the problem's size, so that the two can be
+    compared on one problem in the same process."""
     from . import fem
+    from .matrixfree import MatrixFreeCG
     from .multigrid import MultigridCG
     from .solvers import DirectSystem, choose
 
     def make(kind, grid, ke, fixed):
         if choose(kind, grid.dim, int(np.count_nonzero(~fixed))) == "iterative":
+            if path == "matrix-free" and grid.dim == 3:
+                return MatrixFreeCG(grid, ke, fixed)
             return MultigridCG(grid, ke, fixed)
         return DirectSystem(grid, ke, fixed)
 
@@ -298,8 +301,9 @@ def case_compare_paths(shape: tuple[int, int, int], iterations: int) -> dict:
     the same number of iterations: time per iteration, CG iterations and how far
     the compliances differ (the designs should not depend on the path)."""
     problem = cantilever_3d(*shape, "iterative")
-    new = _run(problem, iterations)
-    with _assembled_multigrid():
+    with _iterative_path("matrix-free"):
+        new = _run(problem, iterations)
+    with _iterative_path("assembled"):
         old = _run(problem, iterations)
     cn, co = new["compliance"][-1], old["compliance"][-1]
     for r in (new, old):

@@ -11,7 +11,7 @@ import numpy as np
 
 from .elements import element_stiffness
 from .problem import Problem
-from .solvers import choose
+from .solvers import choose, iterative_kind
 
 FACTOR_FLOPS_PER_S = 7e9  # CHOLMOD supernodal on two cores with OpenBLAS
 CG_SECONDS_PER_ENTRY = 1.5e-9  # one multigrid-CG iteration per stored matrix entry
@@ -23,12 +23,12 @@ ITERATIVE_BYTES_PER_NODE = 8_500  # fine matrix, hierarchy, work vectors of one 
 # of the whole run (design fields, filter, coarse stencils, the process itself)
 # and per dof and load case (the solver's vectors), seconds per element for one
 # CG iteration and for the per-design rebuild of the hierarchy.
-MF_BYTES_PER_ELEMENT = 1_000
+MF_BYTES_PER_ELEMENT = 440
 MF_BYTES_PER_DOF_CASE = 130
-MF_BYTES_FIXED = 400 * 2**20  # interpreter, numpy, scipy, numba and its compiled code
-MF_CG_ITERATIONS = 16
-MF_CG_SECONDS_PER_ELEMENT = 1.0e-7
-MF_REBUILD_SECONDS_PER_ELEMENT = 1.0e-6
+MF_BYTES_FIXED = 250 * 2**20  # interpreter, numpy, scipy, numba and its compiled code
+MF_CG_ITERATIONS = 8
+MF_CG_SECONDS_PER_ELEMENT = 9.8e-6
+MF_REBUILD_SECONDS_PER_ELEMENT = 5.5e-6
 
 
 def estimate(problem: Problem) -> dict:
@@ -50,7 +50,7 @@ def estimate(problem: Problem) -> dict:
         # inverse, scatter matrix), kept as a ceiling; element fields are small.
         # Measured: DEVELOPERS.md, "Estimates of memory and time".
         memory = max(60 * entries, 12 * entries + solver_bytes + 400 * n_el)
-    elif dim == 3:
+    elif iterative_kind(dim, n_dofs) == "matrix-free":
         cases = len(problem.load_cases)
         memory = (
             MF_BYTES_FIXED + MF_BYTES_PER_ELEMENT * n_el + MF_BYTES_PER_DOF_CASE * n_dofs * cases
