@@ -162,3 +162,33 @@ def test_matrix_free_and_direct_agree_with_high_contrast(rtol):
     ue = ours.displacements[model.grid.element_dofs]
     assert np.allclose(ours.energies, np.einsum("eic,ij,ejc->ec", ue, model.ke, ue), rtol=1e-12)
     assert np.allclose(ours.von_mises, model._von_mises(ue), rtol=1e-12)
+
+
+def _product_sum(queue=None):
+    from topo.elements import element_stiffness
+
+    shape = (4, 3, 2)
+    n = 3 * 5 * 4 * 3
+    u = np.linspace(0.0, 1.0, n)[:, None]
+    y = kernels.element_product(
+        u, np.ones(24), element_stiffness(3, 1.0, 0.3), np.ones(n), shape, np.empty_like(u)
+    )
+    total = float(np.abs(y).sum())
+    if queue is not None:
+        queue.put(total)
+    return total
+
+
+def test_a_process_forked_after_a_parallel_kernel_can_run_kernels():
+    # GNU OpenMP aborts such a child; sweeps and benchmarks fork
+    import multiprocessing as mp
+
+    here = _product_sum()
+    ctx = mp.get_context("fork")
+    queue = ctx.Queue()
+    child = ctx.Process(target=_product_sum, args=(queue,))
+    child.start()
+    there = queue.get(timeout=300)
+    child.join(timeout=60)
+    assert child.exitcode == 0
+    assert there == here

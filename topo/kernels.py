@@ -7,8 +7,8 @@ thread at a time: loops that scatter to the nodes of an element (or coarse
 element) run over x-slabs in two colours, even slabs then odd ones, so no two
 threads touch the same node plane; results are therefore the same on every run.
 
-numba's default threading layer in the PyPI wheels (workqueue) must not be entered
-from two Python threads at once, so every call goes through `_LOCK`.
+numba's workqueue threading layer (chosen below) must not be entered from two
+Python threads at once, so every call goes through `_LOCK`.
 """
 
 from __future__ import annotations
@@ -18,6 +18,11 @@ import threading
 import numba as nb
 import numpy as np
 
+# GNU OpenMP, which numba picks when it finds it, kills a process forked after a
+# parallel region ("fork() called from a process already using GNU OpenMP");
+# sweeps and benchmarks fork. The built-in workqueue layer survives a fork
+# (tests/test_matrixfree.py).
+nb.config.THREADING_LAYER = "workqueue"
 _LOCK = threading.Lock()
 # Compiled code is cached next to the module (or in numba's user-wide cache when
 # that folder is read-only), so only the first run on a machine compiles.
