@@ -48,7 +48,7 @@ from .timing import Timer
 
 # Chebyshev smoothing: degree and the ratio λmax / λmin of the interval of D⁻¹A it
 # damps. Measured: DEVELOPERS.md, "Matrix-free multigrid".
-CHEBYSHEV_DEGREE = 1
+CHEBYSHEV_DEGREE = 2
 CHEBYSHEV_RATIO = 10.0
 # The power iteration approaches λmax from below; Chebyshev amplifies modes above
 # its interval, so the estimate is raised by this factor.
