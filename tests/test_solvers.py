@@ -7,8 +7,9 @@ import numpy as np
 import pytest
 
 from problems import add_point_load, beam_problem, dense_stiffness
-from topo import cholesky
+from topo import cholesky, solvers
 from topo.fem import Model
+from topo.matrixfree import MatrixFreeCG
 from topo.multigrid import MultigridCG
 from topo.problem import problem_from_dict
 from topo.solvers import DirectSystem, make_system
@@ -53,6 +54,10 @@ def systems():
     out = [
         ("superlu", lambda g, ke, f: DirectSystem(g, ke, f, prefer_cholmod=False)),
         ("multigrid-cg", lambda g, ke, f: MultigridCG(g, ke, f, rtol=1e-12, coarse_dofs=100)),
+        (
+            "matrix-free multigrid-cg",
+            lambda g, ke, f: MatrixFreeCG(g, ke, f, rtol=1e-12, coarse_dofs=100),
+        ),
     ]
     if cholesky.cholmod_available():
         out.append(("cholmod", DirectSystem))
@@ -79,7 +84,7 @@ def test_every_linear_system_keeps_the_contract(name, factory):
     assert not u[m.fixed_dofs].any()
     # numpy's dense solve as the independent reference; CG to ‖r‖ < 1e-12‖b‖
     assert np.linalg.norm(u - reference) <= 1e-8 * np.linalg.norm(reference)
-    if name == "multigrid-cg":
+    if "multigrid-cg" in name:
         assert system.iterations > 0
     else:
         assert system.iterations is None
@@ -103,17 +108,26 @@ def test_every_linear_system_keeps_the_contract(name, factory):
     assert system.iterations == twin.iterations
     if name == "multigrid-cg":
         assert set(state) == {"warm"} | {f"power_{i}" for i in range(system.hierarchy.levels - 1)}
+    elif name.startswith("matrix-free"):
+        assert system.levels >= 3
+        assert set(state) == {"warm"} | {f"power_{i}" for i in range(system.levels - 1)}
     else:
         assert state == {}
     with pytest.raises(ValueError, match="unknown linear-system state"):
         twin.restore({"bogus": np.zeros(3)})
 
 
-def test_make_system_follows_the_solver_choice():
+def test_make_system_follows_the_solver_choice(monkeypatch):
     d = beam_problem(3, [8.0, 4.0, 4.0], 1.0)
     m = Model(problem_from_dict(d))
     assert isinstance(make_system("direct", m.grid, m.ke, m._fixed), DirectSystem)
+    # iterative: assembled below solvers.AUTO_MATRIX_FREE_DOFS and in 2D,
+    # matrix-free above it in 3D
     assert isinstance(make_system("iterative", m.grid, m.ke, m._fixed), MultigridCG)
+    monkeypatch.setattr(solvers, "AUTO_MATRIX_FREE_DOFS", 100)
+    assert isinstance(make_system("iterative", m.grid, m.ke, m._fixed), MatrixFreeCG)
+    m2 = Model(problem_from_dict(beam_problem(2, [8.0, 4.0], 1.0)))
+    assert isinstance(make_system("iterative", m2.grid, m2.ke, m2._fixed), MultigridCG)
     # auto: direct below solvers.AUTO_ITERATIVE_DOFS free dofs
     assert isinstance(make_system("auto", m.grid, m.ke, m._fixed), DirectSystem)
     with pytest.raises(ValueError, match="unknown solver"):

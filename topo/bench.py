@@ -12,6 +12,7 @@ import multiprocessing as mp
 import platform
 import resource
 import time
+from contextlib import contextmanager
 
 import numpy as np
 
@@ -184,6 +185,139 @@ def case_compare(shape: tuple[int, int, int], iterations: int) -> dict:
     }
 
 
+# The machine the 3D solver targets (DEVELOPERS.md, "Benchmarks"): one thread
+# streams about 13 GB/s; two cores multiply dense matrices at about 100 GFLOP/s.
+MACHINE_GB_PER_S = 13.0
+MACHINE_GFLOP_PER_S = 100.0
+
+
+@contextmanager
+def _iterative_path(path: str):
+    """Within this block an iterative solve in 3D takes `path` ("matrix-free" or
+    "assembled" multigrid-CG) whatever the problem's size, so that the two can be
+    compared on one problem in the same process."""
+    from . import fem
+    from .matrixfree import MatrixFreeCG
+    from .multigrid import MultigridCG
+    from .solvers import DirectSystem, choose
+
+    def make(kind, grid, ke, fixed):
+        if choose(kind, grid.dim, int(np.count_nonzero(~fixed))) == "iterative":
+            if path == "matrix-free" and grid.dim == 3:
+                return MatrixFreeCG(grid, ke, fixed)
+            return MultigridCG(grid, ke, fixed)
+        return DirectSystem(grid, ke, fixed)
+
+    before = fem.make_system
+    fem.make_system = make
+    try:
+        yield
+    finally:
+        fem.make_system = before
+
+
+def _estimate(problem_dict: dict) -> dict:
+    from .resources import estimate
+
+    return estimate(problem_from_dict(problem_dict))
+
+
+def case_matrix_free(shape: tuple[int, int, int], iterations: int) -> dict:
+    """The 3D cantilever with the automatic (matrix-free) solver: per-iteration
+    figures, set-up, wall time, and the resource estimate beside what was
+    measured (peak memory is added by the child process)."""
+    problem = cantilever_3d(*shape)
+    start = time.perf_counter()
+    out = _run(problem, iterations)
+    out["wall_s"] = time.perf_counter() - start
+    result = out.pop("result")
+    out["cg_iterations"] = [h["solver_iterations"] for h in result.history]
+    out["levels"] = result.model.system.levels
+    out["estimate"] = _estimate(problem)
+    out["final_compliance"] = out.pop("compliance")[-1]
+    return out
+
+
+def case_operator(shape: tuple[int, int, int], repeats: int = 5) -> dict:
+    """One application of the fine stiffness operator: the assembled matrix
+    (threaded CSR product) against the matrix-free element products in double
+    and single precision, on a random design; seconds (median), GFLOP/s of the
+    element products (2·24² flops per element) and the memory traffic per second
+    each would need at least (matrix entries and vectors; moduli and vectors)."""
+    from .matrixfree import SINGLE, FineOperator
+    from .parallel import RowBlocks
+    from .stencil import StencilAssembly
+
+    model = Model(problem_from_dict(cantilever_3d(*shape)), system_factory=DirectSystem)
+    rng = np.random.default_rng(0)
+    e = model.moduli(rng.uniform(0.01, 1.0, model.grid.n_elements))
+    n, ne = model.grid.n_dofs, model.grid.n_elements
+    fixed = np.zeros(n, bool)
+    fixed[model.fixed_dofs] = True
+    flops = 2.0 * 24 * 24 * ne
+
+    def timed(fn, x):
+        fn(x)  # compile / warm up
+        wall, cpu = [], []
+        for _ in range(repeats):
+            t, c = time.perf_counter(), time.process_time()
+            fn(x)
+            wall.append(time.perf_counter() - t)
+            cpu.append(time.process_time() - c)
+        return float(np.median(wall)), float(np.median(cpu))
+
+    out = {"elements": ne, "dofs": n, "gflop_per_application": flops / 1e9}
+    fine = FineOperator(model.grid.shape, model.ke, fixed)
+    fine.set_moduli(e)
+    for name, dtype in (("matrix_free_double", float), ("matrix_free_single", SINGLE)):
+        x = rng.standard_normal((n, 1)).astype(dtype)
+        wall, cpu = timed(lambda v: fine @ v, x)
+        size = np.dtype(dtype).itemsize
+        traffic = ne * size + 3 * n * size  # moduli, x, y (read and written)
+        out[name] = {
+            "seconds": wall,
+            "cpu_seconds": cpu,
+            "gflop_per_s": flops / wall / 1e9,
+            "gb_per_s": traffic / wall / 1e9,
+        }
+    a = StencilAssembly(model.grid, model.ke, fixed).matrix(e)
+    blocks = RowBlocks(a)
+    x = rng.standard_normal((n, 1))
+    wall, cpu = timed(lambda v: blocks @ v, x)
+    traffic = a.nnz * 12 + 3 * n * 8
+    out["assembled"] = {
+        "seconds": wall,
+        "cpu_seconds": cpu,
+        "gb_per_s": traffic / wall / 1e9,
+        "matrix_MB": (a.data.nbytes + a.indices.nbytes + a.indptr.nbytes) / 2**20,
+    }
+    out["ratio_assembled_to_matrix_free_double"] = wall / out["matrix_free_double"]["seconds"]
+    out["ratio_assembled_to_matrix_free_single"] = wall / out["matrix_free_single"]["seconds"]
+    return out
+
+
+def case_compare_paths(shape: tuple[int, int, int], iterations: int) -> dict:
+    """The same 3D problem with the matrix-free and the assembled multigrid-CG,
+    the same number of iterations: time per iteration, CG iterations and how far
+    the compliances differ (the designs should not depend on the path)."""
+    problem = cantilever_3d(*shape, "iterative")
+    with _iterative_path("matrix-free"):
+        new = _run(problem, iterations)
+    with _iterative_path("assembled"):
+        old = _run(problem, iterations)
+    cn, co = new["compliance"][-1], old["compliance"][-1]
+    for r in (new, old):
+        r.pop("result")
+        r["final_compliance"] = r.pop("compliance")[-1]
+    return {
+        "matrix_free": new,
+        "assembled": old,
+        "ratio_assembled_to_matrix_free": old["per_iteration_s"] / new["per_iteration_s"],
+        "compliance_relative_difference": abs(cn - co) / co,
+        "iterations": iterations,
+    }
+
+
 def _child(fn, args, queue) -> None:
     try:
         out = fn(*args)
@@ -304,6 +438,11 @@ def format_stages(name: str, r: dict) -> str:
 ON_REQUEST = {
     "scale-3d-100x50x50": (case_scale, ((100, 50, 50), 100)),
     "compare-3d-60x30x30-long": (case_compare, ((60, 30, 30), 50)),
+    "paths-3d-60x30x30-long": (case_compare_paths, ((60, 30, 30), 50)),
+    "matrixfree-3d-200x100x50": (case_matrix_free, ((200, 100, 50), 100)),
+    "matrixfree-3d-200x100x50-short": (case_matrix_free, ((200, 100, 50), 4)),
+    "matrixfree-3d-300x160x120-short": (case_matrix_free, ((300, 160, 120), 3)),
+    "operator-3d-200x100x50": (case_operator, ((200, 100, 50),)),
     "verify-2d-demo": (case_verify, ("bracket-2d",)),
     "verify-3d-demo": (case_verify, ("bracket-3d",)),
     # the print-resolution bracket, 150 × 80 × 60 mm at 0.5 mm (5.76 million elements)
@@ -320,6 +459,8 @@ def cases(quick: bool) -> dict:
     if not quick:
         plan["cantilever-3d-96x48x48"] = (case_cantilever, ((96, 48, 48), quick))
         plan["compare-3d-60x30x30"] = (case_compare, ((60, 30, 30), 10))
+        plan["paths-3d-60x30x30"] = (case_compare_paths, ((60, 30, 30), 10))
+        plan["operator-3d-100x50x50"] = (case_operator, ((100, 50, 50),))
     return plan
 
 
@@ -356,11 +497,57 @@ def _phases(r: dict) -> str:
     return ", ".join(f"{p} {ph[p]:.3f}" for p in PHASES + ("other",))
 
 
+def _format_operator(name: str, r: dict) -> str:
+    lines = [
+        f"{name}: {r['elements']} elements, {r['gflop_per_application']:.2f} GFLOP per "
+        "element-by-element application"
+    ]
+    for key in ("matrix_free_double", "matrix_free_single"):
+        s = r[key]
+        lines.append(
+            f"  {key}: {s['seconds']:.3f} s ({s['cpu_seconds']:.3f} s CPU), "
+            f"{s['gflop_per_s']:.1f} GFLOP/s (machine: {MACHINE_GFLOP_PER_S:.0f} dense), "
+            f"{s['gb_per_s']:.1f} GB/s of vectors and moduli"
+        )
+    s = r["assembled"]
+    lines.append(
+        f"  assembled CSR: {s['seconds']:.3f} s ({s['cpu_seconds']:.3f} s CPU), "
+        f"{s['gb_per_s']:.1f} GB/s (machine: {MACHINE_GB_PER_S:.0f} per thread), "
+        f"matrix {s['matrix_MB']:.0f} MB; assembled / matrix-free: "
+        f"{r['ratio_assembled_to_matrix_free_double']:.1f}× (double), "
+        f"{r['ratio_assembled_to_matrix_free_single']:.1f}× (single); "
+        f"peak memory {r['peak_memory_MB']:.0f} MB"
+    )
+    return "\n".join(lines)
+
+
+def _format_paths(name: str, r: dict) -> str:
+    lines = [f"{name}: {r['iterations']} iterations each"]
+    for kind in ("matrix_free", "assembled"):
+        s = r[kind]
+        lines.append(
+            f"  {kind:11s} {s['solver']}: {s['per_iteration_s']:.2f} s/iteration "
+            f"({_phases(s)}); CG iterations {s['solver_iterations']:.1f}; "
+            f"compliance {s['final_compliance']:.10g}"
+        )
+    lines.append(
+        f"  assembled / matrix-free time per iteration: "
+        f"{r['ratio_assembled_to_matrix_free']:.2f}×; compliance differs by "
+        f"{r['compliance_relative_difference']:.2e} (relative); "
+        f"peak memory {r['peak_memory_MB']:.0f} MB"
+    )
+    return "\n".join(lines)
+
+
 def format_case(name: str, r: dict) -> str:
     if "error" in r:
         return f"{name}: FAILED {r['error']}"
     if "stages" in r:
         return format_stages(name, r)
+    if "gflop_per_application" in r:
+        return _format_operator(name, r)
+    if "matrix_free" in r:
+        return _format_paths(name, r)
     if "verify_s" in r:
         fine = r["meshes"][-1]
         return (
@@ -392,6 +579,16 @@ def format_case(name: str, r: dict) -> str:
         f"final analyses and summary {r['finish_s']:.1f} s; "
         f"peak memory {r['peak_memory_MB']:.0f} MB"
     )
+    if "estimate" in r:
+        est = r["estimate"]
+        mb = est["memory_bytes"] / 2**20
+        line += (
+            f"\n  levels {r['levels']}; CG iterations per design iteration "
+            f"{r['cg_iterations']}; estimate {mb:.0f} MB and "
+            f"{est['seconds_per_iteration']:.2f} s/iteration, measured / estimate: "
+            f"memory {r['peak_memory_MB'] / mb:.2f}, time "
+            f"{r['per_iteration_s'] / est['seconds_per_iteration']:.2f}"
+        )
     if "reference" in r:
         ref = r["reference"]
         line += (

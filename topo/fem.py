@@ -10,6 +10,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import kernels
 from .elements import centre_strain_displacement, elasticity_matrix, element_stiffness, von_mises
 from .grid import Grid
 from .loads import LoadError, rigid_distribution
@@ -266,11 +267,19 @@ class Model:
                 raise FloatingPointError("the linear solve returned non-finite displacements")
         with timer("sensitivities"):
             compliances = np.einsum("dc,dc->c", self.loads, u)
+            mag = np.linalg.norm(u.reshape(self.grid.n_nodes, self.dim, -1), axis=1)
+            if self.dim == 3:
+                # compiled loops over the elements: no (elements × 24) copies of u
+                u2 = np.ascontiguousarray(u)
+                energies = kernels.element_energies(
+                    u2, self.ke, self.grid.shape, np.empty((self.grid.n_elements, u.shape[1]))
+                )
+                vm = self._von_mises_3d(u2) if stresses else np.zeros_like(energies)
+                return Analysis(u, compliances, energies, mag.max(axis=0), vm)
             ue = u[self.grid.element_dofs]  # (ne, nde, nc)
             # u_eᵀ k0 u_e for every element and case: one matrix product over all elements
             flat = ue.transpose(0, 2, 1).reshape(-1, ue.shape[1])
             energies = np.einsum("ij,ij->i", flat @ self.ke, flat).reshape(len(ue), -1)
-            mag = np.linalg.norm(u.reshape(self.grid.n_nodes, self.dim, -1), axis=1)
             vm = self._von_mises(ue) if stresses else np.zeros_like(energies)
         return Analysis(u, compliances, energies, mag.max(axis=0), vm)
 
@@ -278,6 +287,15 @@ class Model:
         """K⁻¹ rhs with the matrix of the last analysis (adjoint solves); full-size
         vectors, zero on the fixed dofs."""
         return self.system.solve(rhs)
+
+    def _von_mises_3d(self, u: np.ndarray) -> np.ndarray:
+        mat = self.problem.material
+        b = centre_strain_displacement(3, self.grid.h)
+        db = np.ascontiguousarray(elasticity_matrix(3, mat.youngs_modulus, mat.poissons_ratio) @ b)
+        stress = kernels.element_values(
+            u, db, self.grid.shape, np.empty((self.grid.n_elements, 6, u.shape[1]))
+        )
+        return von_mises(stress.transpose(0, 2, 1))
 
     def _von_mises(self, ue: np.ndarray) -> np.ndarray:
         mat = self.problem.material

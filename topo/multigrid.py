@@ -184,10 +184,14 @@ def pcg(
     x0: np.ndarray | None = None,
     rtol: float = 1e-6,
     max_iter: int = 500,
+    flexible: bool = False,
 ) -> tuple[np.ndarray, int]:
     """Preconditioned conjugate gradients on every column of b at once (each column
     with its own step lengths, a converged column frozen); stops when every
-    ‖r‖/‖b‖ < rtol. Returns the solution and the iterations taken."""
+    ‖r‖/‖b‖ < rtol. Returns the solution and the iterations taken. `flexible`
+    takes β = zᵀ(r − r_old)/(z_oldᵀ r_old) (Polak–Ribière), which keeps CG
+    convergent when the preconditioner varies slightly between applications
+    (Notay 2000, "Flexible conjugate gradients", SIAM J. Sci. Comput. 22:1444)."""
     x = np.zeros_like(b) if x0 is None else x0.copy()
     r = b - a @ x
     norm_b = np.linalg.norm(b, axis=0)
@@ -203,9 +207,16 @@ def pcg(
         pap = np.einsum("ij,ij->j", p, ap)
         alpha = np.where(active, rz / np.where(active, pap, 1.0), 0.0)
         x += alpha * p
+        r_old = r.copy() if flexible else None
         r -= alpha * ap
         z = precondition(r)
         rz_new = np.einsum("ij,ij->j", r, z)
+        if flexible:
+            rz_new_beta = rz_new - np.einsum("ij,ij->j", r_old, z)
+            beta = np.where(active, rz_new_beta / np.where(active, rz, 1.0), 0.0)
+            p = z + beta * p
+            rz = rz_new
+            continue
         beta = np.where(active, rz_new / np.where(active, rz, 1.0), 0.0)
         p = z + beta * p
         rz = rz_new

@@ -11,13 +11,24 @@ import numpy as np
 
 from .elements import element_stiffness
 from .problem import Problem
-from .solvers import choose
+from .solvers import choose, iterative_kind
 
 FACTOR_FLOPS_PER_S = 7e9  # CHOLMOD supernodal on two cores with OpenBLAS
 CG_SECONDS_PER_ENTRY = 1.5e-9  # one multigrid-CG iteration per stored matrix entry
 CG_ITERATIONS = 16  # mean over a run, with warm starts
 REBUILD_SECONDS_PER_ENTRY = 1.7e-8  # assembly, coarse operators, coarse Cholesky, per iteration
 ITERATIVE_BYTES_PER_NODE = 8_500  # fine matrix, hierarchy, work vectors of one load case
+# The matrix-free 3D path (matrixfree.py), fitted to `topo bench` runs of the
+# cantilever (DEVELOPERS.md, "Estimates of memory and time"): memory per element
+# of the whole run (design fields, filter, coarse stencils, the process itself)
+# and per dof and load case (the solver's vectors), seconds per element for one
+# CG iteration and for the per-design rebuild of the hierarchy.
+MF_BYTES_PER_ELEMENT = 440
+MF_BYTES_PER_DOF_CASE = 130
+MF_BYTES_FIXED = 250 * 2**20  # interpreter, numpy, scipy, numba and its compiled code
+MF_CG_ITERATIONS = 8
+MF_CG_SECONDS_PER_ELEMENT = 9.8e-6
+MF_REBUILD_SECONDS_PER_ELEMENT = 5.5e-6
 
 
 def estimate(problem: Problem) -> dict:
@@ -39,6 +50,14 @@ def estimate(problem: Problem) -> dict:
         # inverse, scatter matrix), kept as a ceiling; element fields are small.
         # Measured: DEVELOPERS.md, "Estimates of memory and time".
         memory = max(60 * entries, 12 * entries + solver_bytes + 400 * n_el)
+    elif iterative_kind(dim, n_dofs) == "matrix-free":
+        cases = len(problem.load_cases)
+        memory = (
+            MF_BYTES_FIXED + MF_BYTES_PER_ELEMENT * n_el + MF_BYTES_PER_DOF_CASE * n_dofs * cases
+        )
+        seconds = (
+            MF_CG_ITERATIONS * MF_CG_SECONDS_PER_ELEMENT + MF_REBUILD_SECONDS_PER_ELEMENT
+        ) * n_el
     else:
         nnz_k = (
             9 * dim * n_dofs if dim == 2 else 27 * dim * n_dofs

@@ -14,6 +14,7 @@ import numpy as np
 
 from .cholesky import SparseCholesky
 from .linear import LinearSystem, check_state_keys
+from .matrixfree import MatrixFreeCG
 from .multigrid import MultigridCG
 from .stencil import FreeLowerTriangle, StencilAssembly
 from .timing import Timer
@@ -91,6 +92,17 @@ class DirectSystem(LinearSystem):
 AUTO_ITERATIVE_DOFS = 20_000
 
 
+# Above this many free dofs a 3D iterative solve is matrix-free (matrixfree.py);
+# below it the assembled matrix still fits in cache-friendly sizes and its cheaper
+# CG iterations win. Measured: DEVELOPERS.md, "Matrix-free multigrid".
+AUTO_MATRIX_FREE_DOFS = 300_000
+
+
+def iterative_kind(dim: int, n_free: int) -> str:
+    """'matrix-free' or 'assembled' multigrid-CG for an iterative solve."""
+    return "matrix-free" if dim == 3 and n_free > AUTO_MATRIX_FREE_DOFS else "assembled"
+
+
 def choose(kind: str, dim: int, n_free: int) -> str:
     """'direct' or 'iterative' for `optimization.solver`."""
     if kind == "auto":
@@ -102,7 +114,12 @@ def choose(kind: str, dim: int, n_free: int) -> str:
 
 def make_system(kind: str, grid, ke: np.ndarray, fixed_mask: np.ndarray) -> LinearSystem:
     """The linear system for `optimization.solver` (auto | direct | iterative) on
-    `grid` with element matrix `ke` and the supports `fixed_mask` (per dof)."""
-    if choose(kind, grid.dim, int(np.count_nonzero(~fixed_mask))) == "iterative":
+    `grid` with element matrix `ke` and the supports `fixed_mask` (per dof). The
+    iterative system is matrix-free for large 3D problems (matrixfree.py) and
+    assembled otherwise (multigrid.py)."""
+    n_free = int(np.count_nonzero(~fixed_mask))
+    if choose(kind, grid.dim, n_free) == "iterative":
+        if iterative_kind(grid.dim, n_free) == "matrix-free":
+            return MatrixFreeCG(grid, ke, fixed_mask)
         return MultigridCG(grid, ke, fixed_mask)
     return DirectSystem(grid, ke, fixed_mask)

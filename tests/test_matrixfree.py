@@ -1,0 +1,194 @@
+"""The matrix-free operator, its coarse Galerkin stencils and grid transfers against
+assembled sparse matrices (scipy), and the kernels' element figures against plain
+numpy products."""
+
+import numpy as np
+import pytest
+
+from problems import beam_problem
+from topo import kernels
+from topo.coarsening import CoarseLevel
+from topo.fem import Model
+from topo.grid import Grid
+from topo.multigrid import Hierarchy, prolongation, prolongation_1d
+from topo.problem import problem_from_dict
+from topo.stencil import StencilAssembly
+
+
+def model_with_point_support(size):
+    # a face support and a point support on a fine node that is not a coarse node
+    d = beam_problem(3, size, 1.0, solver="iterative")
+    d["support"].append({"region": {"point": [3.0, 1.0, 1.0]}, "fix": ["y"]})
+    return Model(problem_from_dict(d))
+
+
+def stencil_matrix(node_shape, stencil):
+    grid = Grid(tuple(n - 1 for n in node_shape), 1.0)
+    return StencilAssembly(grid, None, np.zeros(grid.n_dofs, bool))._csr(
+        np.ascontiguousarray(stencil, dtype=float).reshape(grid.n_dofs, -1).copy()
+    )
+
+
+@pytest.mark.parametrize("shape", [(6, 5, 4), (7, 3, 5)])
+def test_element_product_equals_the_assembled_matrix(shape):
+    # scipy's CSR product with the node-stencil matrix (supports as identity rows)
+    grid = Grid(shape, 1.0)
+    from topo.elements import element_stiffness
+
+    ke = element_stiffness(3, 1.0, 0.3)
+    rng = np.random.default_rng(0)
+    e = rng.uniform(1e-3, 1.0, grid.n_elements)
+    fixed = np.zeros(grid.n_dofs, bool)
+    fixed[rng.choice(grid.n_dofs, 20, replace=False)] = True
+    a = StencilAssembly(grid, ke, fixed).matrix(e)
+    u = rng.standard_normal((grid.n_dofs, 2))
+    free = (~fixed).astype(float)
+    y = kernels.element_product(u, e, ke, free, shape, np.empty_like(u))
+    assert np.abs(y - a @ u).max() <= 1e-13 * np.abs(a @ u).max()
+    d = kernels.element_diagonal(e, ke, free, shape, np.empty(grid.n_dofs))
+    assert np.abs(d - a.diagonal()).max() <= 1e-14 * np.abs(d).max()
+    # single precision: to its round-off
+    f = np.float32
+    y32 = kernels.element_product(
+        u.astype(f), e.astype(f), ke.astype(f), free.astype(f), shape, np.empty(u.shape, f)
+    )
+    assert np.abs(y32 - a @ u).max() <= 1e-5 * np.abs(a @ u).max()
+
+
+def test_element_energies_and_values_equal_dense_products():
+    from topo.elements import centre_strain_displacement, element_stiffness
+
+    shape = (4, 3, 5)
+    grid = Grid(shape, 2.0)
+    ke = element_stiffness(3, 2.0, 0.3)
+    u = np.random.default_rng(1).standard_normal((grid.n_dofs, 2))
+    ue = u[grid.element_dofs]  # (ne, 24, 2), numpy fancy indexing
+    energies = kernels.element_energies(u, ke, shape, np.empty((grid.n_elements, 2)))
+    assert np.allclose(energies, np.einsum("eic,ij,ejc->ec", ue, ke, ue), rtol=1e-13)
+    b = centre_strain_displacement(3, 2.0)
+    values = kernels.element_values(u, b, shape, np.empty((grid.n_elements, 6, 2)))
+    assert np.allclose(values, np.einsum("si,eic->esc", b, ue), rtol=1e-13, atol=1e-15)
+
+
+@pytest.mark.parametrize("shape", [(6, 4, 5), (9, 5, 7)])
+def test_transfers_equal_the_sparse_prolongation(shape):
+    p, coarse = prolongation(shape)
+    factors = [prolongation_1d(n) for n in shape]
+    rng = np.random.default_rng(2)
+    uc = rng.standard_normal((p.shape[1], 2))
+    uf = rng.standard_normal((p.shape[0], 2))
+    fine = kernels.tensor_apply(factors, uc, np.empty((p.shape[0], 2)))
+    assert np.allclose(fine, p @ uc, rtol=0, atol=1e-14)
+    back = kernels.tensor_apply([f.T.tocsr() for f in factors], uf, np.empty((p.shape[1], 2)))
+    assert np.allclose(back, p.T @ uf, rtol=0, atol=1e-13)
+
+
+@pytest.mark.parametrize("size", [[16.0, 8.0, 8.0], [15.0, 7.0, 9.0]])
+def test_coarse_stencils_equal_the_sparse_triple_products(size):
+    # every level against scipy's Pᵀ A P one level at a time (multigrid.Hierarchy
+    # without the element-by-element shortcut), odd sizes and a point support
+    m = model_with_point_support(size)
+    e = m.moduli(np.random.default_rng(4).uniform(1e-3, 1.0, m.grid.n_elements))
+    sparse = Hierarchy(m.grid.shape, coarse_dofs=100)
+    assert sparse.levels >= 3
+    sparse.update(StencilAssembly(m.grid, m.ke, m._fixed).matrix(e))
+    for level, ref in enumerate(sparse.operators[1:], start=1):
+        coarse = CoarseLevel(m.grid.shape, m.ke, m._fixed, level)
+        ours = stencil_matrix(coarse.node_shape, coarse.stencil(e))
+        assert abs(ours - ref).max() <= 1e-12 * abs(ref).max()
+        # the node-stencil product equals the CSR product
+        u = np.random.default_rng(level).standard_normal((ref.shape[0], 1))
+        y = kernels.stencil_product(coarse.stencil(e), u, coarse.node_shape, np.empty_like(u))
+        assert np.allclose(y, ref @ u, rtol=0, atol=1e-12 * np.abs(ref @ u).max())
+
+
+def test_chebyshev_smoother_follows_the_chebyshev_polynomial():
+    # On A = diag(λ) with D = I, the smoother started from zero leaves the error
+    # e = p(A) e0 with p(λ) = T_k((θ − λ)/δ) / T_k(θ/δ) on [λmax/ratio, λmax]
+    # (Saad, Iterative Methods for Sparse Linear Systems, §12.1); T_k from numpy's
+    # Chebyshev module.
+    from numpy.polynomial import chebyshev as cheb
+
+    from topo.matrixfree import chebyshev
+
+    lam = np.linspace(0.01, 2.0, 40).astype(np.float32)
+    a = np.diag(lam)
+    x_true = np.random.default_rng(0).standard_normal((40, 1)).astype(np.float32)
+    r = a @ x_true
+    ones = np.ones((40, 1), np.float32)
+    for degree in (1, 2, 3, 4):
+        x = chebyshev(a, ones, r, None, 2.0, degree, 10.0)
+        upper, lower = 2.0, 0.2
+        theta, delta = (upper + lower) / 2, (upper - lower) / 2
+        t_k = [0] * degree + [1]
+        p = cheb.chebval((theta - lam) / delta, t_k) / cheb.chebval(theta / delta, t_k)
+        assert np.allclose((x_true - x)[:, 0], p * x_true[:, 0], atol=1e-5)
+    # from a start: the same polynomial acts on the start's error
+    x0 = np.zeros_like(x_true) + 0.5
+    x = chebyshev(a, ones, r, x0, 2.0, 2, 10.0)
+    p = cheb.chebval((theta - lam) / delta, [0, 0, 1]) / cheb.chebval(theta / delta, [0, 0, 1])
+    assert np.allclose((x_true - x)[:, 0], p * (x_true - x0)[:, 0], atol=1e-5)
+
+
+@pytest.mark.parametrize("rtol", [1e-6, 1e-4])
+def test_matrix_free_and_direct_agree_with_high_contrast(rtol):
+    # solid bars in void (ρ = 1 or 1e-3), two load cases, several levels
+    from problems import add_point_load
+    from topo.matrixfree import MatrixFreeCG
+
+    d = beam_problem(3, [16.0, 8.0, 8.0], 1.0)
+    add_point_load(d, "twist", [16.0, 8.0, 8.0], [0.0, 1.0, 0.5])
+    rho = np.full((16, 8, 8), 1e-3)
+    rho[:, 2:4, 1:3] = rho[:, 5:7, 5:7] = 1.0
+    rho[0:3] = 1.0
+    rho[:, :, 0:1] = 1.0
+    rho = rho.ravel()
+    direct = Model(problem_from_dict(d, {"optimization.solver": "direct"})).analyze(rho)
+    model = Model(
+        problem_from_dict(d),
+        system_factory=lambda g, ke, f: MatrixFreeCG(g, ke, f, rtol=rtol, coarse_dofs=300),
+    )
+    ours = model.analyze(rho)
+    assert model.system.levels >= 3 and model.system.iterations > 1
+    err = np.linalg.norm(ours.displacements - direct.displacements, axis=0)
+    ref = np.linalg.norm(direct.displacements, axis=0)
+    c_err = np.abs(ours.compliances - direct.compliances) / direct.compliances
+    # The error in u stays below the residual tolerance; flexible CG is not
+    # exactly a Galerkin method, so its compliance error is not held to rtol² as
+    # plain CG's is (test_multigrid.py), only to rtol.
+    assert np.all(err / ref < rtol)
+    assert np.all(c_err < rtol)
+    # element energies and stresses of the compiled loops against numpy's
+    ue = ours.displacements[model.grid.element_dofs]
+    assert np.allclose(ours.energies, np.einsum("eic,ij,ejc->ec", ue, model.ke, ue), rtol=1e-12)
+    assert np.allclose(ours.von_mises, model._von_mises(ue), rtol=1e-12)
+
+
+def _product_sum(queue=None):
+    from topo.elements import element_stiffness
+
+    shape = (4, 3, 2)
+    n = 3 * 5 * 4 * 3
+    u = np.linspace(0.0, 1.0, n)[:, None]
+    y = kernels.element_product(
+        u, np.ones(24), element_stiffness(3, 1.0, 0.3), np.ones(n), shape, np.empty_like(u)
+    )
+    total = float(np.abs(y).sum())
+    if queue is not None:
+        queue.put(total)
+    return total
+
+
+def test_a_process_forked_after_a_parallel_kernel_can_run_kernels():
+    # GNU OpenMP aborts such a child; sweeps and benchmarks fork
+    import multiprocessing as mp
+
+    here = _product_sum()
+    ctx = mp.get_context("fork")
+    queue = ctx.Queue()
+    child = ctx.Process(target=_product_sum, args=(queue,))
+    child.start()
+    there = queue.get(timeout=300)
+    child.join(timeout=60)
+    assert child.exitcode == 0
+    assert there == here

@@ -1,0 +1,360 @@
+"""Compiled loops over the 3D structured grid (numba), threaded over the cores.
+
+Nodes are numbered in C order of (i, j, k) on a grid of (nx+1, ny+1, nz+1) nodes
+and node n carries dofs 3n + c, as in grid.py; element (i, j, k) has its eight
+corners in grid.H8_CORNERS order. Every array a kernel writes is owned by one
+thread at a time: loops that scatter to the nodes of an element (or coarse
+element) run over x-slabs in two colours, even slabs then odd ones, so no two
+threads touch the same node plane; results are therefore the same on every run.
+
+numba's workqueue threading layer (chosen below) must not be entered from two
+Python threads at once, so every call goes through `_LOCK`.
+"""
+
+from __future__ import annotations
+
+import threading
+
+import numba as nb
+import numpy as np
+
+# GNU OpenMP, which numba picks when it finds it, kills a process forked after a
+# parallel region ("fork() called from a process already using GNU OpenMP");
+# sweeps and benchmarks fork. The built-in workqueue layer survives a fork
+# (tests/test_matrixfree.py).
+nb.config.THREADING_LAYER = "workqueue"
+_LOCK = threading.Lock()
+# Compiled code is cached next to the module (or in numba's user-wide cache when
+# that folder is read-only), so only the first run on a machine compiles.
+_JIT = {"cache": True, "fastmath": True, "parallel": True}
+
+
+@nb.njit(cache=True)
+def _corner_offsets(ny1: int, nz1: int) -> np.ndarray:
+    """Node-number offsets of the eight H8 corners from the element's corner 0."""
+    out = np.empty(8, np.int64)
+    # (0,0,0) (1,0,0) (1,1,0) (0,1,0) (0,0,1) (1,0,1) (1,1,1) (0,1,1)
+    cx = (0, 1, 1, 0, 0, 1, 1, 0)
+    cy = (0, 0, 1, 1, 0, 0, 1, 1)
+    cz = (0, 0, 0, 0, 1, 1, 1, 1)
+    for a in range(8):
+        out[a] = (cx[a] * ny1 + cy[a]) * nz1 + cz[a]
+    return out
+
+
+@nb.njit(**_JIT)
+def _element_product(u, moduli, k0, free, nx, ny, nz, y):
+    """y = D K D u + (I − D) u with K = Σ_e E_e k0 (D the 0/1 `free` mask). Per
+    line of elements along z: gather E_e·u_e into the columns of a 24 × nz block,
+    multiply by k0, scatter back to the nodes; the innermost loops run along the
+    line, so they vectorise."""
+    ny1, nz1 = ny + 1, nz + 1
+    offs = _corner_offsets(ny1, nz1)
+    m = u.shape[1]
+    for d in nb.prange(y.shape[0]):
+        for col in range(m):
+            y[d, col] = 0.0
+    for colour in range(2):
+        for ii in nb.prange((nx - colour + 1) // 2):
+            i = 2 * ii + colour
+            ue = np.empty((24, nz), dtype=k0.dtype)
+            acc = np.empty((24, nz), dtype=k0.dtype)
+            for j in range(ny):
+                el0 = (i * ny + j) * nz
+                base = (i * ny1 + j) * nz1
+                for col in range(m):
+                    for a in range(8):
+                        for c in range(3):
+                            row = 3 * a + c
+                            d0 = 3 * (base + offs[a]) + c
+                            for k in range(nz):
+                                d = d0 + 3 * k
+                                ue[row, k] = moduli[el0 + k] * u[d, col] * free[d]
+                    for r in range(24):
+                        for k in range(nz):
+                            acc[r, k] = 0.0
+                        for s in range(24):
+                            w = k0[r, s]
+                            for k in range(nz):
+                                acc[r, k] += w * ue[s, k]
+                    for a in range(8):
+                        for c in range(3):
+                            row = 3 * a + c
+                            d0 = 3 * (base + offs[a]) + c
+                            for k in range(nz):
+                                y[d0 + 3 * k, col] += acc[row, k]
+    for d in nb.prange(y.shape[0]):
+        f = free[d]
+        for col in range(m):
+            y[d, col] = f * y[d, col] + (1.0 - f) * u[d, col]
+
+
+@nb.njit(**_JIT)
+def _element_diagonal(moduli, k0, free, nx, ny, nz, out):
+    """The diagonal of D K D + (I − D)."""
+    ny1, nz1 = ny + 1, nz + 1
+    offs = _corner_offsets(ny1, nz1)
+    for d in nb.prange(out.shape[0]):
+        out[d] = 0.0
+    for colour in range(2):
+        for ii in nb.prange((nx - colour + 1) // 2):
+            i = 2 * ii + colour
+            for j in range(ny):
+                for k in range(nz):
+                    e = moduli[(i * ny + j) * nz + k]
+                    base = (i * ny1 + j) * nz1 + k
+                    for a in range(8):
+                        dof = 3 * (base + offs[a])
+                        for c in range(3):
+                            out[dof + c] += e * k0[3 * a + c, 3 * a + c]
+    for d in nb.prange(out.shape[0]):
+        f = free[d]
+        out[d] = f * out[d] + (1.0 - f)
+
+
+@nb.njit(**_JIT)
+def _element_energies(u, k0, nx, ny, nz, out):
+    """out[e, col] = u_eᵀ k0 u_e for every element and column of u."""
+    ny1, nz1 = ny + 1, nz + 1
+    offs = _corner_offsets(ny1, nz1)
+    m = u.shape[1]
+    for i in nb.prange(nx):
+        ue = np.empty_like(k0[0])
+        for j in range(ny):
+            for k in range(nz):
+                el = (i * ny + j) * nz + k
+                base = (i * ny1 + j) * nz1 + k
+                for col in range(m):
+                    for a in range(8):
+                        dof = 3 * (base + offs[a])
+                        for c in range(3):
+                            ue[3 * a + c] = u[dof + c, col]
+                    total = 0.0
+                    for s in range(24):
+                        row = 0.0
+                        for r in range(24):
+                            row += k0[s, r] * ue[r]
+                        total += row * ue[s]
+                    out[el, col] = total
+
+
+@nb.njit(**_JIT)
+def _element_values(u, b, nx, ny, nz, out):
+    """out[e, :, col] = b u_e for a constant (rows × 24) matrix b (element strains)."""
+    ny1, nz1 = ny + 1, nz + 1
+    offs = _corner_offsets(ny1, nz1)
+    m = u.shape[1]
+    rows = b.shape[0]
+    for i in nb.prange(nx):
+        ue = np.empty(24)
+        for j in range(ny):
+            for k in range(nz):
+                el = (i * ny + j) * nz + k
+                base = (i * ny1 + j) * nz1 + k
+                for col in range(m):
+                    for a in range(8):
+                        dof = 3 * (base + offs[a])
+                        for c in range(3):
+                            ue[3 * a + c] = u[dof + c, col]
+                    for r in range(rows):
+                        s = 0.0
+                        for q in range(24):
+                            s += b[r, q] * ue[q]
+                        out[el, r, col] = s
+
+
+@nb.njit(**_JIT)
+def _stencil_product(stencil, u, nx1, ny1, nz1, y):
+    """y = A u for A stored by node stencils: stencil[n, i, slot, j] couples dof
+    (n, i) with dof (n + offset(slot), j), slots in lexicographic order of the
+    offsets (−1, 0, 1)³ (stencil.py's layout)."""
+    m = u.shape[1]
+    for x in nb.prange(nx1):
+        acc = np.empty(3, dtype=np.float64)
+        for yy in range(ny1):
+            for z in range(nz1):
+                n = (x * ny1 + yy) * nz1 + z
+                for col in range(m):
+                    acc[0] = 0.0
+                    acc[1] = 0.0
+                    acc[2] = 0.0
+                    slot = 0
+                    for dx in range(-1, 2):
+                        xn = x + dx
+                        for dy in range(-1, 2):
+                            yn = yy + dy
+                            for dz in range(-1, 2):
+                                zn = z + dz
+                                if 0 <= xn < nx1 and 0 <= yn < ny1 and 0 <= zn < nz1:
+                                    nb_dof = 3 * ((xn * ny1 + yn) * nz1 + zn)
+                                    u0 = u[nb_dof, col]
+                                    u1 = u[nb_dof + 1, col]
+                                    u2 = u[nb_dof + 2, col]
+                                    for i in range(3):
+                                        acc[i] += (
+                                            stencil[n, i, slot, 0] * u0
+                                            + stencil[n, i, slot, 1] * u1
+                                            + stencil[n, i, slot, 2] * u2
+                                        )
+                                slot += 1
+                    for i in range(3):
+                        y[3 * n + i, col] = acc[i]
+
+
+@nb.njit(**_JIT)
+def _tensor_apply(
+    ax_ptr, ax_idx, ax_val, ay_ptr, ay_idx, ay_val, az_ptr, az_idx, az_val, ny_in, nz_in, u, y
+):
+    """y = (Ax ⊗ Ay ⊗ Az ⊗ I₃) u for three 1D sparse matrices in CSR arrays: the
+    grid transfers (prolongation P, restriction Pᵀ) without forming them."""
+    nx_out, ny_out, nz_out = len(ax_ptr) - 1, len(ay_ptr) - 1, len(az_ptr) - 1
+    m = u.shape[1]
+    for x in nb.prange(nx_out):
+        for yy in range(ny_out):
+            for z in range(nz_out):
+                n = (x * ny_out + yy) * nz_out + z
+                for col in range(m):
+                    s0 = 0.0
+                    s1 = 0.0
+                    s2 = 0.0
+                    for p in range(ax_ptr[x], ax_ptr[x + 1]):
+                        wx = ax_val[p]
+                        bx = ax_idx[p] * ny_in
+                        for q in range(ay_ptr[yy], ay_ptr[yy + 1]):
+                            wxy = wx * ay_val[q]
+                            bxy = (bx + ay_idx[q]) * nz_in
+                            for r in range(az_ptr[z], az_ptr[z + 1]):
+                                w = wxy * az_val[r]
+                                d = 3 * (bxy + az_idx[r])
+                                s0 += w * u[d, col]
+                                s1 += w * u[d + 1, col]
+                                s2 += w * u[d + 2, col]
+                    y[3 * n, col] = s0
+                    y[3 * n + 1, col] = s1
+                    y[3 * n + 2, col] = s2
+
+
+@nb.njit(**_JIT)
+def _coarse_stencil(
+    moduli,
+    nx,
+    ny,
+    nz,
+    sx,
+    sy,
+    sz,
+    cx_code,
+    cy_code,
+    cz_code,
+    ncy,
+    ncz,
+    table,
+    extra_of,
+    extra,
+    slot_of,
+    out,
+):
+    """Node stencils of a coarse Galerkin operator from the fine element moduli:
+    each coarse element's matrix is Σ_e E_e table[code(e)] over the fine elements
+    e it holds (s*[C] .. s*[C+1] − 1 along each axis), plus `extra[extra_of[C]]`
+    where extra_of[C] ≥ 0; it is then scattered to the stencils of its corners."""
+    cx, cy, cz = len(sx) - 1, len(sy) - 1, len(sz) - 1
+    ny1, nz1 = cy + 1, cz + 1
+    offs = _corner_offsets(ny1, nz1)
+    for n in nb.prange(out.shape[0]):
+        for i in range(3):
+            for s in range(27):
+                for j in range(3):
+                    out[n, i, s, j] = 0.0
+    for colour in range(2):
+        for ii in nb.prange((cx - colour + 1) // 2):
+            ci = 2 * ii + colour
+            kc = np.empty((24, 24))
+            for cj in range(cy):
+                for ck in range(cz):
+                    for r in range(24):
+                        for s in range(24):
+                            kc[r, s] = 0.0
+                    for i in range(sx[ci], sx[ci + 1]):
+                        for j in range(sy[cj], sy[cj + 1]):
+                            for k in range(sz[ck], sz[ck + 1]):
+                                e = moduli[(i * ny + j) * nz + k]
+                                if e != 0.0:
+                                    t = (cx_code[i] * ncy + cy_code[j]) * ncz + cz_code[k]
+                                    for r in range(24):
+                                        for s in range(24):
+                                            kc[r, s] += e * table[t, r, s]
+                    c = (ci * cy + cj) * cz + ck
+                    x = extra_of[c]
+                    if x >= 0:
+                        for r in range(24):
+                            for s in range(24):
+                                kc[r, s] += extra[x, r, s]
+                    base = (ci * ny1 + cj) * nz1 + ck
+                    for a in range(8):
+                        node = base + offs[a]
+                        for b in range(8):
+                            slot = slot_of[a, b]
+                            for i in range(3):
+                                for j in range(3):
+                                    out[node, i, slot, j] += kc[3 * a + i, 3 * b + j]
+
+
+def element_product(u, moduli, k0, free, shape, out):
+    with _LOCK:
+        _element_product(u, moduli, k0, free, *shape, out)
+    return out
+
+
+def element_diagonal(moduli, k0, free, shape, out):
+    with _LOCK:
+        _element_diagonal(moduli, k0, free, *shape, out)
+    return out
+
+
+def element_energies(u, k0, shape, out):
+    with _LOCK:
+        _element_energies(u, k0, *shape, out)
+    return out
+
+
+def element_values(u, b, shape, out):
+    with _LOCK:
+        _element_values(u, b, *shape, out)
+    return out
+
+
+def stencil_product(stencil, u, node_shape, out):
+    with _LOCK:
+        _stencil_product(stencil, u, *node_shape, out)
+    return out
+
+
+def tensor_apply(factors, u, out):
+    """`factors`: three scipy CSR matrices (x, y, z)."""
+    args = []
+    for f in factors:
+        args += [f.indptr, f.indices, f.data]
+    with _LOCK:
+        _tensor_apply(*args, factors[1].shape[1], factors[2].shape[1], u, out)
+    return out
+
+
+def coarse_stencil(
+    moduli, fine_shape, starts, codes, n_codes, table, extra_of, extra, slot_of, out
+):
+    with _LOCK:
+        _coarse_stencil(
+            moduli,
+            *fine_shape,
+            *starts,
+            *codes,
+            n_codes[1],
+            n_codes[2],
+            table,
+            extra_of,
+            extra,
+            slot_of,
+            out,
+        )
+    return out

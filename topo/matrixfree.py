@@ -1,0 +1,347 @@
+"""Matrix-free multigrid-CG for 3D structured grids.
+
+The fine operator is never assembled: K u = Σ_e E_e k0 u_e is applied element by
+element (kernels.element_product), and its diagonal, all that the smoother needs,
+comes the same way. The coarse levels are the Galerkin operators Pᵀ A P, written
+as node stencils straight from the fine moduli (coarsening.py); the coarsest is
+factorised by sparse Cholesky. Grid transfers are applied as tensor products of
+1D interpolations, never stored as matrices. Memory is O(nodes) with a small
+constant: the fine level holds moduli and vectors only.
+
+Methods, each with its source:
+- Multigrid-preconditioned CG for topology optimisation on nested structured
+  grids with Galerkin coarse operators: Amir, Aage & Lazarov 2014, Struct.
+  Multidisc. Optim. 49:815 (multigrid.py follows it with assembled matrices).
+- Smoothing by Chebyshev polynomials in D⁻¹A (Jacobi-preconditioned), which needs
+  only the diagonal and an estimate of the largest eigenvalue: Adams, Brezina,
+  Hu & Tuminaro 2003, "Parallel multigrid smoothing: polynomial versus
+  Gauss–Seidel", J. Comput. Phys. 188:593. The recurrence is the Chebyshev
+  iteration of Saad, Iterative Methods for Sparse Linear Systems, 2nd ed.,
+  Algorithm 12.1.
+- Coarse levels solved by Krylov-accelerated cycles (the K-cycle: two steps of
+  flexible CG preconditioned by the next cycle, the second skipped when the first
+  reduced the residual enough): Notay & Vassilevski 2008, "Recursive
+  Krylov-based multigrid cycles", Numer. Linear Algebra Appl. 15:473. It keeps
+  the outer iteration count nearly flat as levels are added, where a plain
+  V-cycle's grows (DEVELOPERS.md, "Matrix-free multigrid").
+- The outer iteration is flexible CG (Polak–Ribière β), as the K-cycle makes the
+  preconditioner vary slightly from one application to the next: Notay 2000,
+  "Flexible conjugate gradients", SIAM J. Sci. Comput. 22:1444.
+- The preconditioner runs in single precision (half the memory traffic); the
+  outer CG, its operator and its residuals stay in double precision, so the
+  solution is as accurate as with a double-precision preconditioner.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.sparse as sp
+
+from . import kernels
+from .cholesky import SparseCholesky
+from .coarsening import CoarseLevel
+from .grid import Grid
+from .linear import LinearSystem, check_state_keys
+from .multigrid import COARSE_DOFS, MAX_CG_ITERATIONS, RTOL, _lambda_max, pcg, prolongation_1d
+from .stencil import StencilAssembly
+from .timing import Timer
+
+# Chebyshev smoothing: degree and the ratio λmax / λmin of the interval of D⁻¹A it
+# damps. Measured: DEVELOPERS.md, "Matrix-free multigrid".
+CHEBYSHEV_DEGREE = 2
+CHEBYSHEV_RATIO = 10.0
+# The power iteration approaches λmax from below; Chebyshev amplifies modes above
+# its interval, so the estimate is raised by this factor.
+LAMBDA_SAFETY = 1.1
+# K-cycle: levels from this one down are solved by two flexible-CG steps (the fine
+# and first coarse levels, the costly ones, by one plain cycle), and the second
+# step is skipped when the first left less than this share of the residual
+# (Notay & Vassilevski 2008 use 0.25).
+KRYLOV_FROM_LEVEL = 1
+KRYLOV_SKIP = 0.25
+
+SINGLE = np.float32
+
+
+def _columns(x: np.ndarray) -> np.ndarray:
+    return x if x.ndim == 2 else x[:, None]
+
+
+def _dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Column-wise dot products in double precision."""
+    return np.einsum("ij,ij->j", a, b, dtype=float)
+
+
+class FineOperator:
+    """A = D K D + (I − D) on the fine grid, element by element; single- or
+    double-precision products by the dtype of the argument."""
+
+    def __init__(self, shape: tuple[int, int, int], ke: np.ndarray, fixed: np.ndarray):
+        self.grid_shape = shape
+        n = 3 * int(np.prod([s + 1 for s in shape]))
+        self.shape = (n, n)
+        self._k0 = {np.dtype(float): np.ascontiguousarray(ke, dtype=float)}
+        self._k0[np.dtype(SINGLE)] = self._k0[np.dtype(float)].astype(SINGLE)
+        free = (~fixed).astype(float)
+        self._free = {np.dtype(float): free, np.dtype(SINGLE): free.astype(SINGLE)}
+        self._moduli: dict = {}
+
+    def set_moduli(self, moduli: np.ndarray) -> None:
+        e = np.ascontiguousarray(moduli, dtype=float)
+        self._moduli = {np.dtype(float): e, np.dtype(SINGLE): e.astype(SINGLE)}
+
+    def diagonal(self, dtype=float) -> np.ndarray:
+        dt = np.dtype(dtype)
+        out = np.empty(self.shape[0], dtype=dt)
+        return kernels.element_diagonal(
+            self._moduli[dt], self._k0[dt], self._free[dt], self.grid_shape, out
+        )
+
+    def __matmul__(self, x: np.ndarray) -> np.ndarray:
+        dt = np.dtype(SINGLE) if x.dtype == SINGLE else np.dtype(float)
+        u = np.ascontiguousarray(_columns(x), dtype=dt)
+        out = np.empty_like(u)
+        kernels.element_product(
+            u, self._moduli[dt], self._k0[dt], self._free[dt], self.grid_shape, out
+        )
+        return out.reshape(x.shape)
+
+
+class StencilOperator:
+    """A coarse operator held as node stencils (n_nodes, 3, 27, 3)."""
+
+    def __init__(self, stencil: np.ndarray, node_shape: tuple[int, int, int]):
+        self.stencil, self.node_shape = stencil, node_shape
+        n = 3 * int(np.prod(node_shape))
+        self.shape = (n, n)
+
+    def diagonal(self) -> np.ndarray:
+        i = np.arange(3)
+        return self.stencil[:, i, 13, i].reshape(-1)  # slot 13 is the offset (0, 0, 0)
+
+    def __matmul__(self, x: np.ndarray) -> np.ndarray:
+        u = np.ascontiguousarray(_columns(x), dtype=self.stencil.dtype)
+        out = np.empty_like(u)
+        kernels.stencil_product(self.stencil, u, self.node_shape, out)
+        return out.reshape(x.shape)
+
+
+class Transfer:
+    """Prolongation from a grid of `shape`'s coarse grid to it, and restriction
+    (its transpose), as tensor products of 1D interpolations."""
+
+    def __init__(self, shape: tuple[int, int, int]):
+        self._p = [prolongation_1d(n) for n in shape]
+        self._p32 = [f.astype(SINGLE) for f in self._p]
+        self._r32 = [f.T.tocsr() for f in self._p32]
+        self.fine_n = 3 * int(np.prod([f.shape[0] for f in self._p]))
+        self.coarse_n = 3 * int(np.prod([f.shape[1] for f in self._p]))
+
+    def prolong(self, x: np.ndarray) -> np.ndarray:
+        return kernels.tensor_apply(self._p32, x, np.empty((self.fine_n, x.shape[1]), x.dtype))
+
+    def restrict(self, x: np.ndarray) -> np.ndarray:
+        return kernels.tensor_apply(self._r32, x, np.empty((self.coarse_n, x.shape[1]), x.dtype))
+
+
+def level_shapes(shape: tuple[int, ...], coarse_dofs: int) -> list[tuple[int, ...]]:
+    """Element shapes of the levels, fine first: halved until a level has at most
+    `coarse_dofs` dofs (multigrid.Hierarchy's rule)."""
+    out = [tuple(shape)]
+    while 3 * int(np.prod([n + 1 for n in out[-1]])) > coarse_dofs and min(out[-1]) >= 2:
+        out.append(tuple(-(-n // 2) for n in out[-1]))
+    return out
+
+
+def chebyshev(a, inv_diag, r, x, lam_max, degree, ratio):
+    """`degree` steps of the Chebyshev iteration for A x = r preconditioned by D⁻¹,
+    on the interval [λmax/ratio, λmax] of D⁻¹A, from x (None: zero). Saad,
+    Algorithm 12.1; as a smoother, Adams et al. 2003."""
+    upper = lam_max
+    lower = lam_max / ratio
+    theta, delta = 0.5 * (upper + lower), 0.5 * (upper - lower)
+    sigma = theta / delta
+    rho = 1.0 / sigma
+    res = r if x is None else r - a @ x
+    d = (inv_diag * res) * SINGLE(1.0 / theta)
+    x = d.copy() if x is None else x + d
+    for _ in range(degree - 1):
+        res = res - a @ d
+        rho_new = 1.0 / (2.0 * sigma - rho)
+        d = d * SINGLE(rho_new * rho) + (inv_diag * res) * SINGLE(2.0 * rho_new / delta)
+        x += d
+        rho = rho_new
+    return x
+
+
+class MatrixFreeCG(LinearSystem):
+    """Flexible CG preconditioned by a single-precision multigrid cycle whose fine
+    level is matrix-free; 3D structured grids. Same contract as
+    multigrid.MultigridCG: the first solve after an assemble starts from the last
+    design's load-case solution and its iterations are `iterations`; the state is
+    that warm start and the smoothers' power-iteration vectors."""
+
+    def __init__(
+        self,
+        grid: Grid,
+        ke: np.ndarray,
+        fixed: np.ndarray,
+        rtol: float = RTOL,
+        coarse_dofs: int = COARSE_DOFS,
+        degree: int = CHEBYSHEV_DEGREE,
+        ratio: float = CHEBYSHEV_RATIO,
+        krylov_from: int = KRYLOV_FROM_LEVEL,
+    ):
+        if grid.dim != 3:
+            raise ValueError("the matrix-free solver is for 3D grids")
+        self._fixed = fixed
+        self.rtol, self.degree, self.ratio, self.krylov_from = rtol, degree, ratio, krylov_from
+        shapes = level_shapes(grid.shape, coarse_dofs)
+        self.shapes = shapes
+        self.levels = len(shapes)
+        self.fine = FineOperator(grid.shape, ke, fixed)
+        self.transfers = [Transfer(s) for s in shapes[:-1]]
+        self.coarse_levels = [
+            CoarseLevel(grid.shape, ke, fixed, lv) for lv in range(1, self.levels - 1)
+        ]
+        self.bottom = CoarseLevel(grid.shape, ke, fixed, self.levels - 1)
+        self._bottom_layout = StencilAssembly(
+            Grid(self.bottom.shape, 1.0),
+            None,
+            np.zeros(3 * int(np.prod(self.bottom.node_shape)), bool),
+        )
+        self._stencils = [
+            np.empty((int(np.prod(c.node_shape)), 3, 27, 3), dtype=SINGLE)
+            for c in self.coarse_levels
+        ]
+        self._bottom_stencil = np.empty((int(np.prod(self.bottom.node_shape)), 3, 27, 3))
+        self.operators: list = []
+        self.inv_diag: list[np.ndarray] = []
+        self.lam: list[float] = []
+        self.power_vectors: list[np.ndarray] = []
+        self.coarse: SparseCholesky | None = None
+        self._coarse_pattern: tuple = ()
+        self.iterations: int | None = None
+        self.name = f"matrix-free multigrid-cg ({self.levels} levels)"
+        self._warm: np.ndarray | None = None
+        self._first_solve = False
+
+    # ------------------------------------------------------------------ assemble
+    def assemble(self, moduli: np.ndarray, timer: Timer | None = None) -> None:
+        timer = timer or Timer()
+        with timer("assembly"):
+            self.fine.set_moduli(moduli)
+            ops = [self.fine]
+            for c, out in zip(self.coarse_levels, self._stencils):
+                ops.append(StencilOperator(c.stencil(moduli, out), c.node_shape))
+            bottom = self.bottom.stencil(moduli, self._bottom_stencil)
+        with timer("solve"):
+            self.operators = ops[: self.levels - 1]  # the smoothed levels
+            diagonals = [self.fine.diagonal(SINGLE)] + [op.diagonal() for op in ops[1:]]
+            self.inv_diag = [(1.0 / d).astype(SINGLE)[:, None] for d in diagonals]
+            self.inv_diag = self.inv_diag[: len(self.operators)]
+            self._estimate_spectra()
+            self._factorize(bottom)
+        self._first_solve = True
+
+    def _estimate_spectra(self) -> None:
+        """λmax(D⁻¹A) per smoothed level by power iteration, warm-started from the
+        last design's eigenvector (multigrid._lambda_max)."""
+        warm = len(self.power_vectors) == len(self.operators)
+        lam, vectors = [], []
+        for i, (op, d) in enumerate(zip(self.operators, self.inv_diag)):
+            start = self.power_vectors[i].astype(SINGLE) if warm else None
+            if start is None:
+                start = np.random.default_rng(0).standard_normal(op.shape[0]).astype(SINGLE)
+                value, v = _lambda_max(op, d[:, 0], start, warm=12)
+            else:
+                value, v = _lambda_max(op, d[:, 0], start)
+            lam.append(value / 1.05 * LAMBDA_SAFETY)
+            vectors.append(v.astype(SINGLE))
+        self.lam, self.power_vectors = lam, vectors
+
+    def _factorize(self, stencil: np.ndarray) -> None:
+        n = self._bottom_layout.n
+        a = self._bottom_layout._csr(stencil.reshape(n, -1))
+        lower = sp.tril(a).tocsc()
+        lower.sum_duplicates()
+        pattern = (lower.indptr, lower.indices)
+        if self.coarse is None or not all(
+            np.array_equal(x, y) for x, y in zip(pattern, self._coarse_pattern)
+        ):
+            self.coarse = SparseCholesky()
+            self._coarse_pattern = (pattern[0].copy(), pattern[1].copy())
+        self.coarse.factorize(lower)
+
+    # ------------------------------------------------------------------ cycles
+    def cycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
+        """One multigrid cycle for A z = r at `level` (single precision)."""
+        if level == self.levels - 1:
+            return np.asarray(self.coarse.solve(r.astype(float)), dtype=SINGLE).reshape(r.shape)
+        a, d, lam = self.operators[level], self.inv_diag[level], self.lam[level]
+        z = chebyshev(a, d, r, None, lam, self.degree, self.ratio)
+        t = self.transfers[level]
+        rc = t.restrict(r - a @ z)
+        if self.krylov_from <= level + 1 < self.levels - 1:
+            ec = self.kcycle(rc, level + 1)
+        else:
+            ec = self.cycle(rc, level + 1)
+        z += t.prolong(ec)
+        return chebyshev(a, d, r, z, lam, self.degree, self.ratio)
+
+    def kcycle(self, b: np.ndarray, level: int) -> np.ndarray:
+        """Two flexible-CG steps on A x = b preconditioned by `cycle` (Notay &
+        Vassilevski 2008); the second is skipped once ‖r‖ ≤ KRYLOV_SKIP ‖b‖."""
+        a = self.operators[level]
+        c1 = self.cycle(b, level)
+        v1 = a @ c1
+        rho1 = _dots(c1, v1)
+        alpha1 = _dots(c1, b)
+        x = c1 * (alpha1 / rho1).astype(SINGLE)
+        r = b - v1 * (alpha1 / rho1).astype(SINGLE)
+        if np.all(np.linalg.norm(r, axis=0) <= KRYLOV_SKIP * np.linalg.norm(b, axis=0)):
+            return x
+        c2 = self.cycle(r, level)
+        v2 = a @ c2
+        gamma, beta, alpha2 = _dots(c2, v1), _dots(c2, v2), _dots(c2, r)
+        rho2 = beta - gamma**2 / rho1
+        x += (c2 - c1 * (gamma / rho1).astype(SINGLE)) * (alpha2 / rho2).astype(SINGLE)
+        return x
+
+    def precondition(self, r: np.ndarray) -> np.ndarray:
+        return self.cycle(r.astype(SINGLE)).astype(float)
+
+    # ------------------------------------------------------------------ solve
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        b = np.array(rhs, dtype=float).reshape(len(self._fixed), -1)
+        b[self._fixed] = 0.0  # a load on a support goes to the support
+        x0 = None
+        if self._first_solve and self._warm is not None and self._warm.shape == b.shape:
+            x0 = self._warm
+        x, iterations = pcg(
+            self.fine, b, self.precondition, x0, self.rtol, MAX_CG_ITERATIONS, flexible=True
+        )
+        if iterations >= MAX_CG_ITERATIONS:
+            raise FloatingPointError(
+                f"multigrid-CG did not converge in {MAX_CG_ITERATIONS} iterations"
+            )
+        if self._first_solve:
+            self._warm, self.iterations, self._first_solve = x, iterations, False
+        out = x.copy()
+        out[self._fixed] = 0.0
+        return out.reshape(np.shape(rhs))
+
+    def state(self) -> dict[str, np.ndarray]:
+        out = {f"power_{i}": v.copy() for i, v in enumerate(self.power_vectors)}
+        if self._warm is not None:
+            out["warm"] = self._warm.copy()
+        return out
+
+    def restore(self, state: dict[str, np.ndarray]) -> None:
+        smoothed = self.levels - 1
+        check_state_keys(state, ("warm",) + tuple(f"power_{i}" for i in range(smoothed)))
+        self._warm = np.array(state["warm"], dtype=float) if "warm" in state else None
+        power = [state.get(f"power_{i}") for i in range(smoothed)]
+        self.power_vectors = (
+            [] if any(v is None for v in power) else [np.array(v, dtype=SINGLE) for v in power]
+        )
