@@ -23,12 +23,12 @@ ITERATIVE_BYTES_PER_NODE = 8_500  # fine matrix, hierarchy, work vectors of one 
 # of the whole run (design fields, filter, coarse stencils, the process itself)
 # and per dof and load case (the solver's vectors), seconds per element for one
 # CG iteration and for the per-design rebuild of the hierarchy.
-MF_BYTES_PER_ELEMENT = 440
+MF_BYTES_PER_ELEMENT = 650
 MF_BYTES_PER_DOF_CASE = 130
 MF_BYTES_FIXED = 250 * 2**20  # interpreter, numpy, scipy, numba and its compiled code
 MF_CG_ITERATIONS = 8
-MF_CG_SECONDS_PER_ELEMENT = 9.8e-6
-MF_REBUILD_SECONDS_PER_ELEMENT = 5.5e-6
+MF_CG_SECONDS_PER_ELEMENT = 1.25e-6
+MF_REBUILD_SECONDS_PER_ELEMENT = 1.0e-6
 
 
 def estimate(problem: Problem) -> dict:
