@@ -72,3 +72,28 @@ class SparseCholesky:
         if self._lu is not None:
             return self._lu.solve(rhs)
         return np.asarray(self._factor(rhs))
+
+
+class CoarseCholesky:
+    """SparseCholesky of a symmetric matrix given in full whose pattern may change
+    between calls (a multigrid's coarsest operator: sparse products drop entries
+    that come out zero): its lower triangle is factorised, with a new symbolic
+    analysis only when the pattern has changed."""
+
+    def __init__(self):
+        self._factor: SparseCholesky | None = None
+        self._pattern: tuple = ()
+
+    def factorize(self, a: sp.spmatrix) -> None:
+        lower = sp.tril(a).tocsc()
+        lower.sum_duplicates()  # stencil layouts repeat columns at the grid edge
+        pattern = (lower.indptr, lower.indices)
+        if self._factor is None or not all(
+            np.array_equal(x, y) for x, y in zip(pattern, self._pattern)
+        ):
+            self._factor = SparseCholesky()
+            self._pattern = (pattern[0].copy(), pattern[1].copy())
+        self._factor.factorize(lower)
+
+    def solve(self, rhs: np.ndarray) -> np.ndarray:
+        return self._factor.solve(rhs)

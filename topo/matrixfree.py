@@ -35,10 +35,9 @@ Methods, each with its source:
 from __future__ import annotations
 
 import numpy as np
-import scipy.sparse as sp
 
 from . import kernels
-from .cholesky import SparseCholesky
+from .cholesky import CoarseCholesky
 from .coarsening import CoarseLevel
 from .grid import Grid
 from .linear import LinearSystem, check_state_keys
@@ -219,8 +218,7 @@ class MatrixFreeCG(LinearSystem):
         self.inv_diag: list[np.ndarray] = []
         self.lam: list[float] = []
         self.power_vectors: list[np.ndarray] = []
-        self.coarse: SparseCholesky | None = None
-        self._coarse_pattern: tuple = ()
+        self.coarse = CoarseCholesky()
         self.iterations: int | None = None
         self.name = f"matrix-free multigrid-cg ({self.levels} levels)"
         self._warm: np.ndarray | None = None
@@ -263,15 +261,7 @@ class MatrixFreeCG(LinearSystem):
     def _factorize(self, stencil: np.ndarray) -> None:
         n = self._bottom_layout.n
         a = self._bottom_layout._csr(stencil.reshape(n, -1))
-        lower = sp.tril(a).tocsc()
-        lower.sum_duplicates()
-        pattern = (lower.indptr, lower.indices)
-        if self.coarse is None or not all(
-            np.array_equal(x, y) for x, y in zip(pattern, self._coarse_pattern)
-        ):
-            self.coarse = SparseCholesky()
-            self._coarse_pattern = (pattern[0].copy(), pattern[1].copy())
-        self.coarse.factorize(lower)
+        self.coarse.factorize(a)
 
     # ------------------------------------------------------------------ cycles
     def cycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
-from .cholesky import SparseCholesky
+from .cholesky import CoarseCholesky
 from .galerkin import ElementGalerkin
 from .linear import LinearSystem, check_state_keys
 from .parallel import RowBlocks
@@ -93,10 +93,9 @@ class Hierarchy:
         self.operators: list[sp.csr_matrix] = []
         self.products: list[RowBlocks] = []
         self.smoother_weights: list[np.ndarray] = []  # ω D⁻¹ per smoothed level
-        self.coarse: SparseCholesky | None = None
+        self.coarse = CoarseCholesky()
         self.elementwise = None  # galerkin.ElementGalerkin for the coarse levels, if set
         self.power_vectors: list[np.ndarray] = []  # last λmax eigenvector per smoothed level
-        self._coarse_pattern: tuple = ()
 
     @property
     def levels(self) -> int:
@@ -132,17 +131,7 @@ class Hierarchy:
             (4.0 / (3.0 * lam)) * d[:, None] for (lam, _), d in zip(estimates, inv_diag)
         ]
         self.power_vectors = [v for _, v in estimates]
-        # Sparse products drop entries that come out zero, so their pattern can
-        # change from one design to the next: a new symbolic analysis only then.
-        lower = sp.tril(self.operators[-1]).tocsc()
-        lower.sum_duplicates()  # the stencil layout repeats columns at the grid edge
-        pattern = (lower.indptr, lower.indices)
-        if self.coarse is None or not all(
-            np.array_equal(a, b) for a, b in zip(pattern, self._coarse_pattern)
-        ):
-            self.coarse = SparseCholesky()
-            self._coarse_pattern = (pattern[0].copy(), pattern[1].copy())
-        self.coarse.factorize(lower)
+        self.coarse.factorize(self.operators[-1])
 
     def vcycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
         """One V-cycle for A z = r (r has one column per load case)."""
