@@ -112,6 +112,16 @@ def _element_diagonal(moduli, k0, free, nx, ny, nz, out):
         out[d] = f * out[d] + (1.0 - f)
 
 
+@nb.njit(cache=True, inline="always")
+def _gather_element(u, base, offs, col, ue):
+    """ue = the 24 displacements of the element whose corner 0 is node `base`,
+    column `col` of u."""
+    for a in range(8):
+        dof = 3 * (base + offs[a])
+        for c in range(3):
+            ue[3 * a + c] = u[dof + c, col]
+
+
 @nb.njit(**_JIT)
 def _element_energies(u, k0, nx, ny, nz, out):
     """out[e, col] = u_eᵀ k0 u_e for every element and column of u."""
@@ -125,10 +135,7 @@ def _element_energies(u, k0, nx, ny, nz, out):
                 el = (i * ny + j) * nz + k
                 base = (i * ny1 + j) * nz1 + k
                 for col in range(m):
-                    for a in range(8):
-                        dof = 3 * (base + offs[a])
-                        for c in range(3):
-                            ue[3 * a + c] = u[dof + c, col]
+                    _gather_element(u, base, offs, col, ue)
                     total = 0.0
                     for s in range(24):
                         row = 0.0
@@ -152,10 +159,7 @@ def _element_values(u, b, nx, ny, nz, out):
                 el = (i * ny + j) * nz + k
                 base = (i * ny1 + j) * nz1 + k
                 for col in range(m):
-                    for a in range(8):
-                        dof = 3 * (base + offs[a])
-                        for c in range(3):
-                            ue[3 * a + c] = u[dof + c, col]
+                    _gather_element(u, base, offs, col, ue)
                     for r in range(rows):
                         s = 0.0
                         for q in range(24):
