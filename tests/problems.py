@@ -225,3 +225,15 @@ def l_bracket(**opt):
             }
         ],
     }
+
+
+def check_exits_2(text: str, fragment: str, tmp_path, capsys) -> None:
+    """`topo check` of a problem file holding `text` exits 2 with `fragment` in its
+    error and no traceback."""
+    from topo.cli import main
+
+    f = tmp_path / "p.toml"
+    f.write_text(text)
+    assert main(["check", str(f)]) == 2
+    err = capsys.readouterr().err
+    assert fragment in err and "Traceback" not in err

@@ -8,7 +8,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from problems import beam_problem, plate_toml
+from problems import beam_problem, check_exits_2, plate_toml
 from topo.anisotropy import (
     angle_to_build,
     directional_strength,
@@ -446,11 +446,7 @@ BAD = [
 
 @pytest.mark.parametrize("label,text,fragment", BAD, ids=[b[0] for b in BAD])
 def test_bad_fatigue_input_exits_2_naming_the_key(label, text, fragment, tmp_path, capsys):
-    f = tmp_path / "p.toml"
-    f.write_text(text)
-    assert main(["check", str(f)]) == 2
-    err = capsys.readouterr().err
-    assert fragment in err and "Traceback" not in err
+    check_exits_2(text, fragment, tmp_path, capsys)
 
 
 def test_good_pair_and_points_pass_the_check(tmp_path, capsys):

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from problems import add_point_load, beam_problem, central_difference, l_bracket
+from problems import add_point_load, beam_problem, central_difference, check_exits_2, l_bracket
 from topo.cli import main
 from topo.conditions import Condition, condition_of
 from topo.design import build_chain, optimize
@@ -240,11 +240,7 @@ def test_bad_fatigue_life_exits_2_naming_the_key(label, opt, case, fragment, tmp
     text = TEXT.format(opt=opt, case=case)
     if 'optimizer = "oc"' in opt:
         text = text.replace('optimizer = "mma"\n', "")
-    f = tmp_path / "p.toml"
-    f.write_text(text)
-    assert main(["check", str(f)]) == 2
-    err = capsys.readouterr().err
-    assert fragment in err and "Traceback" not in err
+    check_exits_2(text, fragment, tmp_path, capsys)
 
 
 def test_a_life_below_a_cases_own_is_said():
