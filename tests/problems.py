@@ -237,3 +237,13 @@ def check_exits_2(text: str, fragment: str, tmp_path, capsys) -> None:
     assert main(["check", str(f)]) == 2
     err = capsys.readouterr().err
     assert fragment in err and "Traceback" not in err
+
+
+def bars_in_void(shape=(16, 8, 8)) -> np.ndarray:
+    """A high-contrast density field for solver tests: two solid bars along x, a
+    solid end block and a solid bottom layer in void of ρ = 1e-3 (flat, C order)."""
+    rho = np.full(shape, 1e-3)
+    rho[:, 2:4, 1:3] = rho[:, 5:7, 5:7] = 1.0
+    rho[0:3] = 1.0
+    rho[:, :, 0:1] = 1.0
+    return rho.ravel()

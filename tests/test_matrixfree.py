@@ -5,7 +5,7 @@ numpy products."""
 import numpy as np
 import pytest
 
-from problems import beam_problem
+from problems import add_point_load, bars_in_void, beam_problem
 from topo import kernels
 from topo.coarsening import CoarseLevel
 from topo.fem import Model
@@ -133,16 +133,11 @@ def test_chebyshev_smoother_follows_the_chebyshev_polynomial():
 @pytest.mark.parametrize("rtol", [1e-6, 1e-4])
 def test_matrix_free_and_direct_agree_with_high_contrast(rtol):
     # solid bars in void (ρ = 1 or 1e-3), two load cases, several levels
-    from problems import add_point_load
     from topo.matrixfree import MatrixFreeCG
 
     d = beam_problem(3, [16.0, 8.0, 8.0], 1.0)
     add_point_load(d, "twist", [16.0, 8.0, 8.0], [0.0, 1.0, 0.5])
-    rho = np.full((16, 8, 8), 1e-3)
-    rho[:, 2:4, 1:3] = rho[:, 5:7, 5:7] = 1.0
-    rho[0:3] = 1.0
-    rho[:, :, 0:1] = 1.0
-    rho = rho.ravel()
+    rho = bars_in_void()
     direct = Model(problem_from_dict(d, {"optimization.solver": "direct"})).analyze(rho)
     model = Model(
         problem_from_dict(d),

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from problems import add_point_load, beam_problem, dense_stiffness
+from problems import add_point_load, bars_in_void, beam_problem, dense_stiffness
 from topo.elements import element_stiffness
 from topo.fem import Model
 from topo.grid import Grid
@@ -125,11 +125,7 @@ def test_iterative_and_direct_agree_with_high_contrast(contrast_field, rtol):
     if contrast_field == "random":
         rho = rng.uniform(1e-3, 1.0, n)
     else:  # solid bars in void: ρ = 1 or 1e-3
-        rho = np.full((16, 8, 8), 1e-3)
-        rho[:, 2:4, 1:3] = rho[:, 5:7, 5:7] = 1.0
-        rho[0:3] = 1.0
-        rho[:, :, 0:1] = 1.0
-        rho = rho.ravel()
+        rho = bars_in_void()
     direct = Model(problem_from_dict(d, {"optimization.solver": "direct"})).analyze(rho)
     model = Model(
         problem_from_dict(d), system_factory=lambda g, ke, f: small_coarse_grid(g, ke, f, rtol)
