@@ -307,7 +307,7 @@ def loop_stress_limits(problem: Problem) -> list[dict]:
         for case in problem.load_cases:
             if case.cycles is None:
                 continue
-            partner = getattr(case, "cycles_with", None)
+            partner = case.cycles_with
             if partner is None:
                 fatigue[case.name] = bound(case.load_ratio)
             else:
