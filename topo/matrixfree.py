@@ -343,7 +343,8 @@ class MatrixFreeCG(LinearSystem):
             iterations += more
         if iterations >= RETRY_AFTER + MAX_CG_ITERATIONS:
             raise FloatingPointError(
-                f"multigrid-CG did not converge in {MAX_CG_ITERATIONS} iterations"
+                f"multigrid-CG did not converge in {iterations} iterations "
+                f"(the spectra re-estimated after the first {RETRY_AFTER})"
             )
         if self._first_solve:
             self._warm, self.iterations, self._first_solve = x, iterations, False
