@@ -29,9 +29,14 @@ def stencil_matrix(node_shape, stencil):
     )
 
 
-@pytest.mark.parametrize("shape", [(6, 5, 4), (7, 3, 5)])
-def test_element_product_equals_the_assembled_matrix(shape):
+@pytest.mark.parametrize(
+    "shape, block_columns",
+    # one block per slab; blocks of 2 lines of 3 with a last block of 1 line
+    [((6, 5, 4), 400), ((7, 3, 5), 400), ((5, 7, 3), 6)],
+)
+def test_element_product_equals_the_assembled_matrix(shape, block_columns, monkeypatch):
     # scipy's CSR product with the node-stencil matrix (supports as identity rows)
+    monkeypatch.setattr(kernels, "BLOCK_COLUMNS", block_columns)
     grid = Grid(shape, 1.0)
     from topo.elements import element_stiffness
 

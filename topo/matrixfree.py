@@ -93,6 +93,16 @@ class FineOperator:
         free = (~fixed).astype(float)
         self._free = {np.dtype(float): free, np.dtype(SINGLE): free.astype(SINGLE)}
         self._moduli: dict = {}
+        self._scratch: dict = {}  # (dtype, columns) -> kernels.product_scratch
+
+    def _product(self, u: np.ndarray, k0: np.ndarray, out: np.ndarray) -> np.ndarray:
+        dt = u.dtype
+        key = (dt, u.shape[1])
+        if key not in self._scratch:
+            self._scratch[key] = kernels.product_scratch(u.shape[0], u.shape[1], dt)
+        return kernels.element_product(
+            u, self._moduli[dt], k0, self._free[dt], self.grid_shape, out, self._scratch[key]
+        )
 
     def set_moduli(self, moduli: np.ndarray) -> None:
         e = np.ascontiguousarray(moduli, dtype=float)
@@ -104,9 +114,7 @@ class FineOperator:
         dt = np.dtype(float)
         ones = np.ones((self.shape[0], 1))
         sums = np.empty_like(ones)
-        kernels.element_product(
-            ones, self._moduli[dt], np.abs(self._k0[dt]), self._free[dt], self.grid_shape, sums
-        )
+        self._product(ones, np.abs(self._k0[dt]), sums)
         return float((sums[:, 0] / self.diagonal(float)).max())
 
     def diagonal(self, dtype=float) -> np.ndarray:
@@ -120,9 +128,7 @@ class FineOperator:
         dt = np.dtype(SINGLE) if x.dtype == SINGLE else np.dtype(float)
         u = np.ascontiguousarray(_columns(x), dtype=dt)
         out = np.empty_like(u)
-        kernels.element_product(
-            u, self._moduli[dt], self._k0[dt], self._free[dt], self.grid_shape, out
-        )
+        self._product(u, self._k0[dt], out)
         return out.reshape(x.shape)
 
 
