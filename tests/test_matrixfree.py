@@ -215,3 +215,42 @@ def test_gershgorin_bound_lies_above_the_largest_eigenvalue():
     bound = op.gershgorin_bound()
     assert lam <= bound * (1 + 1e-12)
     assert bound < 2.0 * lam
+
+
+def test_a_stalled_solve_restarts_with_cold_spectra(monkeypatch):
+    """A smoother whose λmax estimate is far too low (as a warm power iteration can
+    leave it when the design moves its stiffest modes) makes the cycle a poor
+    preconditioner; the solve must notice, re-estimate cold and still agree with
+    the direct solution (scipy/CHOLMOD through the direct path). A sound estimate
+    must not trigger the re-estimate."""
+    from topo import matrixfree
+    from topo.matrixfree import MatrixFreeCG
+
+    d = beam_problem(3, [16.0, 8.0, 8.0], 1.0)
+    rho = bars_in_void()
+    rho2 = np.where(rho > 0.5, 1.0, 0.3)  # a second design: no warm start at its solution
+    direct = Model(problem_from_dict(d, {"optimization.solver": "direct"})).analyze(rho2)
+    calls = []
+    estimate = MatrixFreeCG._estimate_spectra
+
+    def spy(self, cold_steps=0, safety=matrixfree.LAMBDA_SAFETY):
+        estimate(self, cold_steps, safety)
+        calls.append(cold_steps)
+        if not cold_steps and spoil[0]:  # the too-low warm estimate
+            self.lam = [0.3 * lam for lam in self.lam]
+
+    monkeypatch.setattr(MatrixFreeCG, "_estimate_spectra", spy)
+    monkeypatch.setattr(matrixfree, "RETRY_AFTER", 100)
+    model = Model(
+        problem_from_dict(d),
+        system_factory=lambda g, ke, f: MatrixFreeCG(g, ke, f, rtol=1e-6, coarse_dofs=300),
+    )
+    spoil = [False]
+    model.analyze(rho)
+    assert calls == [0] and model.system.iterations < 100  # sound: no re-estimate (73)
+    spoil[0] = True
+    ours = model.analyze(rho2)
+    assert calls == [0, 0, matrixfree.RETRY_POWER_STEPS]
+    assert model.system.iterations > 100
+    err = np.linalg.norm(ours.displacements - direct.displacements, axis=0)
+    assert np.all(err / np.linalg.norm(direct.displacements, axis=0) < 1e-6)
