@@ -237,6 +237,21 @@ def _stencil_product(stencil, u, nx1, ny1, nz1, y):
 
 
 @nb.njit(**_JIT)
+def _chebyshev_step(res, ad, d, x, inv_diag, c_d, c_r):
+    """One Chebyshev update in a single pass: ad := res − ad (the new residual),
+    d := c_d·d + c_r·D⁻¹·ad, x += d (matrixfree.chebyshev)."""
+    m = res.shape[1]
+    for i in nb.prange(res.shape[0]):
+        w = inv_diag[i, 0]
+        for col in range(m):
+            r = res[i, col] - ad[i, col]
+            ad[i, col] = r
+            step = c_d * d[i, col] + c_r * w * r
+            d[i, col] = step
+            x[i, col] += step
+
+
+@nb.njit(**_JIT)
 def _tensor_apply(
     ax_ptr, ax_idx, ax_val, ay_ptr, ay_idx, ay_val, az_ptr, az_idx, az_val, ny_in, nz_in, u, y
 ):
@@ -377,6 +392,13 @@ def stencil_product(stencil, u, node_shape, out):
     with _LOCK:
         _stencil_product(stencil, u, *node_shape, out)
     return out
+
+
+def chebyshev_step(res, ad, d, x, inv_diag, c_d, c_r):
+    """ad := res − ad, d := c_d·d + c_r·D⁻¹ad, x += d; returns ad (the residual)."""
+    with _LOCK:
+        _chebyshev_step(res, ad, d, x, inv_diag, d.dtype.type(c_d), d.dtype.type(c_r))
+    return ad
 
 
 def tensor_apply(factors, u, out):

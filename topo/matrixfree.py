@@ -191,10 +191,11 @@ def chebyshev(a, inv_diag, r, x, lam_max, degree, ratio):
     d = (inv_diag * res) * SINGLE(1.0 / theta)
     x = d.copy() if x is None else x + d
     for _ in range(degree - 1):
-        res = res - a @ d
         rho_new = 1.0 / (2.0 * sigma - rho)
-        d = d * SINGLE(rho_new * rho) + (inv_diag * res) * SINGLE(2.0 * rho_new / delta)
-        x += d
+        # res −= A d; d = ρ'ρ d + (2ρ'/δ) D⁻¹ res; x += d, in one compiled pass
+        res = kernels.chebyshev_step(
+            res, a @ d, d, x, inv_diag, rho_new * rho, 2.0 * rho_new / delta
+        )
         rho = rho_new
     return x
 

@@ -21,14 +21,16 @@ ITERATIVE_BYTES_PER_NODE = 8_500  # fine matrix, hierarchy, work vectors of one 
 # The matrix-free 3D path (matrixfree.py), fitted to `topo bench` runs of the
 # cantilever (DEVELOPERS.md, "Estimates of memory and time"): memory per element
 # of the whole run (design fields, filter, coarse stencils, the process itself)
-# and per dof and load case (the solver's vectors), seconds per element for one
-# CG iteration and for the per-design rebuild of the hierarchy.
+# and per dof and load case (the solver's vectors), seconds per element and load
+# case for one CG iteration (every product runs over all load cases' columns),
+# seconds per element for the rest of a design iteration (the hierarchy's rebuild,
+# filters, update).
 MF_BYTES_PER_ELEMENT = 650
 MF_BYTES_PER_DOF_CASE = 130
 MF_BYTES_FIXED = 250 * 2**20  # interpreter, numpy, scipy, numba and its compiled code
-MF_CG_ITERATIONS = 8
-MF_CG_SECONDS_PER_ELEMENT = 1.25e-6
-MF_REBUILD_SECONDS_PER_ELEMENT = 1.0e-6
+MF_CG_ITERATIONS = 10
+MF_CG_SECONDS_PER_ELEMENT_CASE = 0.65e-6
+MF_REBUILD_SECONDS_PER_ELEMENT = 1.5e-6
 
 
 def estimate(problem: Problem) -> dict:
@@ -56,7 +58,8 @@ def estimate(problem: Problem) -> dict:
             MF_BYTES_FIXED + MF_BYTES_PER_ELEMENT * n_el + MF_BYTES_PER_DOF_CASE * n_dofs * cases
         )
         seconds = (
-            MF_CG_ITERATIONS * MF_CG_SECONDS_PER_ELEMENT + MF_REBUILD_SECONDS_PER_ELEMENT
+            MF_CG_ITERATIONS * MF_CG_SECONDS_PER_ELEMENT_CASE * cases
+            + MF_REBUILD_SECONDS_PER_ELEMENT
         ) * n_el
     else:
         nnz_k = (
