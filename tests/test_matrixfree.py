@@ -130,7 +130,7 @@ def test_chebyshev_smoother_follows_the_chebyshev_polynomial():
         assert np.allclose((x_true - x)[:, 0], p * x_true[:, 0], atol=1e-5)
     # from a start: the same polynomial acts on the start's error
     x0 = np.zeros_like(x_true) + 0.5
-    x = chebyshev(a, ones, r, x0, 2.0, 2, 10.0)
+    x = chebyshev(a, ones, r, x0.copy(), 2.0, 2, 10.0)  # updates its start in place
     p = cheb.chebval((theta - lam) / delta, [0, 0, 1]) / cheb.chebval(theta / delta, [0, 0, 1])
     assert np.allclose((x_true - x)[:, 0], p * (x_true - x0)[:, 0], atol=1e-5)
 

@@ -237,6 +237,25 @@ def _stencil_product(stencil, u, nx1, ny1, nz1, y):
 
 
 @nb.njit(**_JIT)
+def _chebyshev_start(r, ax, inv_diag, c, d, x, from_zero):
+    """The first Chebyshev step in a single pass. from_zero: d := c·D⁻¹r, x := d.
+    Else ax := r − ax (the residual of x), d := c·D⁻¹ax, x += d."""
+    m = r.shape[1]
+    for i in nb.prange(r.shape[0]):
+        w = c * inv_diag[i, 0]
+        for col in range(m):
+            if from_zero:
+                step = w * r[i, col]
+                x[i, col] = step
+            else:
+                res = r[i, col] - ax[i, col]
+                ax[i, col] = res
+                step = w * res
+                x[i, col] += step
+            d[i, col] = step
+
+
+@nb.njit(**_JIT)
 def _chebyshev_step(res, ad, d, x, inv_diag, c_d, c_r):
     """One Chebyshev update in a single pass: ad := res − ad (the new residual),
     d := c_d·d + c_r·D⁻¹·ad, x += d (matrixfree.chebyshev)."""
@@ -392,6 +411,14 @@ def stencil_product(stencil, u, node_shape, out):
     with _LOCK:
         _stencil_product(stencil, u, *node_shape, out)
     return out
+
+
+def chebyshev_start(r, ax, inv_diag, c, d, x):
+    """ax None: d := c·D⁻¹r, x := d (x, d preallocated). Else ax := r − ax,
+    d := c·D⁻¹ax, x += d. Returns the residual (r, or ax)."""
+    with _LOCK:
+        _chebyshev_start(r, r if ax is None else ax, inv_diag, d.dtype.type(c), d, x, ax is None)
+    return r if ax is None else ax
 
 
 def chebyshev_step(res, ad, d, x, inv_diag, c_d, c_r):

@@ -188,6 +188,9 @@ def pcg(
     z = precondition(r)
     p = z.copy()
     rz = np.einsum("ij,ij->j", r, z)
+    # Vector updates go through one work array: at millions of dofs a fresh
+    # temporary per update costs its page faults as well as its memory pass.
+    work = np.empty_like(b)
     for it in range(max_iter + 1):
         active = np.linalg.norm(r, axis=0) / norm_b >= rtol
         if not active.any() or it == max_iter:
@@ -195,19 +198,18 @@ def pcg(
         ap = a @ p
         pap = np.einsum("ij,ij->j", p, ap)
         alpha = np.where(active, rz / np.where(active, pap, 1.0), 0.0)
-        x += alpha * p
-        r_old = r.copy() if flexible else None
-        r -= alpha * ap
+        x += np.multiply(p, alpha, out=work)
+        r -= np.multiply(ap, alpha, out=work)
         z = precondition(r)
         rz_new = np.einsum("ij,ij->j", r, z)
         if flexible:
-            rz_new_beta = rz_new - np.einsum("ij,ij->j", r_old, z)
-            beta = np.where(active, rz_new_beta / np.where(active, rz, 1.0), 0.0)
-            p = z + beta * p
-            rz = rz_new
-            continue
-        beta = np.where(active, rz_new / np.where(active, rz, 1.0), 0.0)
-        p = z + beta * p
+            # zᵀ(r − r_old) = −α (A p)ᵀ z, as r = r_old − α A p: no copy of r_old
+            numerator = -alpha * np.einsum("ij,ij->j", ap, z)
+        else:
+            numerator = rz_new
+        beta = np.where(active, numerator / np.where(active, rz, 1.0), 0.0)
+        p *= beta
+        p += z
         rz = rz_new
     return x, max_iter
 
