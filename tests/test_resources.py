@@ -40,12 +40,21 @@ def test_matrix_free_memory_grows_per_element_and_per_load_case():
 
 def test_small_and_2d_problems_are_estimated_for_the_direct_solver():
     assert resources.estimate(cube([8.0, 4.0, 4.0], solver="auto"))["solver"] == "direct"
-    # a medium 3D problem: the assembled multigrid's per-node figures, not the
-    # matrix-free ones (solvers.AUTO_MATRIX_FREE_DOFS)
-    nodes = 41 * 21 * 21
+    # a medium 3D problem goes matrix-free (solvers.AUTO_MATRIX_FREE_DOFS); the
+    # assembled multigrid's per-node figures are for an iterative solve in 2D
     mid = resources.estimate(cube([40.0, 20.0, 20.0]))
     assert mid["solver"] == "iterative"
-    assert mid["memory_bytes"] == resources.ITERATIVE_BYTES_PER_NODE * nodes + 80 * 3 * nodes
+    assert mid["memory_bytes"] == (
+        resources.MF_BYTES_FIXED
+        + resources.MF_BYTES_PER_ELEMENT * mid["elements"]
+        + resources.MF_BYTES_PER_DOF_CASE * mid["dofs"]
+    )
+    nodes = 201 * 101
+    plate = resources.estimate(
+        problem_from_dict(beam_problem(2, [200.0, 100.0], 1.0, solver="iterative"))
+    )
+    assert plate["solver"] == "iterative"
+    assert plate["memory_bytes"] == resources.ITERATIVE_BYTES_PER_NODE * nodes + 80 * 2 * nodes
     flat = problem_from_dict(beam_problem(2, [200.0, 100.0], 1.0))
     assert resources.estimate(flat)["solver"] == "direct"
 
