@@ -51,7 +51,7 @@ def _element_product(u, moduli, k0, free, nx, ny, nz, y, um, ym, lines):
     block, multiply by k0 four rows at a time, scatter back to the nodes. The
     block's columns are the innermost loop, long enough to vectorise (a single
     line of 50 elements is too short: measured 21 against 38 GFLOP/s in single
-    precision, DEVELOPERS.md "Matrix-free")."""
+    precision, DEVELOPERS.md "Matrix-free multigrid")."""
     ny1, nz1 = ny + 1, nz + 1
     offs = _corner_offsets(ny1, nz1)
     m = u.shape[1]

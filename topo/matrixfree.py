@@ -184,7 +184,7 @@ def chebyshev(a, inv_diag, r, x, lam_max, degree, ratio):
     updated in place and returned). Saad, Algorithm 12.1; as a smoother, Adams et
     al. 2003. The vector work runs in compiled single passes with no temporaries:
     at 5.76 million elements and three load cases each vector is 211 MB, and
-    numpy's temporaries (fresh pages every time) took 30 % of a design iteration
+    numpy's temporaries (fresh pages every time) took 30 % of its profile
     (DEVELOPERS.md, "Matrix-free multigrid")."""
     upper = lam_max
     lower = lam_max / ratio
