@@ -36,7 +36,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import kernels
+from . import kernels, vectorkernels
 from .cholesky import CoarseCholesky
 from .coarsening import CoarseLevel
 from .grid import Grid
@@ -76,8 +76,9 @@ def _columns(x: np.ndarray) -> np.ndarray:
 
 
 def _dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Column-wise dot products in double precision."""
-    return np.einsum("ij,ij->j", a, b, dtype=float)
+    """Column-wise dot products in double precision (one compiled pass, no
+    double-precision copies of single-precision vectors)."""
+    return vectorkernels.column_dots(a, b)
 
 
 class FineOperator:
@@ -135,6 +136,11 @@ class FineOperator:
         self._product(u, self._k0[dt], out)
         return out.reshape(x.shape)
 
+    def product_into(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """out = A x for contiguous (n, m) arrays of one precision (multigrid.pcg
+        keeps its product array instead of a fresh one per iteration)."""
+        return self._product(x, self._k0[x.dtype], out)
+
 
 class StencilOperator:
     """A coarse operator held as node stencils (n_nodes, 3, 27, 3)."""
@@ -154,6 +160,10 @@ class StencilOperator:
         kernels.stencil_product(self.stencil, u, self.node_shape, out)
         return out.reshape(x.shape)
 
+    def product_into(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """out = A x for contiguous (n, m) arrays of the stencil's precision."""
+        return kernels.stencil_product(self.stencil, x, self.node_shape, out)
+
 
 class Transfer:
     """Prolongation from a grid of `shape`'s coarse grid to it, and restriction
@@ -166,8 +176,10 @@ class Transfer:
         self.fine_n = 3 * int(np.prod([f.shape[0] for f in self._p]))
         self.coarse_n = 3 * int(np.prod([f.shape[1] for f in self._p]))
 
-    def prolong(self, x: np.ndarray) -> np.ndarray:
-        return kernels.tensor_apply(self._p32, x, np.empty((self.fine_n, x.shape[1]), x.dtype))
+    def prolong(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        if out is None:
+            out = np.empty((self.fine_n, x.shape[1]), x.dtype)
+        return kernels.tensor_apply(self._p32, x, out)
 
     def restrict(self, x: np.ndarray) -> np.ndarray:
         return kernels.tensor_apply(self._r32, x, np.empty((self.coarse_n, x.shape[1]), x.dtype))
@@ -182,30 +194,41 @@ def level_shapes(shape: tuple[int, ...], coarse_dofs: int) -> list[tuple[int, ..
     return out
 
 
-def chebyshev(a, inv_diag, r, x, lam_max, degree, ratio):
+def _apply(a, x: np.ndarray, out: np.ndarray | None) -> np.ndarray:
+    """A x, into `out` where the operator can write into a given array."""
+    if out is not None and hasattr(a, "product_into"):
+        return a.product_into(x, out)
+    return a @ x
+
+
+def chebyshev(a, inv_diag, r, x, lam_max, degree, ratio, work=None, out=None):
     """`degree` steps of the Chebyshev iteration for A x = r preconditioned by D⁻¹,
-    on the interval [λmax/ratio, λmax] of D⁻¹A, from x (None: zero; else x is
-    updated in place and returned). Saad, Algorithm 12.1; as a smoother, Adams et
-    al. 2003. The vector work runs in compiled single passes with no temporaries:
-    at 5.76 million elements and three load cases each vector is 211 MB, and
-    numpy's temporaries (fresh pages every time) took 30 % of its profile
-    (DEVELOPERS.md, "Matrix-free multigrid")."""
+    on the interval [λmax/ratio, λmax] of D⁻¹A, from x (None: zero, into `out`
+    or a fresh array; else x is updated in place and returned). Saad, Algorithm 12.1; as a
+    smoother, Adams et al. 2003. The vector work runs in compiled single passes
+    with no temporaries: at 5.76 million elements and three load cases each
+    vector is 211 MB, and numpy's temporaries (fresh pages every time) took 30 %
+    of its profile (DEVELOPERS.md, "Matrix-free multigrid"). `work`: three arrays
+    shaped like r (the direction and two product arrays), kept by the caller so
+    that no vector of the level is allocated per call."""
     upper = lam_max
     lower = lam_max / ratio
     theta, delta = 0.5 * (upper + lower), 0.5 * (upper - lower)
     sigma = theta / delta
     rho = 1.0 / sigma
-    d = np.empty_like(r)
+    d, first, second = work if work is not None else (np.empty_like(r), None, None)
     if x is None:
-        x = np.empty_like(r)
+        x = np.empty_like(r) if out is None else out
         res = kernels.chebyshev_start(r, None, inv_diag, 1.0 / theta, d, x)
     else:
-        res = kernels.chebyshev_start(r, a @ x, inv_diag, 1.0 / theta, d, x)
+        res = kernels.chebyshev_start(r, _apply(a, x, first), inv_diag, 1.0 / theta, d, x)
     for _ in range(degree - 1):
         rho_new = 1.0 / (2.0 * sigma - rho)
-        # res −= A d; d = ρ'ρ d + (2ρ'/δ) D⁻¹ res; x += d, in one compiled pass
+        # res −= A d; d = ρ'ρ d + (2ρ'/δ) D⁻¹ res; x += d, in one compiled pass;
+        # the product goes into whichever work array does not hold res
+        spare = second if res is first else first
         res = kernels.chebyshev_step(
-            res, a @ d, d, x, inv_diag, rho_new * rho, 2.0 * rho_new / delta
+            res, _apply(a, d, spare), d, x, inv_diag, rho_new * rho, 2.0 * rho_new / delta
         )
         rho = rho_new
     return x
@@ -261,6 +284,7 @@ class MatrixFreeCG(LinearSystem):
         self.name = f"matrix-free multigrid-cg ({self.levels} levels)"
         self._warm: np.ndarray | None = None
         self._first_solve = False
+        self._buffers: dict = {}  # (level, shape) -> work arrays of cycle()
 
     # ------------------------------------------------------------------ assemble
     def assemble(self, moduli: np.ndarray, timer: Timer | None = None) -> None:
@@ -281,23 +305,25 @@ class MatrixFreeCG(LinearSystem):
         self._first_solve = True
 
     def _estimate_spectra(self, cold_steps: int = 0, safety: float = LAMBDA_SAFETY) -> None:
-        """λmax(D⁻¹A) per smoothed level by power iteration, warm-started from the
-        last design's eigenvector (multigrid._lambda_max), or from a fixed random
-        vector for `cold_steps` steps. The fine level's estimate is raised to at
-        least its Gershgorin bound, which cannot fall below λmax (1.14 × λmax
-        measured on a 100×50×50 cantilever design)."""
-        warm = len(self.power_vectors) == len(self.operators) and not cold_steps
-        lam, vectors = [], []
-        for i, (op, d) in enumerate(zip(self.operators, self.inv_diag)):
-            start = self.power_vectors[i].astype(SINGLE) if warm else None
-            if start is None:
+        """λmax(D⁻¹A) per smoothed level. The fine level takes its Gershgorin
+        bound, which no design change can undercut (1.14 × λmax measured on a
+        100×50×50 cantilever design); a power iteration there (six products
+        per design) only ever confirmed it. The coarse levels, whose Galerkin
+        stencils make the bound loose, take a power iteration warm-started from
+        the last design's eigenvector (multigrid._lambda_max), or from a fixed
+        random vector for `cold_steps` steps. `power_vectors[i]` belongs to
+        level i + 1."""
+        coarse = list(zip(self.operators[1:], self.inv_diag[1:]))
+        warm = len(self.power_vectors) == len(coarse) and not cold_steps
+        lam, vectors = [self.fine.gershgorin_bound()], []
+        for i, (op, d) in enumerate(coarse):
+            if warm:
+                value, v = _lambda_max(op, d[:, 0], self.power_vectors[i].astype(SINGLE))
+            else:
                 start = np.random.default_rng(0).standard_normal(op.shape[0]).astype(SINGLE)
                 value, v = _lambda_max(op, d[:, 0], start, warm=cold_steps or 12)
-            else:
-                value, v = _lambda_max(op, d[:, 0], start)
             lam.append(value / 1.05 * safety)
             vectors.append(v.astype(SINGLE))
-        lam[0] = max(lam[0], self.fine.gershgorin_bound())
         self.lam, self.power_vectors = lam, vectors
 
     def _factorize(self, stencil: np.ndarray) -> None:
@@ -306,21 +332,37 @@ class MatrixFreeCG(LinearSystem):
         self.coarse.factorize(a)
 
     # ------------------------------------------------------------------ cycles
+    def _work(self, level: int, shape: tuple[int, ...]) -> tuple[np.ndarray, ...]:
+        """The level's kept single-precision work arrays of `shape`: the
+        smoother's direction and two product arrays (dead between cycles, so
+        reused by every cycle of the level); on the fine level also the cycle's
+        result and the single-precision copy of pcg's residual, which pcg
+        consumes before it asks for the next cycle."""
+        key = (level, shape)
+        if key not in self._buffers:
+            self._buffers = {k: v for k, v in self._buffers.items() if k[0] != level}
+            count = 5 if level == 0 else 3
+            self._buffers[key] = tuple(np.empty(shape, SINGLE) for _ in range(count))
+        return self._buffers[key]
+
     def cycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
-        """One multigrid cycle for A z = r at `level` (single precision)."""
+        """One multigrid cycle for A z = r at `level` (single precision). The
+        fine level's z is a kept array, overwritten by the next fine cycle."""
         if level == self.levels - 1:
             return np.asarray(self.coarse.solve(r.astype(float)), dtype=SINGLE).reshape(r.shape)
         a, d, lam = self.operators[level], self.inv_diag[level], self.lam[level]
-        z = chebyshev(a, d, r, None, lam, self.degree, self.ratio)
+        work = self._work(level, r.shape)
+        out = work[3] if level == 0 else None
+        z = chebyshev(a, d, r, None, lam, self.degree, self.ratio, work[:3], out)
         t = self.transfers[level]
-        az = a @ z
+        az = _apply(a, z, work[1])
         rc = t.restrict(np.subtract(r, az, out=az))
         if self.krylov_from <= level + 1 < self.levels - 1:
             ec = self.kcycle(rc, level + 1)
         else:
             ec = self.cycle(rc, level + 1)
-        z += t.prolong(ec)
-        return chebyshev(a, d, r, z, lam, self.degree, self.ratio)
+        z += t.prolong(ec, work[1])
+        return chebyshev(a, d, r, z, lam, self.degree, self.ratio, work[:3])
 
     def kcycle(self, b: np.ndarray, level: int) -> np.ndarray:
         """Two flexible-CG steps on A x = b preconditioned by `cycle` (Notay &
@@ -332,7 +374,7 @@ class MatrixFreeCG(LinearSystem):
         alpha1 = _dots(c1, b)
         x = c1 * (alpha1 / rho1).astype(SINGLE)
         r = b - v1 * (alpha1 / rho1).astype(SINGLE)
-        if np.all(np.linalg.norm(r, axis=0) <= KRYLOV_SKIP * np.linalg.norm(b, axis=0)):
+        if np.all(_dots(r, r) <= KRYLOV_SKIP**2 * _dots(b, b)):
             return x
         c2 = self.cycle(r, level)
         v2 = a @ c2
@@ -342,7 +384,11 @@ class MatrixFreeCG(LinearSystem):
         return x
 
     def precondition(self, r: np.ndarray) -> np.ndarray:
-        return self.cycle(r.astype(SINGLE)).astype(float)
+        """One cycle on r; z stays in single precision (pcg's compiled passes
+        read it as it is, so no double-precision copy is made)."""
+        r32 = self._work(0, r.shape)[4]
+        np.copyto(r32, r)
+        return self.cycle(r32)
 
     # ------------------------------------------------------------------ solve
     def solve(self, rhs: np.ndarray) -> np.ndarray:
@@ -372,16 +418,18 @@ class MatrixFreeCG(LinearSystem):
         return out.reshape(np.shape(rhs))
 
     def state(self) -> dict[str, np.ndarray]:
-        out = {f"power_{i}": v.copy() for i, v in enumerate(self.power_vectors)}
+        out = {f"power_{i + 1}": v.copy() for i, v in enumerate(self.power_vectors)}
         if self._warm is not None:
             out["warm"] = self._warm.copy()
         return out
 
     def restore(self, state: dict[str, np.ndarray]) -> None:
         smoothed = self.levels - 1
+        # power_0 (the fine level's, from checkpoints written before the fine
+        # level took its Gershgorin bound alone) is accepted and not needed
         check_state_keys(state, ("warm",) + tuple(f"power_{i}" for i in range(smoothed)))
         self._warm = np.array(state["warm"], dtype=float) if "warm" in state else None
-        power = [state.get(f"power_{i}") for i in range(smoothed)]
+        power = [state.get(f"power_{i}") for i in range(1, smoothed)]
         self.power_vectors = (
             [] if any(v is None for v in power) else [np.array(v, dtype=SINGLE) for v in power]
         )

@@ -15,6 +15,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse as sp
 
+from . import vectorkernels
 from .cholesky import CoarseCholesky
 from .galerkin import ElementGalerkin
 from .linear import LinearSystem, check_state_keys
@@ -186,30 +187,28 @@ def pcg(
     norm_b = np.linalg.norm(b, axis=0)
     norm_b[norm_b == 0] = 1.0
     z = precondition(r)
-    p = z.copy()
-    rz = np.einsum("ij,ij->j", r, z)
-    # Vector updates go through one work array: at millions of dofs a fresh
-    # temporary per update costs its page faults as well as its memory pass.
-    work = np.empty_like(b)
+    p = np.array(z, dtype=b.dtype)
+    rz = vectorkernels.column_dots(r, z)
+    rr = vectorkernels.column_dots(r, r)
+    # Vector work in fused compiled passes (vectorkernels.py): at millions of dofs
+    # each numpy operation is a pass over memory and a fresh temporary. The
+    # product goes into one kept array where the operator can write into one.
+    product = getattr(a, "product_into", None)
+    ap = np.empty_like(b) if product else None
     for it in range(max_iter + 1):
-        active = np.linalg.norm(r, axis=0) / norm_b >= rtol
+        active = np.sqrt(rr) / norm_b >= rtol
         if not active.any() or it == max_iter:
             return x, it
-        ap = a @ p
-        pap = np.einsum("ij,ij->j", p, ap)
+        ap = product(p, ap) if product else a @ p
+        pap = vectorkernels.column_dots(p, ap)
         alpha = np.where(active, rz / np.where(active, pap, 1.0), 0.0)
-        x += np.multiply(p, alpha, out=work)
-        r -= np.multiply(ap, alpha, out=work)
+        rr = vectorkernels.cg_update(x, r, p, ap, alpha)
         z = precondition(r)
-        rz_new = np.einsum("ij,ij->j", r, z)
-        if flexible:
-            # zᵀ(r − r_old) = −α (A p)ᵀ z, as r = r_old − α A p: no copy of r_old
-            numerator = -alpha * np.einsum("ij,ij->j", ap, z)
-        else:
-            numerator = rz_new
+        rz_new, apz = vectorkernels.cg_dots(r, ap, z)
+        # flexible: zᵀ(r − r_old) = −α (A p)ᵀ z, as r = r_old − α A p: no copy of r_old
+        numerator = -alpha * apz if flexible else rz_new
         beta = np.where(active, numerator / np.where(active, rz, 1.0), 0.0)
-        p *= beta
-        p += z
+        vectorkernels.cg_direction(p, z, beta)
         rz = rz_new
     return x, max_iter
 
