@@ -113,3 +113,43 @@ def test_boundaries_pass():
         )
     )
     assert set(s.values()) == {PASS}
+
+
+def test_a_mechanism_fails_every_check_that_needs_its_analysis():
+    # The printed part has a load region joined to no support, so it is not
+    # analysed (printed.py): the figures are None and every check that would
+    # judge them fails saying why, where None alone would read "N/A" or pass.
+    reason = "not analysed: load region(s) tip reach no support"
+    f = replace(
+        good(),
+        load_path_connected=False,
+        cut_off_loads=["tip"],
+        compliance_gaps={"a": None, "b": None},
+        safety_factor=None,
+        max_von_mises_MPa=None,
+        deflections=[{"name": "tip", "load_case": "a", "value_mm": None, "limit_mm": 1.0}],
+        fatigue_safety_factor=None,
+        fatigue_damage=None,
+        not_analysed=reason,
+    )
+    rows = {r["name"]: r for r in run_checks(f)}
+    needs_analysis = (
+        "compliance_gap",
+        "safety_factor",
+        "fatigue_safety_factor",
+        "fatigue_damage",
+        "stress_limit",
+        "deflection_limits",
+    )
+    for name in needs_analysis:
+        assert rows[name]["status"] == FAIL, name
+        assert reason in rows[name]["detail"], name
+    assert rows["load_path"]["status"] == FAIL
+    # the geometric checks still judge the part
+    for name in ("mass_limit", "unsupported_fraction", "min_wall", "min_gap"):
+        assert rows[name]["status"] == PASS, name
+    # a check with nothing to judge against stays N/A
+    free = replace(f, stress_limit_MPa=None, fatigue_cycles=False)
+    rows = {r["name"]: r["status"] for r in run_checks(free)}
+    assert rows["stress_limit"] == NA and rows["fatigue_safety_factor"] == NA
+    assert rows["fatigue_damage"] == NA

@@ -86,7 +86,11 @@ def test_check_and_analyze(small, tmp_path, capsys):
         main(["analyze", str(small), "--design", str(tmp_path / "d.npy"), "--out", str(out)]) == 0
     )
     s2 = json.loads((out / "summary.json").read_text())
-    assert s2["load_cases"][0]["compliance_Nmm"] > s["load_cases"][0]["compliance_Nmm"]
+    assert s2["optimizer"]["compliance_Nmm"] > s["load_cases"][0]["compliance_Nmm"]
+    # printed, the row joins no load to a support: a mechanism, not analysed
+    assert s2["printed_part"]["analysed"] is False
+    assert s2["load_cases"][0]["compliance_Nmm"] is None
+    assert "printed part not analysed" in capsys.readouterr().out
 
 
 def test_input_error_exits_2_with_one_clean_line(small, capsys):

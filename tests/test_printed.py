@@ -112,6 +112,25 @@ def test_load_path_finds_a_cut_member():
     assert not load_path(diagonal, grid, support, load, 1.0).connected
 
 
+def test_load_path_finds_loaded_nodes_on_no_printed_element():
+    # The tip load acts on all six nodes of the x-max face; a beam two elements
+    # deep leaves the top three on no printed element (counted by hand), so that
+    # share of the load would be held by the void's E_min alone.
+    model = Model(problem_from_dict(beam_problem(2, [20.0, 5.0], 1.0)))
+    grid = model.grid
+    support = [select_nodes(Face("x-min"), grid)]
+    load = [("tip", select_nodes(Face("x-max"), grid))]
+    shallow = np.zeros(grid.shape)
+    shallow[:, :2] = 1.0
+    lp = load_path(shallow, grid, support, load, 1.0)
+    assert lp.cut_off == [] and lp.unattached == ["tip"]
+    assert not lp.connected and lp.mechanism
+    deep = shallow.copy()
+    deep[-1, :] = 1.0  # a full-depth end plate under the load
+    lp = load_path(deep, grid, support, load, 1.0)
+    assert lp.connected and not lp.mechanism and lp.unattached == []
+
+
 def test_enclosed_cavities_against_scipy_fill_holes():
     # Independent reference: scipy.ndimage.binary_fill_holes fills exactly the void
     # pockets not connected to the outside.

@@ -140,6 +140,17 @@ region = { box = { min = [0.0, 4.0], max = [24.0, 6.0] } }
     assert main(go_on + ["--strict"]) == 3
     s = json.loads((tmp_path / "r" / "summary.json").read_text())
     assert "load_path" in s["checks_failed"]
+    # The printed part is a mechanism, held only by E_min: not analysed, so no
+    # stiffness, deflection or stress figure, and the checks that need one fail.
+    assert s["printed_part"]["analysed"] is False and s["printed_part"]["cut_off_loads"]
+    assert s["compliance_Nmm"] is None and s["max_von_mises_MPa"] is None
+    assert s["load_cases"][0]["deflections_mm"] == {"tip": None}
+    assert s["optimizer"]["compliance_Nmm"] is not None  # the grey figures stay beside
+    assert s["mass_kg"] > 0
+    rows = {r["name"]: r for r in s["checks"]}
+    for name in ("compliance_gap", "safety_factor", "deflection_limits"):
+        assert rows[name]["status"] == "FAIL" and "not analysed" in rows[name]["detail"]
+    assert (tmp_path / "r" / "stress.png").exists() and (tmp_path / "r" / "deflection.png").exists()
 
 
 def test_a_cut_interface_is_flagged_with_the_support_it_needs():

@@ -46,6 +46,18 @@ class SignOffFigures:
     fatigue_cycles: bool = False  # some load case gives a design life
     fatigue_correction: str = "goodman"  # the mean-stress correction's name
     yield_basis: str = ""  # which yield strength the safety factor used
+    # why the printed part has no analysis (a mechanism, printed.py); None: analysed
+    not_analysed: str | None = None
+    unattached_loads: list[str] = field(default_factory=list)  # loaded nodes on no element
+
+
+def _unanalysed(name: str, f: SignOffFigures, limit) -> dict | None:
+    """The FAIL row of a check that needs the printed part's analysis when there
+    is none: the figure it would judge does not exist, so the design may not be
+    handed on on its strength."""
+    if f.not_analysed is None:
+        return None
+    return _row(name, False, None, limit, f"printed part {f.not_analysed}")
 
 
 def _row(name: str, ok: bool | None, value, limit, detail: str) -> dict:
@@ -61,14 +73,21 @@ def load_path(f: SignOffFigures) -> dict:
             0,
             0,
             "every load region joins a support through printed "
-            "elements (face-connected), and no piece is loose",
+            "elements (face-connected), every loaded node is on a printed element, and no "
+            "piece is loose",
         )
     parts = []
     if f.cut_off_loads:
         parts.append(f"load region(s) {', '.join(f.cut_off_loads)} reach no support")
+    if f.unattached_loads:
+        parts.append(
+            f"load region(s) {', '.join(f.unattached_loads)} have loaded nodes on no printed "
+            "element (that share of the load acts on the void)"
+        )
     if f.loose_pieces:
         parts.append(f"{f.loose_pieces} printed piece(s) touch no support")
-    return _row("load_path", False, len(f.cut_off_loads) + f.loose_pieces, 0, "; ".join(parts))
+    count = len(f.cut_off_loads) + len(f.unattached_loads) + f.loose_pieces
+    return _row("load_path", False, count, 0, "; ".join(parts))
 
 
 def interfaces_whole(f: SignOffFigures) -> dict:
@@ -97,6 +116,8 @@ def interfaces_whole(f: SignOffFigures) -> dict:
 
 
 def compliance_gap(f: SignOffFigures) -> dict:
+    if row := _unanalysed("compliance_gap", f, f.compliance_gap_limit):
+        return row
     gaps = {k: v for k, v in f.compliance_gaps.items() if v is not None}
     if not gaps:
         return _row(
@@ -119,6 +140,8 @@ def compliance_gap(f: SignOffFigures) -> dict:
 
 
 def safety_factor(f: SignOffFigures) -> dict:
+    if row := _unanalysed("safety_factor", f, f.required_safety_factor):
+        return row
     if f.safety_factor is None:
         return _row(
             "safety_factor",
@@ -149,6 +172,8 @@ def fatigue_safety_factor(f: SignOffFigures) -> dict:
             f.required_fatigue_safety_factor,
             "no load case gives cycles",
         )
+    if row := _unanalysed("fatigue_safety_factor", f, f.required_fatigue_safety_factor):
+        return row
     value = f.fatigue_safety_factor  # None: no stress at all, unbounded
     ok = value is None or value >= f.required_fatigue_safety_factor
     return _row(
@@ -164,6 +189,8 @@ def fatigue_safety_factor(f: SignOffFigures) -> dict:
 
 
 def fatigue_damage(f: SignOffFigures) -> dict:
+    if f.fatigue_cycles and (row := _unanalysed("fatigue_damage", f, 1.0)):
+        return row
     if not f.fatigue_cycles or f.fatigue_damage is None:
         return _row("fatigue_damage", None, None, 1.0, "no load case gives cycles")
     return _row(
@@ -178,6 +205,8 @@ def fatigue_damage(f: SignOffFigures) -> dict:
 def stress_limit(f: SignOffFigures) -> dict:
     if f.stress_limit_MPa is None:
         return _row("stress_limit", None, None, None, "no stress_limit given")
+    if row := _unanalysed("stress_limit", f, f.stress_limit_MPa):
+        return row
     value = f.max_von_mises_MPa
     ok = value is not None and value <= f.stress_limit_MPa
     return _row(
@@ -205,6 +234,8 @@ def deflection_limits(f: SignOffFigures) -> dict:
     limited = [d for d in f.deflections if d["limit_mm"] is not None]
     if not limited:
         return _row("deflection_limits", None, None, None, "no deflection limits given")
+    if row := _unanalysed("deflection_limits", f, min(d["limit_mm"] for d in limited)):
+        return row
     ratios = [(abs(d["value_mm"]) / d["limit_mm"], d) for d in limited]
     ratio, worst = max(ratios, key=lambda r: r[0])
     return _row(

@@ -339,9 +339,10 @@ def cmd_orient(args, outputs: Outputs) -> int:
     )
     write_orient(problem, rows, best, reason, out)
     for r in rows:
-        cost = r["printed_cost_per_part"]
+        cost, c = r["printed_cost_per_part"], r["compliance_Nmm"]
+        stiffness = "not analysed (no load path)" if c is None else f"{c:.5g} N·mm"
         print(
-            f"  {r['build.direction']}: compliance {r['compliance_Nmm']:.5g} N·mm, support "
+            f"  {r['build.direction']}: compliance {stiffness}, support "
             f"{r['support_volume_mm3']:.4g} mm³, {r['layers']} layers, "
             f"{'does not fit the plate' if cost is None else f'{cost:.4g} per part'}"
             + (f"; checks FAILED: {r['checks_failed']}" if r["checks_failed"] else "")

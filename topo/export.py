@@ -160,13 +160,18 @@ def write_fields(result, path: Path) -> None:
     point_data, cell_data = {}, {}
     cell_data["density"] = lambda: result.density.ravel()
     cell_data["printed_density"] = lambda: made.astype(float)
+    analysed = printed.analysis is not None  # a mechanism has no printed fields
     for i, case in enumerate(result.problem.load_cases):
         name = field_name(case.name)
-        point_data[f"displacement_printed_{name}"] = lambda i=i: _vectors(grid, printed.analysis, i)
+        if analysed:
+            point_data[f"displacement_printed_{name}"] = lambda i=i: _vectors(
+                grid, printed.analysis, i
+            )
+            cell_data[f"von_mises_printed_{name}"] = stress(printed.analysis, made, i)
         point_data[f"displacement_grey_{name}"] = lambda i=i: _vectors(grid, grey, i)
-        cell_data[f"von_mises_printed_{name}"] = stress(printed.analysis, made, i)
         cell_data[f"von_mises_grey_rho_ge_half_{name}"] = stress(grey, grey_solid, i)
-    cell_data["von_mises_printed_max"] = stress(printed.analysis, made)
+    if analysed:
+        cell_data["von_mises_printed_max"] = stress(printed.analysis, made)
     cell_data["von_mises_grey_rho_ge_half_max"] = stress(grey, grey_solid)
     cell_type = VTK_QUAD if grid.dim == 2 else VTK_HEXAHEDRON  # our corner order is VTK's
     write_vtu(path, points, lambda: grid.element_nodes, cell_type, point_data, cell_data)

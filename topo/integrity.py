@@ -10,7 +10,7 @@ all, not even at a corner (as the printed part's debris rule, printed.py).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy import ndimage
@@ -25,6 +25,14 @@ class LoadPath:
     pieces: int  # face-connected pieces of the printed part
     loose_pieces: int  # pieces that touch no support (they fall off in service)
     loose_volume_mm3: float
+    # load regions with loaded nodes that no printed element has as a corner: that
+    # share of the load acts on the void and is held only by its E_min
+    unattached: list[str] = field(default_factory=list)
+
+    @property
+    def mechanism(self) -> bool:
+        """Some load is not carried by the printed part into a support."""
+        return bool(self.cut_off or self.unattached)
 
 
 def _elements_at_nodes(grid, nodes: np.ndarray) -> np.ndarray:
@@ -66,9 +74,24 @@ def load_path(
     flat, n, _, held = pieces(ndimage.generate_binary_structure(solid.ndim, solid.ndim))
     loose = [k for k in range(1, n + 1) if k not in held]
     sizes = ndimage.sum_labels(np.ones_like(flat), flat, loose) if loose else np.zeros(0)
+    on_part = _nodes_on_elements(solid, grid)
+    unattached = [name for name, nodes in loads if name not in cut and not on_part[nodes].all()]
     return LoadPath(
-        not cut and not loose, cut, int(n), len(loose), float(np.sum(sizes) * element_volume)
+        not cut and not loose and not unattached,
+        cut,
+        int(n),
+        len(loose),
+        float(np.sum(sizes) * element_volume),
+        unattached,
     )
+
+
+def _nodes_on_elements(solid: np.ndarray, grid) -> np.ndarray:
+    """Flat node mask: the nodes that are a corner of some element of `solid`."""
+    out = np.zeros(grid.node_shape, dtype=bool)
+    for corner in grid.corners:
+        out[tuple(slice(c, c + n) for c, n in zip(corner, grid.shape))] |= solid
+    return out.ravel()
 
 
 @dataclass

@@ -243,8 +243,11 @@ MAX_MARKERS = 20000
 def stress_figure(result, surface):
     """stress.png: the printed part's von Mises stress (largest over the load cases)
     at element centres, MPa, with the peak marked."""
-    printed = result.printed.density.ravel() > 0.5
-    vm = np.where(printed, result.printed.analysis.von_mises.max(axis=1), np.nan)
+    part = result.printed
+    if part.analysis is None:
+        return _unanalysed_figure(result, surface, "von Mises (MPa)")
+    printed = part.density.ravel() > 0.5
+    vm = np.where(printed, part.analysis.von_mises.max(axis=1), np.nan)
     return _field_figure(
         result,
         surface,
@@ -256,10 +259,20 @@ def stress_figure(result, surface):
     )
 
 
+def _unanalysed_figure(result, surface, label: str):
+    """The printed part drawn with no field and the reason it has none (a
+    mechanism is not analysed, printed.py)."""
+    values = np.full(result.model.grid.n_elements, np.nan)
+    reason = result.printed.why_not_analysed()
+    return _field_figure(result, surface, values, label, f"printed part {reason}")
+
+
 def deflection_figure(result, surface):
     """deflection.png: how far the printed part moves (displacement magnitude, mm,
     the mean of each element's corners, largest over the load cases)."""
     model = result.model
+    if result.printed.analysis is None:
+        return _unanalysed_figure(result, surface, "displacement magnitude (mm)")
     u = result.printed.analysis.displacements.reshape(model.grid.n_nodes, model.dim, -1)
     magnitude = np.linalg.norm(u, axis=1)  # (nodes, cases)
     per_element = _corner_mean(model.grid, magnitude).max(axis=1)

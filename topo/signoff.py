@@ -26,7 +26,8 @@ from .stress import centre_stresses
 def part_figures(
     problem, model, rho: np.ndarray, analysis, probes, solid: np.ndarray, stress=None
 ) -> dict:
-    """Figures of one density field (flat) and its analysis. Stresses are those of
+    """Figures of one density field (flat) and its analysis (None: a mechanism,
+    printed.py; then only mass and volume are given). Stresses are those of
     the solid material at element centres, over the elements of `solid` only (the
     printed material); void and grey elements below ρ = 0.5 carry none. The yield
     strength of the safety factors is the material's, or a named condition's by the
@@ -35,9 +36,35 @@ def part_figures(
     dom, mat = problem.domain, problem.material
     weights = np.array([c.weight for c in problem.load_cases])
     volume = dom.element_volume * float(np.clip(rho, 0.0, 1.0).sum())
+    build = problem.build.direction if problem.build else None
+    active = model.active
+    out = {
+        "mass_kg": volume * 1e-9 * mat.density,
+        "volume_mm3": volume,
+        "volume_fraction": float(np.clip(rho[active], 0, 1).mean()) if active.any() else None,
+        "compliance_Nmm": None,
+        "max_von_mises_MPa": None,
+        "safety_factor": None,
+        "yield_basis": yield_basis(mat, build),
+    }
+    if analysis is None:  # a mechanism (printed.py): no stiffness figure describes it
+        out["load_cases"] = [
+            {
+                "name": case.name,
+                "weight": case.weight,
+                "compliance_Nmm": None,
+                "max_displacement_mm": None,
+                "max_von_mises_MPa": None,
+                "safety_factor": None,
+                "yield_strength_MPa": None,
+                "yield_angle_to_build_deg": None,
+                "deflections_mm": {p.name: None for p in probes if i in p.cases},
+            }
+            for i, case in enumerate(problem.load_cases)
+        ]
+        return out
     if stress is None:
         stress = centre_stresses(model, analysis.displacements)
-    build = problem.build.direction if problem.build else None
     safety = yield_safety(mat, build, stress[solid], analysis.von_mises[solid])
     cases = []
     for i, case in enumerate(problem.load_cases):
@@ -61,19 +88,14 @@ def part_figures(
             }
         )
     peaks = [c["max_von_mises_MPa"] for c in cases if c["max_von_mises_MPa"] is not None]
-    peak = max(peaks) if peaks else None
     factors = [c["safety_factor"] for c in cases if c["safety_factor"] is not None]
-    active = model.active
-    return {
-        "mass_kg": volume * 1e-9 * mat.density,
-        "volume_mm3": volume,
-        "volume_fraction": float(np.clip(rho[active], 0, 1).mean()) if active.any() else None,
-        "compliance_Nmm": finite_or_none(weights @ analysis.compliances),
-        "max_von_mises_MPa": peak,
-        "safety_factor": min(factors) if factors else None,
-        "yield_basis": yield_basis(mat, build),
-        "load_cases": cases,
-    }
+    out.update(
+        compliance_Nmm=finite_or_none(weights @ analysis.compliances),
+        max_von_mises_MPa=max(peaks) if peaks else None,
+        safety_factor=min(factors) if factors else None,
+        load_cases=cases,
+    )
+    return out
 
 
 def interface_support(problem, model, printed: np.ndarray, grey: np.ndarray) -> list[dict]:
@@ -117,7 +139,9 @@ def sign_off(result) -> dict:
     grey = result.density.ravel()
     part = result.printed
     solid = part.density.ravel() > 0.5
-    stress = centre_stresses(model, part.analysis.displacements)  # (elements, cases, ns)
+    analysed = part.analysis is not None
+    # (elements, cases, ns)
+    stress = centre_stresses(model, part.analysis.displacements) if analysed else None
     printed = part_figures(
         problem, model, part.density.ravel(), part.analysis, probes, solid, stress
     )
@@ -125,7 +149,9 @@ def sign_off(result) -> dict:
     for pc, gc in zip(printed["load_cases"], optimizer["load_cases"]):
         pc["compliance_gap"] = relative_gap(pc["compliance_Nmm"], gc["compliance_Nmm"])
     grid, dom = model.grid, problem.domain
-    path = load_path(part.density, grid, model.support_nodes, model.load_nodes, dom.element_volume)
+    path = part.load_path or load_path(
+        part.density, grid, model.support_nodes, model.load_nodes, dom.element_volume
+    )
     cavities = [
         c.__dict__ for c in enclosed_cavities(part.density, dom.element_size, dom.element_volume)
     ]
@@ -144,11 +170,16 @@ def sign_off(result) -> dict:
         for p in probes
         for i in p.cases
     ]
-    fatigue = assess(problem, grid.element_centers, part.analysis.von_mises, solid, stress=stress)
+    fatigue = (
+        assess(problem, grid.element_centers, part.analysis.von_mises, solid, stress=stress)
+        if analysed
+        else None
+    )
     opt = problem.optimization
     figures = SignOffFigures(
         load_path_connected=path.connected,
         cut_off_loads=path.cut_off,
+        unattached_loads=path.unattached,
         loose_pieces=path.loose_pieces,
         interfaces=interfaces,
         compliance_gaps={c["name"]: c["compliance_gap"] for c in printed["load_cases"]},
@@ -172,8 +203,10 @@ def sign_off(result) -> dict:
         fatigue_safety_factor=fatigue["safety_factor"] if fatigue else None,
         required_fatigue_safety_factor=requirements.fatigue_safety_factor,
         fatigue_damage=fatigue["damage"] if fatigue else None,
-        fatigue_cycles=fatigue is not None,
+        fatigue_cycles=fatigue is not None
+        or (not analysed and any(c.cycles is not None for c in problem.load_cases)),
         fatigue_correction=fatigue["mean_stress_method"] if fatigue else "goodman",
+        not_analysed=None if analysed else part.why_not_analysed(),
     )
     return {
         "printed": printed,
@@ -188,6 +221,8 @@ def sign_off(result) -> dict:
             "loose_pieces": path.loose_pieces,
             "loose_volume_mm3": path.loose_volume_mm3,
             "cut_off_loads": path.cut_off,
+            "unattached_loads": path.unattached,
+            "analysed": analysed,
         },
         "interfaces": interfaces,
         "deflections": deflection_rows,
