@@ -173,7 +173,7 @@ def design_figure(result, surface):
     return _figure_2d(result) if result.density.ndim == 2 else _figure_3d(result, surface)
 
 
-def _field_figure(result, surface, values: np.ndarray, label: str, title: str):
+def _field_figure(result, surface, values: np.ndarray, label: str, title: str, mark_peak=True):
     """A per-element field of the printed part (NaN where nothing is printed), its
     peak marked: an image in 2D, the design mesh coloured in 3D."""
     plt = pyplot()
@@ -215,7 +215,10 @@ def _field_figure(result, surface, values: np.ndarray, label: str, title: str):
         ax.set_box_aspect(grid.size)
         ax.view_init(25, -60)
         image = plt.cm.ScalarMappable(norm=norm, cmap="viridis")
-    fig.colorbar(image, ax=ax, shrink=0.7, label=label)
+    if not mark_peak:
+        peak = None
+    else:
+        fig.colorbar(image, ax=ax, shrink=0.7, label=label)
     if peak is not None:
         centre = _centres(grid, np.array([peak]))[0]
         ax.plot(*[[c] for c in centre], "r*", ms=12, label=f"peak {values[peak]:.4g}")
@@ -260,11 +263,15 @@ def stress_figure(result, surface):
 
 
 def _unanalysed_figure(result, surface, label: str):
-    """The printed part drawn with no field and the reason it has none (a
-    mechanism is not analysed, printed.py)."""
-    values = np.full(result.model.grid.n_elements, np.nan)
-    reason = result.printed.why_not_analysed()
-    return _field_figure(result, surface, values, label, f"printed part {reason}")
+    """The printed part drawn in one colour, with no field, no colour bar and the
+    reason it has none (a part that does not carry its loads is not analysed,
+    printed.py)."""
+    import textwrap
+
+    made = result.printed.density.ravel() > 0.5
+    values = np.where(made, 0.5, np.nan)
+    reason = textwrap.fill(f"printed part {result.printed.why_not_analysed()}", 90)
+    return _field_figure(result, surface, values, label, reason, mark_peak=False)
 
 
 def deflection_figure(result, surface):
