@@ -55,3 +55,19 @@ def test_reductions_do_not_depend_on_the_thread_count():
     for other in results[1:]:
         assert np.array_equal(first[0], other[0])
         assert all(np.array_equal(a, b) for a, b in zip(first[1], other[1]))
+
+
+def test_k_cycle_passes_match_numpy():
+    x, r, p, ap = _vectors(m=3)
+    s = np.array([0.5, -2.0, 0.0])
+    out = np.empty_like(r)
+    rr = vk.scaled_difference(r, p, s, out)
+    assert np.allclose(out, r - s * p, rtol=0, atol=1e-14)
+    assert np.allclose(rr, np.einsum("ij,ij->j", out, out), rtol=1e-13)
+    dots = vk.column_dots3(x, r, p, ap)
+    for row, other in zip(dots, (r, p, ap)):
+        assert np.allclose(row, np.einsum("ij,ij->j", x, other), rtol=1e-13)
+    a, b = np.array([1.0, 0.25, -1.0]), np.array([2.0, 0.0, 3.0])
+    expected = a * x + b * r
+    vk.combine(x, a, r, b)
+    assert np.allclose(x, expected, rtol=0, atol=1e-14)

@@ -366,22 +366,25 @@ class MatrixFreeCG(LinearSystem):
 
     def kcycle(self, b: np.ndarray, level: int) -> np.ndarray:
         """Two flexible-CG steps on A x = b preconditioned by `cycle` (Notay &
-        Vassilevski 2008); the second is skipped once ‖r‖ ≤ KRYLOV_SKIP ‖b‖."""
+        Vassilevski 2008); the second is skipped once ‖r‖ ≤ KRYLOV_SKIP ‖b‖. The
+        vector work is three fused passes (vectorkernels.py): r = b − α₁ v₁ with
+        its norm, the three dot products of c₂, and x = (α₁ − α₂γ/ρ₁) c₁ + α₂ c₂."""
         a = self.operators[level]
         c1 = self.cycle(b, level)
         v1 = a @ c1
         rho1 = _dots(c1, v1)
-        alpha1 = _dots(c1, b)
-        x = c1 * (alpha1 / rho1).astype(SINGLE)
-        r = b - v1 * (alpha1 / rho1).astype(SINGLE)
-        if np.all(_dots(r, r) <= KRYLOV_SKIP**2 * _dots(b, b)):
-            return x
+        a1 = _dots(c1, b) / rho1
+        r = np.empty_like(b)
+        rr = vectorkernels.scaled_difference(b, v1, a1, r)
+        if np.all(rr <= KRYLOV_SKIP**2 * _dots(b, b)):
+            c1 *= a1.astype(SINGLE)
+            return c1
         c2 = self.cycle(r, level)
-        v2 = a @ c2
-        gamma, beta, alpha2 = _dots(c2, v1), _dots(c2, v2), _dots(c2, r)
+        gamma, beta, alpha2 = vectorkernels.column_dots3(c2, v1, a @ c2, r)
         rho2 = beta - gamma**2 / rho1
-        x += (c2 - c1 * (gamma / rho1).astype(SINGLE)) * (alpha2 / rho2).astype(SINGLE)
-        return x
+        a2 = alpha2 / rho2
+        vectorkernels.combine(c1, a1 - a2 * gamma / rho1, c2, a2)
+        return c1
 
     def precondition(self, r: np.ndarray) -> np.ndarray:
         """One cycle on r; z stays in single precision (pcg's compiled passes

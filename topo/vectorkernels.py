@@ -79,6 +79,47 @@ def _cg_direction(p, z, beta):
             p[i, col] = z[i, col] + beta[col] * p[i, col]
 
 
+@nb.njit(**_JIT)
+def _column_dots3(c, a1, a2, a3, blocks):
+    n, m = c.shape
+    size = (n + blocks - 1) // blocks
+    partial = np.zeros((blocks, 3, m))
+    for blk in nb.prange(blocks):
+        acc = np.zeros((3, m))
+        for i in range(blk * size, min(n, (blk + 1) * size)):
+            for col in range(m):
+                ci = np.float64(c[i, col])
+                acc[0, col] += ci * a1[i, col]
+                acc[1, col] += ci * a2[i, col]
+                acc[2, col] += ci * a3[i, col]
+        partial[blk] = acc
+    return partial.sum(axis=0)
+
+
+@nb.njit(**_JIT)
+def _scaled_difference(b, v, s, out, blocks):
+    n, m = b.shape
+    size = (n + blocks - 1) // blocks
+    partial = np.zeros((blocks, m))
+    for blk in nb.prange(blocks):
+        acc = np.zeros(m)
+        for i in range(blk * size, min(n, (blk + 1) * size)):
+            for col in range(m):
+                w = b[i, col] - s[col] * v[i, col]
+                out[i, col] = w
+                acc[col] += np.float64(w) * w
+        partial[blk] = acc
+    return partial.sum(axis=0)
+
+
+@nb.njit(**_JIT)
+def _combine(x, a, y, b):
+    n, m = x.shape
+    for i in nb.prange(n):
+        for col in range(m):
+            x[i, col] = a[col] * x[i, col] + b[col] * y[i, col]
+
+
 def column_dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Σ_i a_ij b_ij per column j, in double precision."""
     with _LOCK:
@@ -102,3 +143,21 @@ def cg_direction(p, z, beta: np.ndarray) -> None:
     """p := z + β p (β per column), in place."""
     with _LOCK:
         _cg_direction(p, z, np.asarray(beta, dtype=p.dtype))
+
+
+def column_dots3(c, a1, a2, a3) -> np.ndarray:
+    """(3, m): cᵀa1, cᵀa2, cᵀa3 per column in one pass, in double precision."""
+    with _LOCK:
+        return _column_dots3(c, a1, a2, a3, BLOCKS)
+
+
+def scaled_difference(b, v, s: np.ndarray, out) -> np.ndarray:
+    """out := b − s v (s per column); returns ‖out‖² per column."""
+    with _LOCK:
+        return _scaled_difference(b, v, np.asarray(s, dtype=out.dtype), out, BLOCKS)
+
+
+def combine(x, a: np.ndarray, y, b: np.ndarray) -> None:
+    """x := a x + b y (a, b per column), in place."""
+    with _LOCK:
+        _combine(x, np.asarray(a, dtype=x.dtype), y, np.asarray(b, dtype=x.dtype))
