@@ -448,6 +448,9 @@ ON_REQUEST = {
     # the print-resolution bracket, 150 × 80 × 60 mm at 0.5 mm (5.76 million elements)
     "print-3d-300x160x120-stages": (case_print_stages, ((300, 160, 120),)),
     "print-3d-300x160x120": (case_print_run, ((300, 160, 120), 100)),
+    # the same run whole, cut to 10 design iterations: every stage of the pipeline
+    # at print resolution in about half an hour
+    "print-3d-300x160x120-short": (case_print_run, ((300, 160, 120), 10)),
 }
 
 
