@@ -18,8 +18,9 @@ CG_SECONDS_PER_ENTRY = 1.5e-9  # one multigrid-CG iteration per stored matrix en
 CG_ITERATIONS = 16  # mean over a run, with warm starts
 REBUILD_SECONDS_PER_ENTRY = 1.7e-8  # assembly, coarse operators, coarse Cholesky, per iteration
 ITERATIVE_BYTES_PER_NODE = 8_500  # fine matrix, hierarchy, work vectors of one load case
-# The matrix-free 3D path (matrixfree.py), fitted to `topo bench` runs of the
-# cantilever (DEVELOPERS.md, "Estimates of memory and time"): memory per element
+# The matrix-free 3D path (matrixfree.py), fitted to `topo bench` runs of the 1M
+# cantilever (one load case) and the 5.76M print bracket (three) (DEVELOPERS.md,
+# "Estimates of memory and time"): memory per element
 # of the whole run (design fields, filter, coarse stencils, the process itself)
 # and per dof and load case (the solver's vectors), seconds per element and load
 # case for one CG iteration (every product runs over all load cases' columns),
@@ -29,8 +30,8 @@ MF_BYTES_PER_ELEMENT = 650
 MF_BYTES_PER_DOF_CASE = 130
 MF_BYTES_FIXED = 250 * 2**20  # interpreter, numpy, scipy, numba and its compiled code
 MF_CG_ITERATIONS = 10
-MF_CG_SECONDS_PER_ELEMENT_CASE = 0.65e-6
-MF_REBUILD_SECONDS_PER_ELEMENT = 1.5e-6
+MF_CG_SECONDS_PER_ELEMENT_CASE = 0.55e-6
+MF_REBUILD_SECONDS_PER_ELEMENT = 0.6e-6
 
 
 def estimate(problem: Problem) -> dict:
