@@ -151,6 +151,14 @@ region = { box = { min = [0.0, 4.0], max = [24.0, 6.0] } }
     for name in ("compliance_gap", "safety_factor", "deflection_limits"):
         assert rows[name]["status"] == "FAIL" and "not analysed" in rows[name]["detail"]
     assert (tmp_path / "r" / "stress.png").exists() and (tmp_path / "r" / "deflection.png").exists()
+    assert "not analysed" in s["figures_of"] and s["printed_part"]["not_analysed"]
+    assert "), not analysed: load region(s) down reach no support" in capsys.readouterr().out
+    # a body-fitted verification would move the load onto the nearest printed node
+    # and report a part that is not the one made: refused, the summary untouched
+    assert main(["verify", str(tmp_path / "r")]) == 2
+    assert "not verified" in capsys.readouterr().err
+    after = json.loads((tmp_path / "r" / "summary.json").read_text())
+    assert after["checks"] == s["checks"] and not (tmp_path / "r" / "verify.json").exists()
 
 
 def test_a_cut_interface_is_flagged_with_the_support_it_needs():

@@ -26,6 +26,13 @@ PRINTED_NOTE = (
     "passive solid region whole, minus the void regions, re-analysed for every load case; "
     "the optimiser's figures of the grey density field are under 'optimizer'"
 )
+# what the figures are of when the printed part does not carry its loads (printed.py)
+UNANALYSED_NOTE = (
+    "the printed part (elements at density >= 0.5 plus passive solids whole, minus the "
+    "void regions) was NOT analysed: {reason}. Only its mass and volume are given; its "
+    "stiffness, deflection, stress and fatigue figures are null. The optimiser's figures "
+    "of the grey density field are under 'optimizer'"
+)
 # where the headline stress comes from; `topo verify` replaces it (verification/figures.py)
 GRID_STRESS_SOURCE = "grid: element centres of the printed part (not converged at stress raisers)"
 NOTES = {
@@ -87,7 +94,7 @@ def summarize(result, analysis_only: bool = False) -> dict:
             "density_kg_m3": mat.density,
             "yield_strength_MPa": mat.yield_strength,
         },
-        "figures_of": PRINTED_NOTE,
+        "figures_of": _figures_of(result.printed),
         "volume_fraction": printed["volume_fraction"],
         "volume_fraction_target": None if analysis_only else problem.optimization.volume_fraction,
         "volume_mm3": printed["volume_mm3"],
@@ -417,6 +424,20 @@ def format_mesh(m: dict, fmt: str) -> str:
     )
 
 
+def _figures_of(part) -> str:
+    if part.analysis is None:
+        return UNANALYSED_NOTE.format(reason=part.why_not_analysed())
+    return PRINTED_NOTE
+
+
+def _printed_heading(s: dict) -> str:
+    """The console's heading of the printed part's figures: analysed or why not."""
+    reason = s.get("printed_part", {}).get("not_analysed")
+    if reason:
+        return f"printed part (density >= 0.5, interfaces whole), {reason}:"
+    return "printed part (density >= 0.5, interfaces whole), re-analysed:"
+
+
 def format_run(s: dict, mesh_format: str) -> list[str]:
     """The outcome of a run from its summary.json: the printed part first."""
     grey = s["optimizer"]
@@ -424,7 +445,7 @@ def format_run(s: dict, mesh_format: str) -> list[str]:
     lines = [
         f"{'converged' if s['converged'] else 'stopped'} after {s['iterations']} iterations "
         f"in {s['runtime_s']:.1f} s (solver {s['solver']}): {s['stop_reason']}",
-        "printed part (density >= 0.5, interfaces whole), re-analysed:",
+        _printed_heading(s),
         f"  mass {_num(s['mass_kg'])} kg, volume fraction {_num(s['volume_fraction'], '.4f')}, "
         f"compliance {_num(s['compliance_Nmm'], '.6g')} N·mm; optimiser's grey design: "
         f"mass {_num(grey['mass_kg'])} kg, compliance {_num(grey['compliance_Nmm'], '.6g')} N·mm"
@@ -467,7 +488,8 @@ def format_analysis(s: dict, design: str | None) -> list[str]:
     return (
         [
             f"{s['name']}: analysis of {'the design ' + design if design else 'the full domain'}"
-            " as printed (density >= 0.5, interfaces whole)",
+            " as printed (density >= 0.5, interfaces whole)"
+            + (f", {reason}" if (reason := s["printed_part"].get("not_analysed")) else ""),
             f"  compliance {_num(s['compliance_Nmm'], '.6g')} N·mm, mass {_num(s['mass_kg'])} kg",
         ]
         + format_cases(s)

@@ -223,6 +223,7 @@ def sign_off(result) -> dict:
             "cut_off_loads": path.cut_off,
             "unattached_loads": path.unattached,
             "analysed": analysed,
+            "not_analysed": None if analysed else part.why_not_analysed(),
         },
         "interfaces": interfaces,
         "deflections": deflection_rows,

@@ -44,6 +44,15 @@ def verify(result, exact: bool = False, base_size: float | None = None) -> Verif
     (3D, empty or disconnected design, a region reaching no node)."""
     problem = result.problem
     source = problem.source
+    if not exact and result.printed.analysis is None:
+        # a part that does not carry its loads has no figure to verify; a body-fitted
+        # mesh would move each load to the nearest printed node and report a part
+        # that is not the one made (printed.py)
+        raise ProblemError(
+            source,
+            "printed design",
+            f"not verified: the printed part is {result.printed.why_not_analysed()}",
+        )
     start = time.perf_counter()
     h = problem.domain.element_size
     base = base_size or (BASE if problem.dim == 2 else BASE_3D) * h
