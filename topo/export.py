@@ -160,7 +160,7 @@ def write_fields(result, path: Path) -> None:
     point_data, cell_data = {}, {}
     cell_data["density"] = lambda: result.density.ravel()
     cell_data["printed_density"] = lambda: made.astype(float)
-    analysed = printed.analysis is not None  # a mechanism has no printed fields
+    analysed = printed.analysis is not None  # a part not analysed has no printed fields
     for i, case in enumerate(result.problem.load_cases):
         name = field_name(case.name)
         if analysed:

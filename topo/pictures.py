@@ -173,9 +173,10 @@ def design_figure(result, surface):
     return _figure_2d(result) if result.density.ndim == 2 else _figure_3d(result, surface)
 
 
-def _field_figure(result, surface, values: np.ndarray, label: str, title: str, mark_peak=True):
+def _field_figure(result, surface, values: np.ndarray, label: str, title: str, scaled=True):
     """A per-element field of the printed part (NaN where nothing is printed), its
-    peak marked: an image in 2D, the design mesh coloured in 3D."""
+    peak marked: an image in 2D, the design mesh coloured in 3D. scaled=False
+    draws no colour bar and no peak (the part only)."""
     plt = pyplot()
     grid = result.model.grid
     peak = int(np.nanargmax(values)) if np.isfinite(values).any() else None
@@ -215,7 +216,7 @@ def _field_figure(result, surface, values: np.ndarray, label: str, title: str, m
         ax.set_box_aspect(grid.size)
         ax.view_init(25, -60)
         image = plt.cm.ScalarMappable(norm=norm, cmap="viridis")
-    if not mark_peak:
+    if not scaled:
         peak = None
     else:
         fig.colorbar(image, ax=ax, shrink=0.7, label=label)
@@ -271,7 +272,7 @@ def _unanalysed_figure(result, surface, label: str):
     made = result.printed.density.ravel() > 0.5
     values = np.where(made, 0.5, np.nan)
     reason = textwrap.fill(f"printed part {result.printed.why_not_analysed()}", 90)
-    return _field_figure(result, surface, values, label, reason, mark_peak=False)
+    return _field_figure(result, surface, values, label, reason, scaled=False)
 
 
 def deflection_figure(result, surface):

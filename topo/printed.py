@@ -11,11 +11,11 @@ the part is seen at once.
 
 A printed part in which some load region reaches no support, or has loaded nodes
 on no printed element (integrity.load_path), does not carry that load: only the
-void's E_min would hold it, so any stiffness,
-deflection, stress or fatigue figure would describe E_min and not the part, and
-its solve is the hardest of a run (1,395 CG iterations against the design loop's
-6–8, measured on 60×30×30 after 3 design iterations). It is not analysed: its
-analysis is None, and every check that needs one fails saying why.
+void's E_min would hold it. Any stiffness, deflection, stress or fatigue figure
+would then describe E_min and not the part, and its solve is the hardest of a run
+(1,395 CG iterations against the design loop's 6–8, measured on 60×30×30 after 3
+design iterations). Such a part is not analysed: its analysis is None, and every
+check that needs one fails saying why.
 """
 
 from __future__ import annotations
@@ -59,18 +59,14 @@ class PrintedPart:
     """The printed design, its analysis, and how it differs from the optimiser's."""
 
     density: np.ndarray  # 0/1, grid shape
-    analysis: object | None  # fem.Analysis of the printed design; None: a mechanism
+    analysis: object | None  # fem.Analysis of the printed design; None: not analysed
     passive_added: int  # passive-solid elements the optimiser's design had below ρ = 0.5
     added: int  # elements printed that the optimiser had below 0.5 (all passive)
     removed: int  # elements at ρ ≥ 0.5 in the optimiser's design that are not printed
     load_path: LoadPath | None = None
 
-    @property
-    def mechanism(self) -> bool:
-        """Some load region reaches no support: not analysed (module docstring)."""
-        return self.analysis is None
-
     def why_not_analysed(self) -> str:
+        """Why `analysis` is None (module docstring), as a sentence for the checks."""
         path = self.load_path
         parts = []
         if path and path.cut_off:
