@@ -54,3 +54,20 @@ def test_chain_backward_with_passive_regions(rng):
     g1, g2 = chain.backward_many(x, [np.ones(n), np.arange(n, dtype=float)])
     assert np.allclose(g1, chain.backward(x, np.ones(n)))
     assert np.allclose(g2, chain.backward(x, np.arange(n, dtype=float)))
+
+
+@pytest.mark.parametrize(
+    "shape,radius", [((67, 60, 55), 3.0), ((613, 401), 2.5), ((70, 50, 60), 1.0)]
+)
+def test_threaded_filter_equals_scipy_correlate_exactly(shape, radius):
+    # Reference: scipy.ndimage.correlate on the whole array, one thread. The slabs
+    # carry their neighbours' rows, so the threaded result must be bit-identical.
+    from scipy import ndimage
+
+    from topo.transforms import THREADED_FILTER_ELEMENTS, DensityFilter, threaded_correlate
+
+    a = np.random.default_rng(3).random(shape)
+    assert a.size >= THREADED_FILTER_ELEMENTS
+    kernel = DensityFilter(shape, radius).kernel
+    expected = ndimage.correlate(a, kernel, mode="constant", cval=0.0)
+    assert np.array_equal(threaded_correlate(a, kernel), expected)
