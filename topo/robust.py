@@ -28,7 +28,13 @@ from functools import cache
 import numpy as np
 from scipy import integrate, ndimage, optimize
 
-from .transforms import Chain, DensityFilter, HeavisideProjection, Transform
+from .transforms import (
+    Chain,
+    DensityFilter,
+    HeavisideProjection,
+    Transform,
+    threaded_correlate,
+)
 
 DEFAULT_SHIFT = 0.2  # Δη of the governing requirement: thresholds 0.3 / 0.5 / 0.7 (common practice)
 MAX_SHIFT = 0.4  # thresholds beyond 0.1 / 0.9 leave too little of the field to project
@@ -207,7 +213,7 @@ class PaddedFilter(Transform):
 
     def _correlate(self, a: np.ndarray) -> np.ndarray:
         field = a.reshape(self.shape)
-        return ndimage.correlate(field, self.kernel, mode="constant", cval=0.0).ravel() / self.total
+        return threaded_correlate(field, self.kernel).ravel() / self.total
 
     def forward(self, x):
         return self._correlate(x) + self.padding
