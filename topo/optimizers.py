@@ -86,19 +86,25 @@ class OptimalityCriteria:
         ratio /= mean if mean > 0 else 1.0
         lo, hi = np.maximum(0.0, xa - self.limits), np.minimum(1.0, xa + self.limits)
 
+        # xa (ratio/λ)^η = base · λ^(−η): one product and one clip per trial λ
+        base = xa * ratio**self.damping
+        held = float(dva @ xa)
+
         def step(lam: float) -> np.ndarray:
-            return np.clip(xa * (ratio / lam) ** self.damping, lo, hi)
+            return np.clip(base * lam ** (-self.damping), lo, hi)
 
         def full(xn: np.ndarray) -> np.ndarray:
             out = x.copy()
             out[act] = xn
             return out
 
-        linear = lambda lam: volume + float(dva @ (step(lam) - xa)) - target
+        linear = lambda lam: volume + float(dva @ step(lam)) - held - target
         lam = _bisect(linear, 1e-12, 1e12, rtol=1e-12)
         if exact_volume is not None:
             exact = lambda lam_: exact_volume(full(step(lam_))) - target
-            lam = _bracketed_root(exact, lam, floor=_all_at_upper(xa, ratio, hi, self.damping))
+            lam = _bracketed_root(
+                exact, lam, floor=_all_at_upper(xa, ratio, hi, self.damping), model=linear
+            )
         xn = step(lam)
         if self.adaptive:
             delta = xn - xa
@@ -136,6 +142,9 @@ def _all_at_upper(xa: np.ndarray, ratio: np.ndarray, hi: np.ndarray, damping: fl
 
 
 SEARCH_STEPS = 6  # steps of 4 below the linearised multiplier before the floor is tried
+# The shifted linear model's root is only a trial point of the exact search, so it
+# needs no more accuracy than the exact one's tolerance.
+MODEL_ATOL = 1e-8
 
 
 def _bracketed_root(
@@ -144,15 +153,60 @@ def _bracketed_root(
     atol: float = 1e-7,
     max_evals: int = 60,
     floor: float = 0.0,
+    model: Callable[[float], float] | None = None,
 ) -> float:
     """Root of a decreasing f near `guess`: bracket, then Illinois regula falsi in log λ.
     f is constant below `floor` (the step saturates there): when f(floor) is still
     negative no λ reaches the root and `floor` is returned, instead of stepping
-    down to the evaluation limit (each evaluation runs the whole transform chain)."""
-    a, b = guess / 1.5, guess * 1.5
-    fa, fb = f(a), f(b)
-    evals = 2
+    down to the evaluation limit (each evaluation runs the whole transform chain).
+
+    `model`: a cheap function that differs from f by nearly a constant (the
+    linearised budget, whose root is `guess`). Then f(guess) gives that offset,
+    the shifted model's root is the second trial, and the two usually bracket the
+    root closely; when they do not, the secant through them reaches past it, and
+    regula falsi ends in a few evaluations of f (measured: DEVELOPERS.md,
+    "Estimates of memory and time"); otherwise the search widens as without a
+    model."""
+    if model is None:
+        a, b = guess / 1.5, guess * 1.5
+        fa, fb = f(a), f(b)
+        evals = 2
+    else:
+        fg = f(guess)
+        if abs(fg) < atol:
+            return float(guess)
+        offset = fg - model(guess)
+        trial = max(_bracketed_root(lambda lam: model(lam) + offset, guess, MODEL_ATOL), floor)
+        ft = f(trial)
+        evals = 2
+        if abs(ft) < atol:
+            return float(trial)
+        # Both on one side: step on along the secant through the last two trials
+        # (in log λ), a fifth further so as to pass the root, at most ×4 at a time.
+        (l0, f0), (l1, f1) = (np.log(guess), fg), (np.log(trial), ft)
+        while (f0 > 0) == (f1 > 0) and f0 != f1 and evals < SEARCH_STEPS + 2:
+            reach = np.clip(-1.2 * f1 * (l1 - l0) / (f1 - f0), -np.log(4.0), np.log(4.0))
+            l_next = max(l1 + reach, np.log(floor) if floor > 0 else -np.inf)
+            if l_next == l1:
+                break
+            (l0, f0), (l1, f1) = (l1, f1), (l_next, f(np.exp(l_next)))
+            evals += 1
+            if abs(f1) < atol:
+                return float(np.exp(l1))
+        (a, fa), (b, fb) = sorted([(np.exp(l0), f0), (np.exp(l1), f1)])
+        if fa > 0 and fb > 0:  # still both below the root: widen upwards from the upper
+            a, fa = b, fb
+            b = a * 1.5
+            fb = f(b)
+            evals += 1
+        elif fa < 0 and fb < 0:  # both above it: widen downwards from the lower one
+            b, fb = a, fa
+            a = max(b / 1.5, floor)
+            fa = f(a)
+            evals += 1
     while fa < 0 and evals < max_evals:  # root lies below a
+        if a <= floor:
+            return float(floor)  # f(floor) < 0: no multiplier meets the budget
         if a / 4 <= floor:
             at_floor = f(floor)  # = f(a / 4): the step is the same below the floor
             if at_floor < 0:
