@@ -30,13 +30,13 @@ def stencil_matrix(node_shape, stencil):
 
 
 @pytest.mark.parametrize(
-    "shape, block_columns",
-    # one block per slab; blocks of 2 lines of 3 with a last block of 1 line
-    [((6, 5, 4), 400), ((7, 3, 5), 400), ((5, 7, 3), 6)],
+    "shape",
+    # even and odd slab counts (the two colours, the last node plane), a single
+    # slab, a single element along z
+    [(6, 5, 4), (7, 3, 5), (5, 7, 3), (1, 2, 3), (4, 3, 1)],
 )
-def test_element_product_equals_the_assembled_matrix(shape, block_columns, monkeypatch):
+def test_element_product_equals_the_assembled_matrix(shape):
     # scipy's CSR product with the node-stencil matrix (supports as identity rows)
-    monkeypatch.setattr(kernels, "BLOCK_COLUMNS", block_columns)
     grid = Grid(shape, 1.0)
     from topo.elements import element_stiffness
 
@@ -58,6 +58,30 @@ def test_element_product_equals_the_assembled_matrix(shape, block_columns, monke
         u.astype(f), e.astype(f), ke.astype(f), free.astype(f), shape, np.empty(u.shape, f)
     )
     assert np.abs(y32 - a @ u).max() <= 1e-5 * np.abs(a @ u).max()
+
+
+def test_modal_form_rebuilds_the_element_matrix_and_is_sparse():
+    # k0 = B C Bᵀ with B the ±1 corner values of the eight modes (the Walsh–
+    # Hadamard basis of the trilinear element). For the isotropic cube the
+    # constant modes are rigid and the linear, bilinear and trilinear modes
+    # decouple (their derivatives are orthogonal polynomials on the cube), so C
+    # is block-diagonal and mostly zero: at most 48 of its 576 entries.
+    from topo.elements import element_stiffness
+    from topo.grid import H8_CORNERS
+
+    for nu in (0.0, 0.3, 0.45):
+        ke = element_stiffness(3, 2.0, nu, 7.0)
+        ptr, idx, val = kernels.modal_form(ke)
+        c = np.zeros((24, 24))
+        for r in range(24):
+            c[r, idx[ptr[r] : ptr[r + 1]]] = val[ptr[r] : ptr[r + 1]]
+        sign = 2.0 * H8_CORNERS - 1.0
+        powers = [((q >> 2) & 1, (q >> 1) & 1, q & 1) for q in range(8)]
+        phi = np.array([[np.prod(sign[a] ** np.array(p)) for p in powers] for a in range(8)])
+        b = np.kron(phi, np.eye(3))
+        assert np.abs(b @ c @ b.T - ke).max() <= 1e-13 * np.abs(ke).max()
+        assert len(val) <= 48
+        assert np.all(c[:3] == 0) and np.all(c[:, :3] == 0)  # translations are rigid
 
 
 def test_element_energies_and_values_equal_dense_products():

@@ -13,10 +13,13 @@ Python threads at once, so every call goes through `_LOCK`.
 
 from __future__ import annotations
 
+import functools
 import threading
 
 import numba as nb
 import numpy as np
+
+from .grid import H8_CORNERS
 
 # GNU OpenMP, which numba picks when it finds it, kills a process forked after a
 # parallel region ("fork() called from a process already using GNU OpenMP");
@@ -43,81 +46,123 @@ def _corner_offsets(ny1: int, nz1: int) -> np.ndarray:
 
 
 @nb.njit(**_JIT)
-def _element_product(u, moduli, k0, free, nx, ny, nz, y, um, ym, lines):
-    """y = D K D u + (I − D) u with K = Σ_e E_e k0 (D the 0/1 `free` mask).
-    um, ym: (columns, dofs) scratch holding D u and K D u column by column, so that
-    the gathers and scatters read one contiguous column. Per block of `lines`
-    lines of elements along z: gather E_e·u_e into the columns of a 24 × (lines·nz)
-    block, multiply by k0 four rows at a time, scatter back to the nodes. The
-    block's columns are the innermost loop, long enough to vectorise (a single
-    line of 50 elements is too short: measured 21 against 38 GFLOP/s in single
-    precision, DEVELOPERS.md "Matrix-free multigrid")."""
+def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym):
+    """y = D K D u + (I − D) u with K = Σ_e E_e k0, k0 = B C Bᵀ in the element's
+    modal basis (`modal_form`; C as CSR rows ptr, idx, val). um, ym: (columns, 3,
+    nodes) scratch holding D u and K D u by column and component, so every read
+    and write below is unit-stride along a z-line. Per z-line of elements and
+    component: the eight corner values of each element go to the eight modes
+    1, z, y, yz, x, xz, xy, xyz by three sum-and-difference stages (z, y, x;
+    a butterfly, as in a fast Walsh–Hadamard transform), scaled by E_e; C acts
+    on the 24 modal values; the inverse butterfly returns the corner values,
+    which are added to the four node lines in eight unit-stride passes. For the
+    isotropic cube C has 42 non-zeros of 576 (the constant modes are rigid, the
+    linear, bilinear and trilinear ones decouple), so the work is about a third
+    of the dense k0 product's and the passes vectorise along the line."""
     ny1, nz1 = ny + 1, nz + 1
-    offs = _corner_offsets(ny1, nz1)
     m = u.shape[1]
-    n = u.shape[0]
-    width = lines * nz
-    for d in nb.prange(n):
-        f = free[d]
-        for col in range(m):
-            um[col, d] = f * u[d, col]
-            ym[col, d] = 0.0
+    nn = u.shape[0] // 3
+    for node in nb.prange(nn):
+        for c in range(3):
+            d = 3 * node + c
+            f = free[d]
+            for col in range(m):
+                um[col, c, node] = f * u[d, col]
+                ym[col, c, node] = 0.0
     for colour in range(2):
         for ii in nb.prange((nx - colour + 1) // 2):
             i = 2 * ii + colour
-            ue = np.empty((24, width), dtype=k0.dtype)
-            acc = np.empty((24, width), dtype=k0.dtype)
-            for j0 in range(0, ny, lines):
-                nl = min(lines, ny - j0)
-                cols = nl * nz
+            w = np.empty((24, nz), dtype=val.dtype)
+            acc = np.empty((24, nz), dtype=val.dtype)
+            for j in range(ny):
+                el0 = (i * ny + j) * nz
+                b00 = (i * ny1 + j) * nz1
+                b01 = b00 + nz1
+                b10 = b00 + ny1 * nz1
+                b11 = b10 + nz1
                 for col in range(m):
-                    uc = um[col]
-                    yc = ym[col]
-                    for line in range(nl):
-                        el0 = (i * ny + j0 + line) * nz
-                        base = (i * ny1 + j0 + line) * nz1
-                        o = line * nz
-                        for a in range(8):
-                            d0 = 3 * (base + offs[a])
-                            r = 3 * a
+                    for c in range(3):
+                        uc = um[col, c]
+                        for k in range(nz):
+                            e = moduli[el0 + k]
+                            s00 = uc[b00 + k + 1] + uc[b00 + k]
+                            d00 = uc[b00 + k + 1] - uc[b00 + k]
+                            s01 = uc[b01 + k + 1] + uc[b01 + k]
+                            d01 = uc[b01 + k + 1] - uc[b01 + k]
+                            s10 = uc[b10 + k + 1] + uc[b10 + k]
+                            d10 = uc[b10 + k + 1] - uc[b10 + k]
+                            s11 = uc[b11 + k + 1] + uc[b11 + k]
+                            d11 = uc[b11 + k + 1] - uc[b11 + k]
+                            ss0 = e * (s01 + s00)
+                            ds0 = e * (s01 - s00)
+                            sd0 = e * (d01 + d00)
+                            dd0 = e * (d01 - d00)
+                            ss1 = e * (s11 + s10)
+                            ds1 = e * (s11 - s10)
+                            sd1 = e * (d11 + d10)
+                            dd1 = e * (d11 - d10)
+                            w[c, k] = ss1 + ss0
+                            w[3 + c, k] = sd1 + sd0
+                            w[6 + c, k] = ds1 + ds0
+                            w[9 + c, k] = dd1 + dd0
+                            w[12 + c, k] = ss1 - ss0
+                            w[15 + c, k] = sd1 - sd0
+                            w[18 + c, k] = ds1 - ds0
+                            w[21 + c, k] = dd1 - dd0
+                    for r in range(24):
+                        for k in range(nz):
+                            acc[r, k] = 0.0
+                        for p in range(ptr[r], ptr[r + 1]):
+                            s = idx[p]
+                            v = val[p]
                             for k in range(nz):
-                                e = moduli[el0 + k]
-                                d = d0 + 3 * k
-                                ue[r, o + k] = e * uc[d]
-                                ue[r + 1, o + k] = e * uc[d + 1]
-                                ue[r + 2, o + k] = e * uc[d + 2]
-                    for r0 in range(0, 24, 4):
-                        for k in range(cols):
-                            acc[r0, k] = 0.0
-                            acc[r0 + 1, k] = 0.0
-                            acc[r0 + 2, k] = 0.0
-                            acc[r0 + 3, k] = 0.0
-                        for s in range(24):
-                            w0 = k0[r0, s]
-                            w1 = k0[r0 + 1, s]
-                            w2 = k0[r0 + 2, s]
-                            w3 = k0[r0 + 3, s]
-                            for k in range(cols):
-                                v = ue[s, k]
-                                acc[r0, k] += w0 * v
-                                acc[r0 + 1, k] += w1 * v
-                                acc[r0 + 2, k] += w2 * v
-                                acc[r0 + 3, k] += w3 * v
-                    for line in range(nl):
-                        base = (i * ny1 + j0 + line) * nz1
-                        o = line * nz
-                        for a in range(8):
-                            d0 = 3 * (base + offs[a])
-                            r = 3 * a
-                            for k in range(nz):
-                                d = d0 + 3 * k
-                                yc[d] += acc[r, o + k]
-                                yc[d + 1] += acc[r + 1, o + k]
-                                yc[d + 2] += acc[r + 2, o + k]
-    for d in nb.prange(n):
-        f = free[d]
-        for col in range(m):
-            y[d, col] = f * ym[col, d] + (1.0 - f) * u[d, col]
+                                acc[r, k] += v * w[s, k]
+                    for c in range(3):
+                        for k in range(nz):
+                            a1 = acc[c, k] + acc[12 + c, k]
+                            a0 = acc[c, k] - acc[12 + c, k]
+                            b1 = acc[3 + c, k] + acc[15 + c, k]
+                            b0 = acc[3 + c, k] - acc[15 + c, k]
+                            g1 = acc[6 + c, k] + acc[18 + c, k]
+                            g0 = acc[6 + c, k] - acc[18 + c, k]
+                            h1 = acc[9 + c, k] + acc[21 + c, k]
+                            h0 = acc[9 + c, k] - acc[21 + c, k]
+                            # (cx, cy): the node line; p = z-sum part, q = z-difference part
+                            p11, q11 = a1 + g1, b1 + h1
+                            p10, q10 = a1 - g1, b1 - h1
+                            p01, q01 = a0 + g0, b0 + h0
+                            p00, q00 = a0 - g0, b0 - h0
+                            w[c, k] = p00 - q00
+                            w[3 + c, k] = p00 + q00
+                            w[6 + c, k] = p01 - q01
+                            w[9 + c, k] = p01 + q01
+                            w[12 + c, k] = p10 - q10
+                            w[15 + c, k] = p10 + q10
+                            w[18 + c, k] = p11 - q11
+                            w[21 + c, k] = p11 + q11
+                        yc = ym[col, c]
+                        for k in range(nz):
+                            yc[b00 + k] += w[c, k]
+                        for k in range(nz):
+                            yc[b00 + k + 1] += w[3 + c, k]
+                        for k in range(nz):
+                            yc[b01 + k] += w[6 + c, k]
+                        for k in range(nz):
+                            yc[b01 + k + 1] += w[9 + c, k]
+                        for k in range(nz):
+                            yc[b10 + k] += w[12 + c, k]
+                        for k in range(nz):
+                            yc[b10 + k + 1] += w[15 + c, k]
+                        for k in range(nz):
+                            yc[b11 + k] += w[18 + c, k]
+                        for k in range(nz):
+                            yc[b11 + k + 1] += w[21 + c, k]
+    for node in nb.prange(nn):
+        for c in range(3):
+            d = 3 * node + c
+            f = free[d]
+            for col in range(m):
+                y[d, col] = f * ym[col, c, node] + (1.0 - f) * u[d, col]
 
 
 @nb.njit(**_JIT)
@@ -369,23 +414,51 @@ def _coarse_stencil(
                                     out[node, i, slot, j] += kc[3 * a + i, 3 * b + j]
 
 
-# Columns of the element block in the product: about 400 keeps the block (24 rows
-# in and 24 out) within the first two cache levels and its loops long enough to
-# vectorise; measured best between 200 and 600 on 200×100×50.
-BLOCK_COLUMNS = 400
-
-
 def product_scratch(n_dofs: int, columns: int, dtype) -> tuple[np.ndarray, np.ndarray]:
     """The two (columns, n_dofs) work arrays of element_product."""
     return np.empty((columns, n_dofs), dtype), np.empty((columns, n_dofs), dtype)
 
 
+def modal_form(k0: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """k0 in the element's modal basis, C = Bᵀ k0 B / 64 (B: the ±1 values of the
+    modes 1, z, y, yz, x, xz, xy, xyz at the H8 corners, one per component;
+    BᵀB = 8 I, so k0 = B C Bᵀ), as CSR rows (ptr, idx, val in k0's dtype) with
+    its structural zeros dropped. Made per call: microseconds against a product."""
+    return _modal_form(k0.tobytes(), k0.dtype.str)
+
+
+@functools.lru_cache(maxsize=16)
+def _modal_form(raw: bytes, dtype: str):
+    k0 = np.frombuffer(raw, dtype=dtype).reshape(24, 24).astype(float)
+    sign = 2.0 * H8_CORNERS - 1.0  # corner coordinates as ±1
+    bits = [((q >> 2) & 1, (q >> 1) & 1, q & 1) for q in range(8)]  # (x, y, z) powers
+    phi = np.array([[np.prod(sign[a] ** np.array(b)) for b in bits] for a in range(8)])
+    b = np.kron(phi, np.eye(3))
+    c = b.T @ k0 @ b / 64.0
+    keep = np.abs(c) > 1e-12 * np.abs(c).max()
+    rows, cols = np.nonzero(keep)
+    ptr = np.searchsorted(rows, np.arange(25)).astype(np.int64)
+    return ptr, cols.astype(np.int64), c[rows, cols].astype(dtype)
+
+
 def element_product(u, moduli, k0, free, shape, out, scratch=None):
     """out = D K D u + (I − D) u; `scratch` from product_scratch (made when None)."""
     um, ym = scratch if scratch is not None else product_scratch(u.shape[0], u.shape[1], u.dtype)
-    lines = max(1, min(shape[1], BLOCK_COLUMNS // shape[2]))
+    m, n = u.shape[1], u.shape[0]
+    ptr, idx, val = modal_form(k0)
     with _LOCK:
-        _element_product(u, moduli, k0, free, *shape, out, um, ym, lines)
+        _modal_product(
+            u,
+            moduli,
+            ptr,
+            idx,
+            val,
+            free,
+            *shape,
+            out,
+            um.reshape(m, 3, n // 3),
+            ym.reshape(m, 3, n // 3),
+        )
     return out
 
 
