@@ -10,6 +10,7 @@ from topo import kernels
 from topo.coarsening import CoarseLevel
 from topo.fem import Model
 from topo.grid import Grid
+from topo.matrixfree import StencilOperator
 from topo.multigrid import Hierarchy, prolongation, prolongation_1d
 from topo.problem import problem_from_dict
 from topo.stencil import StencilAssembly
@@ -125,10 +126,18 @@ def test_coarse_stencils_equal_the_sparse_triple_products(size):
         coarse = CoarseLevel(m.grid.shape, m.ke, m._fixed, level)
         ours = stencil_matrix(coarse.node_shape, coarse.stencil(e))
         assert abs(ours - ref).max() <= 1e-12 * abs(ref).max()
-        # the node-stencil product equals the CSR product
-        u = np.random.default_rng(level).standard_normal((ref.shape[0], 1))
-        y = kernels.stencil_product(coarse.stencil(e), u, coarse.node_shape, np.empty_like(u))
-        assert np.allclose(y, ref @ u, rtol=0, atol=1e-12 * np.abs(ref @ u).max())
+        # the stencil product equals the CSR product, for one and three columns,
+        # in double and (to its round-off) single precision; the diagonal too
+        stencil = coarse.stencil(e)
+        op = StencilOperator(stencil, coarse.node_shape)
+        assert np.abs(op.diagonal() - ref.diagonal()).max() <= 1e-12 * abs(ref).max()
+        single = StencilOperator(stencil.astype(np.float32), coarse.node_shape)
+        for columns in (1, 3):
+            u = np.random.default_rng(level).standard_normal((ref.shape[0], columns))
+            y = kernels.stencil_product(stencil, u, coarse.node_shape, np.empty_like(u))
+            assert np.allclose(y, ref @ u, rtol=0, atol=1e-12 * np.abs(ref @ u).max())
+            y32 = single @ u.astype(np.float32)
+            assert np.abs(y32 - ref @ u).max() <= 1e-5 * np.abs(ref @ u).max()
 
 
 def test_chebyshev_smoother_follows_the_chebyshev_polynomial():

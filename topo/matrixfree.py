@@ -1,9 +1,10 @@
 """Matrix-free multigrid-CG for 3D structured grids.
 
 The fine operator is never assembled: K u = Σ_e E_e k0 u_e is applied element by
-element (kernels.element_product), and its diagonal, all that the smoother needs,
-comes the same way. The coarse levels are the Galerkin operators Pᵀ A P, written
-as node stencils straight from the fine moduli (coarsening.py); the coarsest is
+element (kernels.element_product, with k0 in the element's modal basis, where it
+is mostly zero), and its diagonal, all that the smoother needs, comes the same
+way. The coarse levels are the Galerkin operators Pᵀ A P, written as node
+stencils straight from the fine moduli (coarsening.py); the coarsest is
 factorised by sparse Cholesky. Grid transfers are applied as tensor products of
 1D interpolations, never stored as matrices. Memory is O(nodes) with a small
 constant: the fine level holds moduli and vectors only.
