@@ -46,7 +46,7 @@ def _corner_offsets(ny1: int, nz1: int) -> np.ndarray:
 
 
 @nb.njit(**_JIT)
-def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym):
+def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym, lines):
     """y = D K D u + (I − D) u with K = Σ_e E_e k0, k0 = B C Bᵀ in the element's
     modal basis (`modal_form`; C as CSR rows ptr, idx, val). um, ym: (columns, 3,
     nodes) scratch holding D u and K D u by column and component, so every read
@@ -58,7 +58,9 @@ def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym):
     which are added to the four node lines in eight unit-stride passes. For the
     isotropic cube C has 42 non-zeros of 576 (the constant modes are rigid, the
     linear, bilinear and trilinear ones decouple), so the work is about a third
-    of the dense k0 product's and the passes vectorise along the line."""
+    of the dense k0 product's and the passes vectorise along the line. The
+    lines are taken `lines` at a time as one run of node positions (a line of
+    50 elements is too short a loop to vectorise well)."""
     ny1, nz1 = ny + 1, nz + 1
     m = u.shape[1]
     nn = u.shape[0] // 3
@@ -72,19 +74,31 @@ def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym):
     for colour in range(2):
         for ii in nb.prange((nx - colour + 1) // 2):
             i = 2 * ii + colour
-            w = np.empty((24, nz), dtype=val.dtype)
-            acc = np.empty((24, nz), dtype=val.dtype)
-            for j in range(ny):
-                el0 = (i * ny + j) * nz
-                b00 = (i * ny1 + j) * nz1
+            width = lines * nz1
+            w = np.empty((24, width), dtype=val.dtype)
+            acc = np.empty((24, width), dtype=val.dtype)
+            e_at = np.empty(width, dtype=val.dtype)
+            for j0 in range(0, ny, lines):
+                nl = min(lines, ny - j0)
+                # positions t run over the nodes of nl lines from (i, j0, 0): the
+                # element at t has its corner 0 there; the top node of a line has
+                # none (modulus 0, so it adds zeros), the block's last is left out
+                count = nl * nz1 - 1
+                for line in range(nl):
+                    el0 = (i * ny + j0 + line) * nz
+                    for k in range(nz):
+                        e_at[line * nz1 + k] = moduli[el0 + k]
+                    if line < nl - 1:
+                        e_at[line * nz1 + nz] = 0.0
+                b00 = (i * ny1 + j0) * nz1
                 b01 = b00 + nz1
                 b10 = b00 + ny1 * nz1
                 b11 = b10 + nz1
                 for col in range(m):
                     for c in range(3):
                         uc = um[col, c]
-                        for k in range(nz):
-                            e = moduli[el0 + k]
+                        for k in range(count):
+                            e = e_at[k]
                             s00 = uc[b00 + k + 1] + uc[b00 + k]
                             d00 = uc[b00 + k + 1] - uc[b00 + k]
                             s01 = uc[b01 + k + 1] + uc[b01 + k]
@@ -110,15 +124,15 @@ def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym):
                             w[18 + c, k] = ds1 - ds0
                             w[21 + c, k] = dd1 - dd0
                     for r in range(24):
-                        for k in range(nz):
+                        for k in range(count):
                             acc[r, k] = 0.0
                         for p in range(ptr[r], ptr[r + 1]):
                             s = idx[p]
                             v = val[p]
-                            for k in range(nz):
+                            for k in range(count):
                                 acc[r, k] += v * w[s, k]
                     for c in range(3):
-                        for k in range(nz):
+                        for k in range(count):
                             a1 = acc[c, k] + acc[12 + c, k]
                             a0 = acc[c, k] - acc[12 + c, k]
                             b1 = acc[3 + c, k] + acc[15 + c, k]
@@ -141,21 +155,21 @@ def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym):
                             w[18 + c, k] = p11 - q11
                             w[21 + c, k] = p11 + q11
                         yc = ym[col, c]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b00 + k] += w[c, k]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b00 + k + 1] += w[3 + c, k]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b01 + k] += w[6 + c, k]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b01 + k + 1] += w[9 + c, k]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b10 + k] += w[12 + c, k]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b10 + k + 1] += w[15 + c, k]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b11 + k] += w[18 + c, k]
-                        for k in range(nz):
+                        for k in range(count):
                             yc[b11 + k + 1] += w[21 + c, k]
     for node in nb.prange(nn):
         for c in range(3):
@@ -414,6 +428,12 @@ def _coarse_stencil(
                                     out[node, i, slot, j] += kc[3 * a + i, 3 * b + j]
 
 
+# Node positions per run of the modal product: several z-lines at once, so that
+# its loops are long enough to vectorise; measured in DEVELOPERS.md, "Matrix-free
+# multigrid".
+BLOCK_POSITIONS = 200
+
+
 def product_scratch(n_dofs: int, columns: int, dtype) -> tuple[np.ndarray, np.ndarray]:
     """The two (columns, n_dofs) work arrays of element_product."""
     return np.empty((columns, n_dofs), dtype), np.empty((columns, n_dofs), dtype)
@@ -458,6 +478,7 @@ def element_product(u, moduli, k0, free, shape, out, scratch=None):
             out,
             um.reshape(m, 3, n // 3),
             ym.reshape(m, 3, n // 3),
+            max(1, min(shape[1], BLOCK_POSITIONS // (shape[2] + 1))),
         )
     return out
 

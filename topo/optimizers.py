@@ -99,12 +99,13 @@ class OptimalityCriteria:
             return out
 
         linear = lambda lam: volume + float(dva @ step(lam)) - held - target
-        lam = _bisect(linear, 1e-12, 1e12, rtol=1e-12)
-        if exact_volume is not None:
+        if exact_volume is None:  # the linearised budget is the budget: meet it exactly
+            lam = _bisect(linear, 1e-12, 1e12, rtol=1e-12)
+        else:  # it is the model of the exact search: its root to the model's tolerance
+            floor = _all_at_upper(xa, ratio, hi, self.damping)
+            guess = _bracketed_root(linear, 1.0, MODEL_ATOL, floor=floor)
             exact = lambda lam_: exact_volume(full(step(lam_))) - target
-            lam = _bracketed_root(
-                exact, lam, floor=_all_at_upper(xa, ratio, hi, self.damping), model=linear
-            )
+            lam = _bracketed_root(exact, guess, floor=floor, model=linear)
         xn = step(lam)
         if self.adaptive:
             delta = xn - xa
