@@ -30,8 +30,8 @@ MF_BYTES_PER_ELEMENT = 650
 MF_BYTES_PER_DOF_CASE = 130
 MF_BYTES_FIXED = 250 * 2**20  # interpreter, numpy, scipy, numba and its compiled code
 MF_CG_ITERATIONS = 10
-MF_CG_SECONDS_PER_ELEMENT_CASE = 0.55e-6
-MF_REBUILD_SECONDS_PER_ELEMENT = 0.6e-6
+MF_CG_SECONDS_PER_ELEMENT_CASE = 0.47e-6
+MF_REBUILD_SECONDS_PER_ELEMENT = 0.99e-6
 
 
 def estimate(problem: Problem) -> dict:
