@@ -36,8 +36,12 @@ def stencil_matrix(node_shape, stencil):
     # slab, a single element along z
     [(6, 5, 4), (7, 3, 5), (5, 7, 3), (1, 2, 3), (4, 3, 1)],
 )
-def test_element_product_equals_the_assembled_matrix(shape):
+# node positions per run: one line at a time, several lines with a partial last
+# run (ny not a multiple of the lines per run), every line of a slab in one run
+@pytest.mark.parametrize("positions", [1, 7, 13, 200])
+def test_element_product_equals_the_assembled_matrix(shape, positions, monkeypatch):
     # scipy's CSR product with the node-stencil matrix (supports as identity rows)
+    monkeypatch.setattr(kernels, "BLOCK_POSITIONS", positions)
     grid = Grid(shape, 1.0)
     from topo.elements import element_stiffness
 

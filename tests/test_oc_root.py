@@ -97,3 +97,60 @@ def test_oc_step_meets_the_exact_budget():
     xn = oc.update(x, dc, float(dv @ x), dv, 0.45, exact_volume=volume)
     assert abs(volume(xn) - 0.45) < ATOL
     assert np.all(np.abs(xn - x) <= 0.2 + 1e-12)
+
+
+def _saturating(floor: float, value_below: float, slope: float = 0.05):
+    """A decreasing budget that is constant below `floor` (every element at its
+    upper move limit there) and falls slowly above it, as when elements of tiny
+    sensitivity put the floor many decades below the linearised multiplier."""
+
+    def f(lam):
+        return value_below - slope * np.log(max(lam, floor) / floor)
+
+    return f
+
+
+def test_far_floor_out_of_reach_is_found_in_few_evaluations():
+    # the exact budget is negative down to a floor 15 decades down while the
+    # model (wrongly) promises a root near the guess: the floor is tried after
+    # SEARCH_STEPS steps instead of stepping down by 4 to the evaluation limit
+    floor = 1e-15
+    f = Counted(lambda lam: -0.01 - 0.001 * np.log(max(lam, floor) / floor))
+    lam = _bracketed_root(f, 1.0, atol=ATOL, floor=floor, model=lambda lam: -0.2 * np.log(lam))
+    assert lam == floor
+    assert f.calls <= 12
+
+
+def test_root_just_above_a_far_floor_is_bracketed_from_the_floor():
+    # f(floor) > 0 and the root lies a little above the floor: the floor's value
+    # becomes the lower end of the bracket; checked against brentq
+    floor = 1e-12
+    g = _saturating(floor, 0.02)
+    reference = brentq(g, floor, 1.0, xtol=1e-30)
+    f = Counted(g)
+    lam = _bracketed_root(f, 1.0, atol=ATOL, floor=floor, model=lambda lam: -0.2 * np.log(lam))
+    assert abs(g(lam)) < ATOL
+    assert abs(np.log(lam / reference)) < 1e-4
+    assert f.calls <= 25
+
+
+def test_too_much_material_at_every_multiplier_ends_in_bounded_evaluations():
+    # the budget stays exceeded even with every element at its lower limit
+    # (f > 0 for all λ): the search stops after SEARCH_STEPS widenings and one
+    # try far above, instead of using all 60 evaluations
+    f = Counted(lambda lam: 0.05 + 0.1 / (1.0 + lam))
+    lam = _bracketed_root(f, 1.0, atol=ATOL, floor=1e-3, model=lambda lam: -np.log(lam))
+    assert f(lam) > 0 and lam > 1e6
+    assert f.calls <= 15
+
+
+def test_oc_step_with_no_element_able_to_grow_skips_the_search():
+    # every design element at zero density: no λ changes the step (each stays at
+    # its lower move limit), so the exact budget is not evaluated at all
+    n = 50
+    x = np.zeros(n)
+    calls = []
+    volume = lambda xn: calls.append(1) or float(xn.mean())
+    oc = OptimalityCriteria(np.ones(n, bool), move=0.2)
+    xn = oc.update(x, -np.ones(n), 0.0, np.full(n, 1.0 / n), 0.3, exact_volume=volume)
+    assert np.all(xn == 0.0) and not calls

@@ -56,7 +56,7 @@ def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym, lines)
     a butterfly, as in a fast Walsh–Hadamard transform), scaled by E_e; C acts
     on the 24 modal values; the inverse butterfly returns the corner values,
     which are added to the four node lines in eight unit-stride passes. For the
-    isotropic cube C has 42 non-zeros of 576 (the constant modes are rigid, the
+    isotropic cube C has 45 non-zeros of 576 (33 at ν = 0) (the constant modes are rigid, the
     linear, bilinear and trilinear ones decouple), so the work is about a third
     of the dense k0 product's and the passes vectorise along the line. The
     lines are taken `lines` at a time as one run of node positions (a line of

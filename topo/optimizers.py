@@ -103,9 +103,12 @@ class OptimalityCriteria:
             lam = _bisect(linear, 1e-12, 1e12, rtol=1e-12)
         else:  # it is the model of the exact search: its root to the model's tolerance
             floor = _all_at_upper(xa, ratio, hi, self.damping)
-            guess = _bracketed_root(linear, 1.0, MODEL_ATOL, floor=floor)
-            exact = lambda lam_: exact_volume(full(step(lam_))) - target
-            lam = _bracketed_root(exact, guess, floor=floor, model=linear)
+            if floor == 0.0:  # no element can move up: every λ gives the same step
+                lam = 1.0
+            else:
+                guess = _bracketed_root(linear, 1.0, MODEL_ATOL, floor=floor)
+                exact = lambda lam_: exact_volume(full(step(lam_))) - target
+                lam = _bracketed_root(exact, guess, floor=floor, model=linear)
         xn = step(lam)
         if self.adaptive:
             delta = xn - xa
@@ -142,10 +145,24 @@ def _all_at_upper(xa: np.ndarray, ratio: np.ndarray, hi: np.ndarray, damping: fl
     return float(reach.min()) * (1.0 - 1e-9)  # strictly inside: clipped despite round-off
 
 
-SEARCH_STEPS = 6  # steps of 4 below the linearised multiplier before the floor is tried
+# evaluations away from the guess (after the first two) before the floor
+# (downwards) or the all-at-lower-limit multiplier (upwards) is tried
+SEARCH_STEPS = 6
 # The shifted linear model's root is only a trial point of the exact search, so it
 # needs no more accuracy than the exact one's tolerance.
 MODEL_ATOL = 1e-8
+
+
+def _remembered(f: Callable[[float], float]) -> Callable[[float], float]:
+    seen: dict[float, float] = {}
+
+    def once(lam: float) -> float:
+        key = float(lam)
+        if key not in seen:
+            seen[key] = f(key)
+        return seen[key]
+
+    return once
 
 
 def _bracketed_root(
@@ -168,6 +185,7 @@ def _bracketed_root(
     regula falsi ends in a few evaluations of f (measured: DEVELOPERS.md,
     "Estimates of memory and time"); otherwise the search widens as without a
     model."""
+    f = _remembered(f)  # the search may come back to a λ (the floor): one evaluation
     if model is None:
         a, b = guess / 1.5, guess * 1.5
         fa, fb = f(a), f(b)
@@ -177,7 +195,8 @@ def _bracketed_root(
         if abs(fg) < atol:
             return float(guess)
         offset = fg - model(guess)
-        trial = max(_bracketed_root(lambda lam: model(lam) + offset, guess, MODEL_ATOL), floor)
+        shifted = lambda lam: model(lam) + offset
+        trial = max(_bracketed_root(shifted, guess, MODEL_ATOL, floor=floor), floor)
         ft = f(trial)
         evals = 2
         if abs(ft) < atol:
@@ -208,19 +227,28 @@ def _bracketed_root(
     while fa < 0 and evals < max_evals:  # root lies below a
         if a <= floor:
             return float(floor)  # f(floor) < 0: no multiplier meets the budget
-        if a / 4 <= floor:
-            at_floor = f(floor)  # = f(a / 4): the step is the same below the floor
-            if at_floor < 0:
+        b, fb = a, fa
+        # the next step passes the floor, or the search has gone far from the
+        # guess already (elements of tiny sensitivity put the floor many decades down
+        # while f barely moves on the way): try the floor, once
+        if floor > 0 and (a / 4 <= floor or evals >= SEARCH_STEPS + 2):
+            a, fa = floor, f(floor)  # = f(λ) for every λ below the floor
+            evals += 1
+            if fa < 0:
                 return float(floor)
-            a, fa = a / 4, at_floor
-        else:
-            a, fa = a / 4, f(a / 4)
+            break
+        a, fa = a / 4, f(a / 4)
         evals += 1
-        # far below the guess already: try the floor once, since elements of tiny
-        # sensitivity put it many decades down while f barely moves on the way
-        if evals == SEARCH_STEPS + 2 and fa < 0 and floor > 0 and f(floor) < 0:
-            return float(floor)
-    while fb > 0 and evals < max_evals:
+    while fb > 0 and evals < max_evals:  # root lies above b
+        a, fa = b, fb
+        if evals >= SEARCH_STEPS + 2:
+            # far from the guess: try where every element sits at (or, with a
+            # zero lower limit, within a millionth of) its lower limit, once
+            b, fb = b * 1e12, f(b * 1e12)
+            evals += 1
+            if fb > 0:
+                return float(b)  # too much material even there: the least reachable
+            break
         b, fb = b * 4, f(b * 4)
         evals += 1
     la, lb = np.log(a), np.log(b)
