@@ -103,8 +103,8 @@ class OptimalityCriteria:
             lam = _bisect(linear, 1e-12, 1e12, rtol=1e-12)
         else:  # it is the model of the exact search: its root to the model's tolerance
             floor = _all_at_upper(xa, ratio, hi, self.damping)
-            if floor == 0.0:  # no element can move up: every λ gives the same step
-                lam = 1.0
+            if not np.any((ratio > 0) & (xa > 0)):  # no element can grow: every λ
+                lam = 1.0  # gives the same step (a floor of 0 may also be underflow)
             else:
                 guess = _bracketed_root(linear, 1.0, MODEL_ATOL, floor=floor)
                 exact = lambda lam_: exact_volume(full(step(lam_))) - target
