@@ -155,22 +155,10 @@ def _modal_product(u, moduli, ptr, idx, val, free, nx, ny, nz, y, um, ym, lines)
                             w[18 + c, k] = p11 - q11
                             w[21 + c, k] = p11 + q11
                         yc = ym[col, c]
-                        for k in range(count):
-                            yc[b00 + k] += w[c, k]
-                        for k in range(count):
-                            yc[b00 + k + 1] += w[3 + c, k]
-                        for k in range(count):
-                            yc[b01 + k] += w[6 + c, k]
-                        for k in range(count):
-                            yc[b01 + k + 1] += w[9 + c, k]
-                        for k in range(count):
-                            yc[b10 + k] += w[12 + c, k]
-                        for k in range(count):
-                            yc[b10 + k + 1] += w[15 + c, k]
-                        for k in range(count):
-                            yc[b11 + k] += w[18 + c, k]
-                        for k in range(count):
-                            yc[b11 + k + 1] += w[21 + c, k]
+                        for a in range(8):  # corner (cx, cy, cz) = bits of a
+                            start = b00 + (a >> 2) * ny1 * nz1 + ((a >> 1) & 1) * nz1 + (a & 1)
+                            for k in range(count):
+                                yc[start + k] += w[3 * a + c, k]
     for node in nb.prange(nn):
         for c in range(3):
             d = 3 * node + c
@@ -443,7 +431,8 @@ def modal_form(k0: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """k0 in the element's modal basis, C = Bᵀ k0 B / 64 (B: the ±1 values of the
     modes 1, z, y, yz, x, xz, xy, xyz at the H8 corners, one per component;
     BᵀB = 8 I, so k0 = B C Bᵀ), as CSR rows (ptr, idx, val in k0's dtype) with
-    its structural zeros dropped. Made per call: microseconds against a product."""
+    its structural zeros dropped. Remembered per k0 (cached on its bytes), so each
+    product pays only for the lookup."""
     return _modal_form(k0.tobytes(), k0.dtype.str)
 
 
