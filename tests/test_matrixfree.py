@@ -104,7 +104,7 @@ def test_element_energies_and_values_equal_dense_products():
     assert np.allclose(values, np.einsum("si,eic->esc", b, ue), rtol=1e-13, atol=1e-15)
 
 
-@pytest.mark.parametrize("shape", [(6, 4, 5), (9, 5, 7)])
+@pytest.mark.parametrize("shape", [(6, 4, 5), (9, 5, 7), (1, 3, 2)])
 def test_transfers_equal_the_sparse_prolongation(shape):
     p, coarse = prolongation(shape)
     factors = [prolongation_1d(n) for n in shape]
@@ -115,6 +115,17 @@ def test_transfers_equal_the_sparse_prolongation(shape):
     assert np.allclose(fine, p @ uc, rtol=0, atol=1e-14)
     back = kernels.tensor_apply([f.T.tocsr() for f in factors], uf, np.empty((p.shape[1], 2)))
     assert np.allclose(back, p.T @ uf, rtol=0, atol=1e-13)
+    # one kept pair of work arrays serves both directions; the residual formed in
+    # the restriction's first pass and the prolongation added to a vector
+    scratch = kernels.transfer_scratch(factors, 2, np.float64)
+    ff = rng.standard_normal(uf.shape)
+    restricted = kernels.tensor_apply(
+        [f.T.tocsr() for f in factors], uf, np.empty((p.shape[1], 2)), scratch, minus=ff
+    )
+    assert np.allclose(restricted, p.T @ (uf - ff), rtol=0, atol=1e-13)
+    start = ff.copy()
+    kernels.tensor_apply(factors, uc, start, scratch, add=True)
+    assert np.allclose(start, ff + p @ uc, rtol=0, atol=1e-13)
 
 
 @pytest.mark.parametrize("size", [[16.0, 8.0, 8.0], [15.0, 7.0, 9.0]])

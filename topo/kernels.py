@@ -318,36 +318,29 @@ def _chebyshev_step(res, ad, d, x, inv_diag, c_d, c_r):
 
 
 @nb.njit(**_JIT)
-def _tensor_apply(
-    ax_ptr, ax_idx, ax_val, ay_ptr, ay_idx, ay_val, az_ptr, az_idx, az_val, ny_in, nz_in, u, y
-):
-    """y = (Ax ⊗ Ay ⊗ Az ⊗ I₃) u for three 1D sparse matrices in CSR arrays: the
-    grid transfers (prolongation P, restriction Pᵀ) without forming them."""
-    nx_out, ny_out, nz_out = len(ax_ptr) - 1, len(ay_ptr) - 1, len(az_ptr) - 1
-    m = u.shape[1]
-    for x in nb.prange(nx_out):
-        for yy in range(ny_out):
-            for z in range(nz_out):
-                n = (x * ny_out + yy) * nz_out + z
-                for col in range(m):
-                    s0 = 0.0
-                    s1 = 0.0
-                    s2 = 0.0
-                    for p in range(ax_ptr[x], ax_ptr[x + 1]):
-                        wx = ax_val[p]
-                        bx = ax_idx[p] * ny_in
-                        for q in range(ay_ptr[yy], ay_ptr[yy + 1]):
-                            wxy = wx * ay_val[q]
-                            bxy = (bx + ay_idx[q]) * nz_in
-                            for r in range(az_ptr[z], az_ptr[z + 1]):
-                                w = wxy * az_val[r]
-                                d = 3 * (bxy + az_idx[r])
-                                s0 += w * u[d, col]
-                                s1 += w * u[d + 1, col]
-                                s2 += w * u[d + 2, col]
-                    y[3 * n, col] = s0
-                    y[3 * n + 1, col] = s1
-                    y[3 * n + 2, col] = s2
+def _axis_apply(ptr, idx, val, u, minus, subtract, out, add):
+    """out[o, i, :] (+)= Σ_p val[p] · (u − minus)[o, idx[p], :] over the entries p
+    of row i of a 1D CSR matrix: one axis of a tensor-product grid transfer.
+    The trailing axis is contiguous, so every pass is unit-stride. `subtract`:
+    read u − minus (a residual formed on the fly); `add`: add to out."""
+    outer, n_out, inner = out.shape
+    for oi in nb.prange(outer * n_out):
+        o = oi // n_out
+        i = oi - o * n_out
+        dst = out[o, i]
+        if not add:
+            for k in range(inner):
+                dst[k] = 0.0
+        for p in range(ptr[i], ptr[i + 1]):
+            w = val[p]
+            src = u[o, idx[p]]
+            if subtract:
+                off = minus[o, idx[p]]
+                for k in range(inner):
+                    dst[k] += w * (src[k] - off[k])
+            else:
+                for k in range(inner):
+                    dst[k] += w * src[k]
 
 
 @nb.njit(**_JIT)
@@ -511,13 +504,64 @@ def chebyshev_step(res, ad, d, x, inv_diag, c_d, c_r):
     return ad
 
 
-def tensor_apply(factors, u, out):
-    """`factors`: three scipy CSR matrices (x, y, z)."""
-    args = []
-    for f in factors:
-        args += [f.indptr, f.indices, f.data]
+def transfer_scratch(factors, columns: int, dtype) -> tuple[np.ndarray, np.ndarray]:
+    """The two work arrays `tensor_apply` needs for these factors, in either
+    direction (its middle results: about a half and a quarter of the fine vector)."""
+    (nxo, nxi), (nyo, nyi), (nzo, nzi) = (f.shape for f in factors)
+    nxf, nyf = max(nxo, nxi), max(nyo, nyi)
+    nyc, nzc = min(nyo, nyi), min(nzo, nzi)
+    # restriction: z, y, x (fine x·fine y·coarse z, then fine x·coarse y·coarse z);
+    # prolongation: x, y, z (fine x·coarse y·coarse z, then fine x·fine y·coarse z)
+    half = nxf * nyf * nzc * 3 * columns
+    quarter = nxf * nyc * nzc * 3 * columns
+    return np.empty(max(half, quarter), dtype), np.empty(min(half, quarter), dtype)
+
+
+def tensor_apply(factors, u, out, scratch=None, minus=None, add=False):
+    """out (+)= (Ax ⊗ Ay ⊗ Az ⊗ I₃)(u − minus) for three 1D sparse matrices
+    (scipy CSR, x, y, z): the grid transfers (prolongation P, restriction Pᵀ)
+    without forming them, one axis at a time, the shrinking axes first so the
+    middle results stay small. `scratch`: transfer_scratch's arrays."""
+    ax, ay, az = factors
+    (nxo, nxi), (nyo, nyi), (nzo, nzi) = ax.shape, ay.shape, az.shape
+    c = 3 * u.shape[1]
+    if scratch is None:
+        scratch = transfer_scratch(factors, u.shape[1], u.dtype)
+    big, small = scratch
+    sub = minus is not None
+    minus = u if minus is None else minus
     with _LOCK:
-        _tensor_apply(*args, factors[1].shape[1], factors[2].shape[1], u, out)
+        if nxo * nyo * nzo <= nxi * nyi * nzi:  # restriction: z, y, x
+            t1 = big[: nxi * nyi * nzo * c].reshape(nxi * nyi, nzo, c)
+            t2 = small[: nxi * nyo * nzo * c].reshape(nxi, nyo, nzo * c)
+            shape_in = (nxi * nyi, nzi, c)
+            _axis_apply(
+                az.indptr,
+                az.indices,
+                az.data,
+                u.reshape(shape_in),
+                minus.reshape(shape_in),
+                sub,
+                t1,
+                False,
+            )
+            t1 = t1.reshape(nxi, nyi, nzo * c)
+            _axis_apply(ay.indptr, ay.indices, ay.data, t1, t1, False, t2, False)
+            t2 = t2.reshape(1, nxi, nyo * nzo * c)
+            _axis_apply(ax.indptr, ax.indices, ax.data, t2, t2, False, out.reshape(1, nxo, -1), add)
+        else:  # prolongation: x, y, z
+            if sub:
+                raise ValueError("minus is for restrictions")
+            t1 = small[: nxo * nyi * nzi * c].reshape(1, nxo, nyi * nzi * c)
+            t2 = big[: nxo * nyo * nzi * c].reshape(nxo, nyo, nzi * c)
+            u1 = u.reshape(1, nxi, nyi * nzi * c)
+            _axis_apply(ax.indptr, ax.indices, ax.data, u1, u1, False, t1, False)
+            t1 = t1.reshape(nxo, nyi, nzi * c)
+            _axis_apply(ay.indptr, ay.indices, ay.data, t1, t1, False, t2, False)
+            t2 = t2.reshape(nxo * nyo, nzi, c)
+            _axis_apply(
+                az.indptr, az.indices, az.data, t2, t2, False, out.reshape(nxo * nyo, nzo, c), add
+            )
     return out
 
 

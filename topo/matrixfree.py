@@ -168,7 +168,8 @@ class StencilOperator:
 
 class Transfer:
     """Prolongation from a grid of `shape`'s coarse grid to it, and restriction
-    (its transpose), as tensor products of 1D interpolations."""
+    (its transpose), as tensor products of 1D interpolations applied one axis at
+    a time (kernels.tensor_apply) into kept work arrays."""
 
     def __init__(self, shape: tuple[int, int, int]):
         self._p = [prolongation_1d(n) for n in shape]
@@ -176,14 +177,25 @@ class Transfer:
         self._r32 = [f.T.tocsr() for f in self._p32]
         self.fine_n = 3 * int(np.prod([f.shape[0] for f in self._p]))
         self.coarse_n = 3 * int(np.prod([f.shape[1] for f in self._p]))
+        self._scratch: dict = {}  # (columns, dtype) -> kernels.transfer_scratch
 
-    def prolong(self, x: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+    def _work(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        key = (x.shape[1], x.dtype)
+        if key not in self._scratch:
+            self._scratch[key] = kernels.transfer_scratch(self._p32, x.shape[1], x.dtype)
+        return self._scratch[key]
+
+    def prolong(self, x: np.ndarray, out: np.ndarray | None = None, add: bool = False):
+        """P x, into `out` (added to it with `add`)."""
         if out is None:
             out = np.empty((self.fine_n, x.shape[1]), x.dtype)
-        return kernels.tensor_apply(self._p32, x, out)
+        return kernels.tensor_apply(self._p32, x, out, self._work(x), add=add)
 
-    def restrict(self, x: np.ndarray) -> np.ndarray:
-        return kernels.tensor_apply(self._r32, x, np.empty((self.coarse_n, x.shape[1]), x.dtype))
+    def restrict(self, x: np.ndarray, minus: np.ndarray | None = None, out=None):
+        """Pᵀ x, or Pᵀ (x − minus) formed in the same pass."""
+        if out is None:
+            out = np.empty((self.coarse_n, x.shape[1]), x.dtype)
+        return kernels.tensor_apply(self._r32, x, out, self._work(x), minus=minus)
 
 
 def level_shapes(shape: tuple[int, ...], coarse_dofs: int) -> list[tuple[int, ...]]:
@@ -285,7 +297,7 @@ class MatrixFreeCG(LinearSystem):
         self.name = f"matrix-free multigrid-cg ({self.levels} levels)"
         self._warm: np.ndarray | None = None
         self._first_solve = False
-        self._buffers: dict = {}  # (level, shape) -> work arrays of cycle()
+        self._buffers: dict = {}  # (level, name) -> work arrays of the cycles
 
     # ------------------------------------------------------------------ assemble
     def assemble(self, moduli: np.ndarray, timer: Timer | None = None) -> None:
@@ -333,37 +345,38 @@ class MatrixFreeCG(LinearSystem):
         self.coarse.factorize(a)
 
     # ------------------------------------------------------------------ cycles
-    def _work(self, level: int, shape: tuple[int, ...]) -> tuple[np.ndarray, ...]:
-        """The level's kept single-precision work arrays of `shape`: the
-        smoother's direction and two product arrays (dead between cycles, so
-        reused by every cycle of the level); on the fine level also the cycle's
-        result and the single-precision copy of pcg's residual, which pcg
-        consumes before it asks for the next cycle."""
-        key = (level, shape)
-        if key not in self._buffers:
-            self._buffers = {k: v for k, v in self._buffers.items() if k[0] != level}
-            count = 5 if level == 0 else 3
-            self._buffers[key] = tuple(np.empty(shape, SINGLE) for _ in range(count))
-        return self._buffers[key]
+    def _buffer(self, level: int, name: str, shape: tuple[int, ...]) -> np.ndarray:
+        """A kept single-precision work array of the level. Every array of a
+        level is dead once the level's cycle has returned and its caller has
+        used the result, so the cycles reuse them and no vector is allocated
+        per cycle (fresh pages cost more than the pass that fills them: the
+        coarse levels' allocations took 1.5 s per design iteration of the
+        5.76-million-element bracket). A change of column count replaces them."""
+        buf = self._buffers.get((level, name))
+        if buf is None or buf.shape != shape:
+            buf = self._buffers[(level, name)] = np.empty(shape, SINGLE)
+        return buf
 
-    def cycle(self, r: np.ndarray, level: int = 0) -> np.ndarray:
-        """One multigrid cycle for A z = r at `level` (single precision). The
-        fine level's z is a kept array, overwritten by the next fine cycle."""
+    def cycle(self, r: np.ndarray, level: int = 0, slot: int = 0) -> np.ndarray:
+        """One multigrid cycle for A z = r at `level` (single precision). z is a
+        kept array (one of two, by `slot`, so the K-cycle can hold both of its
+        cycles' results), overwritten by the level's next cycle of that slot."""
         if level == self.levels - 1:
-            return np.asarray(self.coarse.solve(r.astype(float)), dtype=SINGLE).reshape(r.shape)
+            x = self.coarse.solve(r.astype(float))  # CHOLMOD answers in Fortran order
+            return np.ascontiguousarray(x, dtype=SINGLE).reshape(r.shape)
         a, d, lam = self.operators[level], self.inv_diag[level], self.lam[level]
-        work = self._work(level, r.shape)
-        out = work[3] if level == 0 else None
-        z = chebyshev(a, d, r, None, lam, self.degree, self.ratio, work[:3], out)
+        work = tuple(self._buffer(level, name, r.shape) for name in ("d", "first", "second"))
+        out = self._buffer(level, f"z{slot}", r.shape)
+        z = chebyshev(a, d, r, None, lam, self.degree, self.ratio, work, out)
         t = self.transfers[level]
-        az = _apply(a, z, work[1])
-        rc = t.restrict(np.subtract(r, az, out=az))
+        coarse_shape = (t.coarse_n, r.shape[1])
+        rc = t.restrict(r, _apply(a, z, work[1]), self._buffer(level + 1, "b", coarse_shape))
         if self.krylov_from <= level + 1 < self.levels - 1:
             ec = self.kcycle(rc, level + 1)
         else:
             ec = self.cycle(rc, level + 1)
-        z += t.prolong(ec, work[1])
-        return chebyshev(a, d, r, z, lam, self.degree, self.ratio, work[:3])
+        t.prolong(ec, z, add=True)
+        return chebyshev(a, d, r, z, lam, self.degree, self.ratio, work)
 
     def kcycle(self, b: np.ndarray, level: int) -> np.ndarray:
         """Two flexible-CG steps on A x = b preconditioned by `cycle` (Notay &
@@ -371,17 +384,18 @@ class MatrixFreeCG(LinearSystem):
         vector work is three fused passes (vectorkernels.py): r = b − α₁ v₁ with
         its norm, the three dot products of c₂, and x = (α₁ − α₂γ/ρ₁) c₁ + α₂ c₂."""
         a = self.operators[level]
-        c1 = self.cycle(b, level)
-        v1 = a @ c1
+        c1 = self.cycle(b, level, 0)
+        v1 = _apply(a, c1, self._buffer(level, "v1", b.shape))
         rho1 = _dots(c1, v1)
         a1 = _dots(c1, b) / rho1
-        r = np.empty_like(b)
+        r = self._buffer(level, "r", b.shape)
         rr = vectorkernels.scaled_difference(b, v1, a1, r)
         if np.all(rr <= KRYLOV_SKIP**2 * _dots(b, b)):
             c1 *= a1.astype(SINGLE)
             return c1
-        c2 = self.cycle(r, level)
-        gamma, beta, alpha2 = vectorkernels.column_dots3(c2, v1, a @ c2, r)
+        c2 = self.cycle(r, level, 1)
+        ac2 = _apply(a, c2, self._buffer(level, "ac2", b.shape))
+        gamma, beta, alpha2 = vectorkernels.column_dots3(c2, v1, ac2, r)
         rho2 = beta - gamma**2 / rho1
         a2 = alpha2 / rho2
         vectorkernels.combine(c1, a1 - a2 * gamma / rho1, c2, a2)
@@ -390,7 +404,7 @@ class MatrixFreeCG(LinearSystem):
     def precondition(self, r: np.ndarray) -> np.ndarray:
         """One cycle on r; z stays in single precision (pcg's compiled passes
         read it as it is, so no double-precision copy is made)."""
-        r32 = self._work(0, r.shape)[4]
+        r32 = self._buffer(0, "residual", r.shape)
         np.copyto(r32, r)
         return self.cycle(r32)
 
