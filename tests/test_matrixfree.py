@@ -104,28 +104,93 @@ def test_element_energies_and_values_equal_dense_products():
     assert np.allclose(values, np.einsum("si,eic->esc", b, ue), rtol=1e-13, atol=1e-15)
 
 
-@pytest.mark.parametrize("shape", [(6, 4, 5), (9, 5, 7), (1, 3, 2)])
-def test_transfers_equal_the_sparse_prolongation(shape):
+@pytest.mark.parametrize("shape", [(6, 4, 5), (9, 5, 7), (1, 3, 2), (7, 3, 1), (1, 1, 1)])
+@pytest.mark.parametrize("columns", [1, 3])
+@pytest.mark.parametrize("dtype, tol", [(np.float64, 1e-13), (np.float32, 1e-6)])
+def test_transfers_equal_the_sparse_prolongation(shape, columns, dtype, tol):
+    # against scipy's assembled prolongation P (Kronecker products)
     p, coarse = prolongation(shape)
-    factors = [prolongation_1d(n) for n in shape]
+    factors = [prolongation_1d(n).astype(dtype) for n in shape]
+    rows = [f.T.tocsr() for f in factors]
     rng = np.random.default_rng(2)
-    uc = rng.standard_normal((p.shape[1], 2))
-    uf = rng.standard_normal((p.shape[0], 2))
-    fine = kernels.tensor_apply(factors, uc, np.empty((p.shape[0], 2)))
-    assert np.allclose(fine, p @ uc, rtol=0, atol=1e-14)
-    back = kernels.tensor_apply([f.T.tocsr() for f in factors], uf, np.empty((p.shape[1], 2)))
-    assert np.allclose(back, p.T @ uf, rtol=0, atol=1e-13)
-    # one kept pair of work arrays serves both directions; the residual formed in
-    # the restriction's first pass and the prolongation added to a vector
-    scratch = kernels.transfer_scratch(factors, 2, np.float64)
+    uc = rng.standard_normal((p.shape[1], columns))
+    uf = rng.standard_normal((p.shape[0], columns))
     ff = rng.standard_normal(uf.shape)
-    restricted = kernels.tensor_apply(
-        [f.T.tocsr() for f in factors], uf, np.empty((p.shape[1], 2)), scratch, minus=ff
+
+    def close(ours, ref):
+        return np.abs(ours - ref).max() <= tol * max(np.abs(ref).max(), 1.0)
+
+    fine = kernels.tensor_apply(factors, uc.astype(dtype), np.empty((p.shape[0], columns), dtype))
+    assert close(fine, p @ uc)
+    back = kernels.tensor_apply(rows, uf.astype(dtype), np.empty((p.shape[1], columns), dtype))
+    assert close(back, p.T @ uf)
+    # one kept pair of work arrays, filled with NaN first (a value read before it
+    # is written shows), serves both directions; the residual formed in the
+    # restriction's first pass and the prolongation added to a vector
+    scratch = tuple(
+        np.full_like(a, np.nan) for a in kernels.transfer_scratch(factors, columns, dtype)
     )
-    assert np.allclose(restricted, p.T @ (uf - ff), rtol=0, atol=1e-13)
-    start = ff.copy()
-    kernels.tensor_apply(factors, uc, start, scratch, add=True)
-    assert np.allclose(start, ff + p @ uc, rtol=0, atol=1e-13)
+    restricted = kernels.tensor_apply(
+        rows, uf.astype(dtype), np.empty((p.shape[1], columns), dtype), scratch, ff.astype(dtype)
+    )
+    assert close(restricted, p.T @ (uf - ff))
+    start = ff.astype(dtype)
+    kernels.tensor_apply(factors, uc.astype(dtype), start, scratch, add=True)
+    assert close(start, ff + p @ uc)
+    with pytest.raises(ValueError, match="C-contiguous"):
+        kernels.tensor_apply(factors, uc, np.empty((p.shape[0], columns + 1))[:, :columns])
+
+
+def test_every_level_transfer_halves_each_axis():
+    # tensor_apply tells a restriction from a prolongation by size, and the
+    # scratch sizes assume the coarse grid is the smaller one along every axis
+    from topo.matrixfree import level_shapes
+
+    for shape in [(n, m, k) for n in range(1, 20, 3) for m in range(1, 12, 2) for k in (1, 2, 7)]:
+        for coarse_dofs in (30, 300, 3000):
+            shapes = level_shapes(shape, coarse_dofs)
+            for fine, coarse in zip(shapes, shapes[1:]):
+                assert all(c < f for c, f in zip(coarse, fine)), (shape, fine, coarse)
+
+
+@pytest.mark.parametrize("skip", [0.0, 1e9])  # the K-cycle's second step always / never
+def test_kept_cycle_arrays_give_what_fresh_ones_give(monkeypatch, skip):
+    # Every vector of the cycles is kept and reused. A cycle that overwrote one
+    # still in use would not match one handed fresh NaN-filled arrays (where a
+    # value read before it is written shows as NaN). Four levels, so the K-cycle
+    # nests; column counts change between calls, as between load-case and
+    # adjoint solves. Flexible CG would absorb such a fault in a solve (only
+    # more iterations), so the cycle itself is compared, bit for bit.
+    from topo import matrixfree
+    from topo.matrixfree import SINGLE, MatrixFreeCG
+
+    monkeypatch.setattr(matrixfree, "KRYLOV_SKIP", skip)
+    d = beam_problem(3, [16.0, 8.0, 8.0], 1.0)
+    model = Model(
+        problem_from_dict(d),
+        system_factory=lambda g, ke, f: MatrixFreeCG(g, ke, f, rtol=1e-6, coarse_dofs=30),
+    )
+    model.analyze(bars_in_void())
+    system = model.system
+    assert system.levels >= 4
+    rng = np.random.default_rng(1)
+    rhs = [rng.standard_normal((system.fine.shape[0], c)) for c in (3, 1, 3, 2)]
+    kept = [np.array(system.precondition(r), dtype=float) for r in rhs]
+    monkeypatch.setattr(
+        system, "_buffer", lambda level, name, shape: np.full(shape, np.nan, SINGLE)
+    )
+    for t in system.transfers:
+        monkeypatch.setattr(
+            t,
+            "_work",
+            lambda x, t=t: tuple(
+                np.full_like(a, np.nan)
+                for a in kernels.transfer_scratch(t._p32, x.shape[1], x.dtype)
+            ),
+        )
+    fresh = [np.array(system.precondition(r), dtype=float) for r in rhs]
+    for a, b in zip(kept, fresh):
+        assert np.all(np.isfinite(b)) and np.array_equal(a, b)
 
 
 @pytest.mark.parametrize("size", [[16.0, 8.0, 8.0], [15.0, 7.0, 9.0]])

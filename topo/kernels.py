@@ -522,6 +522,8 @@ def tensor_apply(factors, u, out, scratch=None, minus=None, add=False):
     (scipy CSR, x, y, z): the grid transfers (prolongation P, restriction Pᵀ)
     without forming them, one axis at a time, the shrinking axes first so the
     middle results stay small. `scratch`: transfer_scratch's arrays."""
+    if not out.flags.c_contiguous:  # its reshaped views would be copies
+        raise ValueError("tensor_apply writes into a C-contiguous array only")
     ax, ay, az = factors
     (nxo, nxi), (nyo, nyi), (nzo, nzi) = ax.shape, ay.shape, az.shape
     c = 3 * u.shape[1]
