@@ -514,7 +514,7 @@ def transfer_scratch(factors, columns: int, dtype) -> tuple[np.ndarray, np.ndarr
     # prolongation: x, y, z (fine x·coarse y·coarse z, then fine x·fine y·coarse z)
     half = nxf * nyf * nzc * 3 * columns
     quarter = nxf * nyc * nzc * 3 * columns
-    return np.empty(max(half, quarter), dtype), np.empty(min(half, quarter), dtype)
+    return np.empty(half, dtype), np.empty(quarter, dtype)  # nyf ≥ nyc: half is the larger
 
 
 def tensor_apply(factors, u, out, scratch=None, minus=None, add=False):
