@@ -367,3 +367,38 @@ def test_a_stalled_solve_restarts_with_cold_spectra(monkeypatch):
     assert model.system.iterations > 100
     err = np.linalg.norm(ours.displacements - direct.displacements, axis=0)
     assert np.all(err / np.linalg.norm(direct.displacements, axis=0) < 1e-6)
+
+
+def test_power_iteration_keeps_single_precision_clear_of_subnormals():
+    """A warm power vector concentrated on one end of the grid (its tail decaying into
+    single precision's subnormal range, as on the bracket's coarse levels after
+    many designs) comes back with no subnormal entry and the same estimate as
+    the unflushed iteration in double precision. The operator is the 1D
+    Laplacian tridiag(−1, 2, −1), whose D⁻¹A has the closed-form largest
+    eigenvalue 1 + cos(π/(n+1)) (eigenvalues of a tridiagonal Toeplitz matrix,
+    e.g. Saad, Iterative Methods for Sparse Linear Systems, 2nd ed., §2.2.5)."""
+    import scipy.sparse as sp
+
+    from topo.multigrid import _lambda_max
+
+    n = 400
+    a = sp.diags([-np.ones(n - 1), 2 * np.ones(n), -np.ones(n - 1)], [-1, 0, 1]).tocsr()
+    inv_diag = np.full(n, 0.5)
+    tail = np.exp(-0.5 * np.arange(n))  # reaches 1e-45 near entry 200
+    start = tail.astype(np.float32)
+    tiny = np.finfo(np.float32).tiny
+    assert np.any((start > 0) & (start < tiny))  # the input holds subnormals
+
+    def in_double(v, steps):  # the same iteration, unflushed, in double precision
+        for _ in range(steps):
+            w = inv_diag * (a @ v)
+            lam = np.linalg.norm(w) / np.linalg.norm(v)
+            v = w / np.linalg.norm(w)
+        return 1.05 * lam
+
+    lam, v = _lambda_max(a.astype(np.float32), inv_diag.astype(np.float32), start.copy())
+    assert v.dtype == np.float32
+    assert not np.any((v != 0) & (np.abs(v) < tiny))
+    assert lam == pytest.approx(in_double(tail, 6), rel=1e-5)
+    lam_cold, _ = _lambda_max(a, inv_diag, None, cold=3000)
+    assert lam_cold / 1.05 == pytest.approx(1 + np.cos(np.pi / (n + 1)), rel=1e-4)

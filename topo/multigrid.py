@@ -156,15 +156,35 @@ def _lambda_max(
     """Largest eigenvalue of D⁻¹A by power iteration, raised 5 % as the iteration
     approaches from below, and the last iterate (normalised). Without `start` it
     runs `cold` steps from a fixed random vector (so runs are repeatable), with it
-    `warm` steps."""
+    `warm` steps.
+
+    Entries of the unit iterate below FLUSH_BELOW are set to zero at every step.
+    Warm-started from design to design, the iterate concentrates where the
+    stiffest mode sits and decays geometrically elsewhere, until in single
+    precision much of it is subnormal, which the processor multiplies many times
+    slower: on the 5.76-million-element bracket at its 90th design 276,000 of the
+    first coarse level's 2.2 million entries were, and one product took 1.78 s
+    instead of 0.17 s (11.5 s of power iteration per design instead of 1)."""
     v = np.random.default_rng(0).standard_normal(a.shape[0]) if start is None else start
+    v = _flushed(v / np.linalg.norm(v))
     lam = 1.0
     for _ in range(cold if start is None else warm):
         w = inv_diag * (a @ v)
         norm_w = np.linalg.norm(w)
         lam = float(norm_w / np.linalg.norm(v))
-        v = w / norm_w
+        v = _flushed(w / norm_w)
     return 1.05 * lam, v
+
+
+# A unit vector's entries below this carry nothing of a Rayleigh quotient
+# (their squares are < 1e-60) and stay clear of single precision's subnormal
+# range (below 1.2e-38) for a few power steps.
+FLUSH_BELOW = 1e-30
+
+
+def _flushed(v: np.ndarray) -> np.ndarray:
+    v[np.abs(v) < FLUSH_BELOW] = 0.0
+    return v
 
 
 def pcg(
