@@ -72,6 +72,17 @@ RETRY_SAFETY = 1.25
 SINGLE = np.float32
 
 
+def _front(kept: dict, key, shape: tuple[int, ...], dtype) -> np.ndarray:
+    """A C-contiguous array of `shape`: the front of a flat array kept under `key`,
+    made anew only when a larger one is asked for, so that a drop in the column
+    count (pcg leaves converged columns out) costs no fresh pages."""
+    size = int(np.prod(shape))
+    flat = kept.get(key)
+    if flat is None or flat.size < size or flat.dtype != dtype:
+        flat = kept[key] = np.empty(size, dtype)
+    return flat[:size].reshape(shape)
+
+
 def _columns(x: np.ndarray) -> np.ndarray:
     return x if x.ndim == 2 else x[:, None]
 
@@ -95,15 +106,13 @@ class FineOperator:
         free = (~fixed).astype(float)
         self._free = {np.dtype(float): free, np.dtype(SINGLE): free.astype(SINGLE)}
         self._moduli: dict = {}
-        self._scratch: dict = {}  # (dtype, columns) -> kernels.product_scratch
+        self._scratch: dict = {}  # (dtype, 0 or 1) -> element_product's two work arrays
 
     def _product(self, u: np.ndarray, k0: np.ndarray, out: np.ndarray) -> np.ndarray:
         dt = u.dtype
-        key = (dt, u.shape[1])
-        if key not in self._scratch:
-            self._scratch[key] = kernels.product_scratch(u.shape[0], u.shape[1], dt)
+        scratch = tuple(_front(self._scratch, (dt, i), u.shape[::-1], dt) for i in range(2))
         return kernels.element_product(
-            u, self._moduli[dt], k0, self._free[dt], self.grid_shape, out, self._scratch[key]
+            u, self._moduli[dt], k0, self._free[dt], self.grid_shape, out, scratch
         )
 
     def set_moduli(self, moduli: np.ndarray) -> None:
@@ -177,13 +186,16 @@ class Transfer:
         self._r32 = [f.T.tocsr() for f in self._p32]
         self.fine_n = 3 * int(np.prod([f.shape[0] for f in self._p]))
         self.coarse_n = 3 * int(np.prod([f.shape[1] for f in self._p]))
-        self._scratch: dict = {}  # (columns, dtype) -> kernels.transfer_scratch
+        self._scratch: dict = {}  # dtype -> (transfer_scratch's arrays, their columns)
 
     def _work(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        key = (x.shape[1], x.dtype)
-        if key not in self._scratch:
-            self._scratch[key] = kernels.transfer_scratch(self._p32, x.shape[1], x.dtype)
-        return self._scratch[key]
+        """The work arrays for x's column count; tensor_apply uses their fronts, so
+        those kept for more columns serve fewer."""
+        kept = self._scratch.get(x.dtype)
+        if kept is None or kept[1] < x.shape[1]:
+            arrays = kernels.transfer_scratch(self._p32, x.shape[1], x.dtype)
+            kept = self._scratch[x.dtype] = (arrays, x.shape[1])
+        return kept[0]
 
     def prolong(self, x: np.ndarray, out: np.ndarray | None = None, add: bool = False):
         """P x, into `out` (added to it with `add`)."""
@@ -352,11 +364,9 @@ class MatrixFreeCG(LinearSystem):
         per cycle (fresh pages cost more than the pass that fills them: on the
         5.76-million-element bracket the first coarse level's Chebyshev start
         and K-cycle residual took 2.3 s per design iteration writing into fresh
-        arrays, 0.6 s into kept ones). A change of column count replaces them."""
-        buf = self._buffers.get((level, name))
-        if buf is None or buf.shape != shape:
-            buf = self._buffers[(level, name)] = np.empty(shape, SINGLE)
-        return buf
+        arrays, 0.6 s into kept ones). With fewer columns (pcg drops converged
+        ones) they are the fronts of the same arrays."""
+        return _front(self._buffers, (level, name), shape, SINGLE)
 
     def cycle(self, r: np.ndarray, level: int = 0, slot: int = 0) -> np.ndarray:
         """One multigrid cycle for A z = r at `level` (single precision). z is a

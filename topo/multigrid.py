@@ -201,8 +201,17 @@ def pcg(
     ‖r‖/‖b‖ < rtol. Returns the solution and the iterations taken. `flexible`
     takes β = zᵀ(r − r_old)/(z_oldᵀ r_old) (Polak–Ribière), which keeps CG
     convergent when the preconditioner varies slightly between applications
-    (Notay 2000, "Flexible conjugate gradients", SIAM J. Sci. Comput. 22:1444)."""
-    x = np.zeros_like(b) if x0 is None else x0.copy()
+    (Notay 2000, "Flexible conjugate gradients", SIAM J. Sci. Comput. 22:1444).
+
+    Once a column has converged it leaves the iteration: the product and the
+    preconditioner then work on the remaining columns only (the load cases of a
+    bracket converge a few iterations apart, and a product costs nearly in
+    proportion to its columns). A column's own arithmetic does not depend on the
+    others', except through a preconditioner that couples them (the K-cycle's
+    shared decision to skip its second step)."""
+    solution = np.zeros_like(b) if x0 is None else x0.copy()
+    columns = np.arange(b.shape[1]) if b.ndim == 2 else None  # those of `solution` x holds
+    x = solution
     r = b - a @ x
     norm_b = np.linalg.norm(b, axis=0)
     norm_b[norm_b == 0] = 1.0
@@ -218,7 +227,14 @@ def pcg(
     for it in range(max_iter + 1):
         active = np.sqrt(rr) / norm_b >= rtol
         if not active.any() or it == max_iter:
-            return x, it
+            break
+        if not active.all():  # keep the unconverged columns only, contiguous
+            solution[:, columns] = x
+            columns = columns[active]
+            x, r, p = (np.ascontiguousarray(v[:, active]) for v in (x, r, p))
+            rz, rr, norm_b = rz[active], rr[active], norm_b[active]
+            ap = np.empty_like(x) if product else None
+            active = active[active]
         ap = product(p, ap) if product else a @ p
         pap = vectorkernels.column_dots(p, ap)
         alpha = np.where(active, rz / np.where(active, pap, 1.0), 0.0)
@@ -230,7 +246,10 @@ def pcg(
         beta = np.where(active, numerator / np.where(active, rz, 1.0), 0.0)
         vectorkernels.cg_direction(p, z, beta)
         rz = rz_new
-    return x, max_iter
+    if columns is None:
+        return x, it
+    solution[:, columns] = x
+    return solution, it
 
 
 class MultigridCG(LinearSystem):
