@@ -156,33 +156,53 @@ def test_pcg_leaves_converged_columns_out_and_solves_each_as_alone():
     """Three right-hand sides that converge at different iterations: once a column
     has converged the product and the preconditioner see only the others, and every
     column comes out as CG on it alone gives (the Jacobi preconditioner does not
-    couple columns), within rtol of scipy's direct solution."""
+    couple columns), within rtol of scipy's direct solution; also when the
+    iteration limit stops it between the columns' counts, and from a warm start,
+    which is left as it was."""
     from topo.multigrid import pcg
 
     m = Model(problem_from_dict(beam_problem(3, [12.0, 6.0, 4.0], 1.0)))
     a = stiffness(m, np.random.default_rng(1).uniform(0.05, 1.0, m.grid.n_elements))
     inv_diag = 1.0 / a.diagonal()
+    jacobi = lambda r: inv_diag[:, None] * r  # noqa: E731
     rng = np.random.default_rng(2)
     b = np.column_stack([rng.standard_normal(a.shape[0]) for _ in range(3)])
     b[:, 1] = a @ np.ones(a.shape[0])  # a smooth solution: converges earliest
     seen = []
 
-    class Spy:
+    class Spy:  # the product as matrixfree's operators give it: into a kept array
         def __matmul__(self, x):
-            seen.append(x.shape[1])
             return a @ x
 
-    x, its = pcg(Spy(), b, lambda r: inv_diag[:, None] * r, None, 1e-8, 2000)
-    alone = [pcg(a, b[:, [j]], lambda r: inv_diag[:, None] * r, None, 1e-8, 2000) for j in range(3)]
-    counts = [n for _, n in alone]
+        def product_into(self, x, out):
+            assert out.shape == x.shape and out.flags.c_contiguous
+            seen.append(x.shape[1])
+            out[:] = a @ x
+            return out
+
+    def alone(j, x0=None, limit=2000):
+        start = None if x0 is None else x0[:, [j]]
+        return pcg(a, b[:, [j]], jacobi, start, 1e-8, limit)
+
+    x, its = pcg(Spy(), b, jacobi, None, 1e-8, 2000)
+    counts = [alone(j)[1] for j in range(3)]
     assert len(set(counts)) > 1 and its == max(counts)
-    # the first product is r = b − A·x0 on all three; then one per iteration
-    assert seen[1:] == [sum(n > k for n in counts) for k in range(its)]
-    for j, (xj, _) in enumerate(alone):
-        assert np.allclose(x[:, j], xj[:, 0], rtol=0, atol=1e-12 * np.abs(xj).max())
+    assert seen == [sum(n > k for n in counts) for k in range(its)]  # one product each
+    for j in range(3):
+        xj = alone(j)[0][:, 0]
+        assert np.allclose(x[:, j], xj, rtol=0, atol=1e-12 * np.abs(xj).max())
     direct = sp.linalg.spsolve(a.tocsc(), b)
     err = np.linalg.norm(a @ (x - direct), axis=0) / np.linalg.norm(b, axis=0)
     assert np.all(err < 1e-8)
+
+    x0 = rng.standard_normal(b.shape)
+    kept = x0.copy()
+    limit = (min(counts) + max(counts)) // 2  # stops with one column still going
+    stopped, n = pcg(Spy(), b, jacobi, x0, 1e-8, limit)
+    assert n == limit and np.array_equal(x0, kept)
+    for j in range(3):
+        xj = alone(j, x0, limit)[0][:, 0]
+        assert np.allclose(stopped[:, j], xj, rtol=0, atol=1e-12 * np.abs(xj).max())
 
 
 def test_row_blocks_product_equals_the_serial_product(monkeypatch):

@@ -196,12 +196,12 @@ def pcg(
     max_iter: int = 500,
     flexible: bool = False,
 ) -> tuple[np.ndarray, int]:
-    """Preconditioned conjugate gradients on every column of b at once (each column
-    with its own step lengths, a converged column frozen); stops when every
-    ‖r‖/‖b‖ < rtol. Returns the solution and the iterations taken. `flexible`
-    takes β = zᵀ(r − r_old)/(z_oldᵀ r_old) (Polak–Ribière), which keeps CG
-    convergent when the preconditioner varies slightly between applications
-    (Notay 2000, "Flexible conjugate gradients", SIAM J. Sci. Comput. 22:1444).
+    """Preconditioned conjugate gradients on every column of b (n, columns) at once,
+    each column with its own step lengths; stops when every ‖r‖/‖b‖ < rtol.
+    Returns the solution and the iterations taken. `flexible` takes
+    β = zᵀ(r − r_old)/(z_oldᵀ r_old) (Polak–Ribière), which keeps CG convergent
+    when the preconditioner varies slightly between applications (Notay 2000,
+    "Flexible conjugate gradients", SIAM J. Sci. Comput. 22:1444).
 
     Once a column has converged it leaves the iteration: the product and the
     preconditioner then work on the remaining columns only (the load cases of a
@@ -210,7 +210,7 @@ def pcg(
     others', except through a preconditioner that couples them (the K-cycle's
     shared decision to skip its second step)."""
     solution = np.zeros_like(b) if x0 is None else x0.copy()
-    columns = np.arange(b.shape[1]) if b.ndim == 2 else None  # those of `solution` x holds
+    columns = np.arange(b.shape[1])  # those of `solution` that x holds
     x = solution
     r = b - a @ x
     norm_b = np.linalg.norm(b, axis=0)
@@ -223,7 +223,7 @@ def pcg(
     # each numpy operation is a pass over memory and a fresh temporary. The
     # product goes into one kept array where the operator can write into one.
     product = getattr(a, "product_into", None)
-    ap = np.empty_like(b) if product else None
+    ap = np.empty(b.shape, b.dtype) if product else None  # C order: its fronts are views
     for it in range(max_iter + 1):
         active = np.sqrt(rr) / norm_b >= rtol
         if not active.any() or it == max_iter:
@@ -233,7 +233,8 @@ def pcg(
             columns = columns[active]
             x, r, p = (np.ascontiguousarray(v[:, active]) for v in (x, r, p))
             rz, rr, norm_b = rz[active], rr[active], norm_b[active]
-            ap = np.empty_like(x) if product else None
+            if product:  # the front of the kept product array: no fresh pages
+                ap = ap.reshape(-1)[: x.size].reshape(x.shape)
             active = active[active]
         ap = product(p, ap) if product else a @ p
         pap = vectorkernels.column_dots(p, ap)
@@ -246,8 +247,6 @@ def pcg(
         beta = np.where(active, numerator / np.where(active, rz, 1.0), 0.0)
         vectorkernels.cg_direction(p, z, beta)
         rz = rz_new
-    if columns is None:
-        return x, it
     solution[:, columns] = x
     return solution, it
 
